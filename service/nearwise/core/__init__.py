@@ -1,0 +1,1 @@
+"""The numerical core: tables in, predictions with reports out. No web code lives here."""

@@ -1,0 +1,198 @@
+"""What every method offers the tuning loop, and the checks shared by their parameters."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any, Protocol
+
+import numpy as np
+
+from nearwise.core.errors import InvalidValue, NotApplicable, UnknownName, Where
+from nearwise.core.tuning import Folds
+
+
+@dataclass(frozen=True)
+class Param:
+    """A method parameter as the catalogue describes it.
+
+    ``kind`` is ``integer``, ``number``, ``choice`` or ``boolean``. A ``tunable`` parameter
+    has a default grid; ``simpler`` says which direction of it gives the simpler model.
+    """
+
+    name: str
+    kind: str
+    default: Any
+    doc: str
+    low: float | None = None
+    high: float | None = None
+    choices: tuple[str, ...] = ()
+    tunable: bool = False
+    simpler: str | None = None
+
+    def describe(self) -> dict[str, Any]:
+        out: dict[str, Any] = {"name": self.name, "type": self.kind, "doc": self.doc,
+                               "tunable": self.tunable}
+        if self.default is not None:
+            out["default"] = self.default
+        if self.low is not None:
+            out["minimum"] = self.low
+        if self.high is not None:
+            out["maximum"] = self.high
+        if self.choices:
+            out["choices"] = list(self.choices)
+        if self.simpler:
+            out["simpler"] = self.simpler
+        return out
+
+    def check(self, value: Any, path: tuple) -> Any:
+        """Check one value against the parameter's type and range; return it unchanged."""
+        ok = True
+        if self.kind == "integer":
+            ok = isinstance(value, int) and not isinstance(value, bool)
+            expect = "an integer"
+        elif self.kind == "number":
+            ok = isinstance(value, int | float) and not isinstance(value, bool)
+            ok = ok and bool(np.isfinite(value))
+            expect = "a finite number"
+        elif self.kind == "boolean":
+            ok = isinstance(value, bool)
+            expect = "true or false"
+        else:
+            ok = isinstance(value, str) and value in self.choices
+            expect = "one of " + ", ".join(self.choices)
+        if ok and self.kind in ("integer", "number"):
+            ok = (self.low is None or value >= self.low) and (self.high is None or value <= self.high)
+            expect = f"{expect} in [{self.low}, {self.high if self.high is not None else 'inf'}]"
+        if not ok:
+            raise InvalidValue(
+                f"`{self.name}` must be {expect}; got {value!r}.",
+                [Where(path, f"expected {expect}")],
+            )
+        return value
+
+
+class Fitted(Protocol):
+    """A model fitted to all usable training rows."""
+
+    df: float | None
+    fitted: np.ndarray
+
+    def predict(self, Xq: np.ndarray) -> np.ndarray: ...
+
+    def summary(self, names: tuple[str, ...]) -> dict[str, Any]: ...
+
+
+@dataclass(frozen=True)
+class PathResult:
+    """Out-of-fold predictions for every candidate, and their effective degrees of freedom.
+
+    ``oof`` has shape (candidates, repeats, n). For ``gcv`` it holds fitted values (one
+    repeat) and ``gcv_scale`` holds 1 - df/n per candidate.
+    """
+
+    oof: np.ndarray
+    df: np.ndarray
+    gcv_scale: np.ndarray | None = None
+
+
+class Method:
+    """Base class: parameter handling shared by every method.
+
+    Subclasses set the class attributes and implement ``candidates``, ``path`` and ``fit``.
+    """
+
+    name: str = ""
+    summary: str = ""
+    min_features: int = 1
+    max_features: int | None = None
+    schemes: tuple[str, ...] = ("kfold", "loo", "gcv")
+    params: tuple[Param, ...] = ()
+    tuned: str = ""
+    std_error_doc: str = ""
+    references: tuple[str, ...] = ()
+
+    def param(self, name: str) -> Param:
+        return next(p for p in self.params if p.name == name)
+
+    def settings(self, given: Mapping[str, Any]) -> dict[str, Any]:
+        """Defaults merged with the caller's fixed values, each checked; unknown names refused."""
+        names = [p.name for p in self.params]
+        out: dict[str, Any] = {}
+        for key, value in given.items():
+            if key not in names:
+                raise UnknownName(
+                    f"`{key}` is not a parameter of {self.name}; its parameters are "
+                    f"{', '.join(names)}.",
+                    [Where(("params", key), "unknown parameter")],
+                )
+            out[key] = self.param(key).check(value, ("params", key))
+        for p in self.params:
+            if p.name not in out and p.default is not None and not p.tunable:
+                out[p.name] = p.default
+        return out
+
+    def check_grid(self, grid: Mapping[str, Sequence[Any]], settings: Mapping[str, Any]):
+        """Return the caller's candidate list for the tuned parameter, or None for the default."""
+        for key in grid:
+            if key != self.tuned:
+                known = [p.name for p in self.params]
+                if key in known:
+                    raise NotApplicable(
+                        f"`{key}` is not tuned by {self.name}; only `{self.tuned}` takes a grid. "
+                        f"Fix `{key}` in `params` instead.",
+                        [Where(("grid", key), "not a tuned parameter")],
+                    )
+                raise UnknownName(
+                    f"`{key}` is not a parameter of {self.name}; its tuned parameter is "
+                    f"`{self.tuned}`.",
+                    [Where(("grid", key), "unknown parameter")],
+                )
+        if self.tuned in grid and self.tuned in settings:
+            raise InvalidValue(
+                f"`{self.tuned}` is given both in `params` (fixed) and in `grid` (tuned); "
+                "give one.",
+                [Where(("grid", self.tuned), "also fixed in params")],
+            )
+        if self.tuned not in grid:
+            return None
+        values = list(grid[self.tuned])
+        if not values:
+            raise InvalidValue(
+                f"the grid for `{self.tuned}` is empty; give at least one value or leave it out.",
+                [Where(("grid", self.tuned), "empty list")],
+            )
+        p = self.param(self.tuned)
+        for i, v in enumerate(values):
+            p.check(v, ("grid", self.tuned, i))
+        if len(set(values)) != len(values):
+            raise InvalidValue(
+                f"the grid for `{self.tuned}` repeats a value.",
+                [Where(("grid", self.tuned), "duplicate values")],
+            )
+        return values
+
+    def describe(self) -> dict[str, Any]:
+        return {
+            "name": self.name,
+            "summary": self.summary,
+            "features": {"min": self.min_features, "max": self.max_features},
+            "parameters": [p.describe() for p in self.params],
+            "tuned": self.tuned,
+            "schemes": list(self.schemes),
+            "std_error": self.std_error_doc,
+            "references": list(self.references),
+        }
+
+    # Implemented by subclasses -----------------------------------------------------------
+    def order(self, values: Sequence[Any]) -> list[Any]:  # simplest first
+        raise NotImplementedError
+
+    def candidates(self, X, y, folds: Folds, settings, grid) -> list[Any]:
+        raise NotImplementedError
+
+    def path(self, X, y, folds: Folds, settings, values) -> PathResult:
+        raise NotImplementedError
+
+    def fit(self, X, y, settings, value) -> Fitted:
+        raise NotImplementedError

@@ -1,0 +1,231 @@
+"""k-nearest-neighbor regression with every k scored from one neighbor query per fold.
+
+Ties at the k-th distance are shared out: the neighbors tied with the k-th one enter with equal
+fractional weight, so that the prediction does not depend on the order of the rows. Without
+ties this is the usual kNN average and equals scikit-learn's ``KNeighborsRegressor``.
+
+References
+----------
+Fix, E. & Hodges, J. L. (1951). Discriminatory analysis, nonparametric discrimination.
+Hastie, Tibshirani & Friedman (2009), *The Elements of Statistical Learning*, section 2.3.2.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from sklearn.neighbors import NearestNeighbors
+
+from nearwise.core.data import SCALES, Scaler
+from nearwise.core.errors import InvalidValue, NotApplicable, Where
+from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.tuning import Folds
+
+MAX_DEFAULT_K = 50
+
+
+def _query(index: NearestNeighbors, Xq: np.ndarray, width: int, n_index: int,
+           self_rows: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """Sorted distances and indices of the ``width`` nearest indexed rows.
+
+    With ``self_rows``, each query row's own index entry is removed (not simply the first
+    column, so that duplicate rows are handled); if it was not among the neighbors returned,
+    the farthest one is removed instead.
+    """
+    if self_rows is None:
+        return index.kneighbors(Xq, n_neighbors=min(width, n_index))
+    d, ind = index.kneighbors(Xq, n_neighbors=min(width + 1, n_index))
+    is_self = ind == self_rows[:, None]
+    order = np.argsort(is_self, axis=1, kind="stable")[:, : d.shape[1] - 1]
+    return np.take_along_axis(d, order, axis=1), np.take_along_axis(ind, order, axis=1)
+
+
+def _all_k(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.ndarray:
+    """Predictions for k = 1..kmax from sorted neighbor distances ``d`` and targets ``yn``.
+
+    Every run of tied distances must be complete within the window, except a run that
+    starts after column kmax - 1.
+    """
+    m, w = d.shape
+    cols = np.arange(w)
+    new = np.ones((m, w), dtype=bool)
+    new[:, 1:] = d[:, 1:] != d[:, :-1]
+    start = np.maximum.accumulate(np.where(new, cols, 0), axis=1)[:, :kmax]
+    last = np.ones((m, w), dtype=bool)
+    last[:, :-1] = new[:, 1:]
+    end = np.minimum.accumulate(np.where(last, cols + 1, w)[:, ::-1], axis=1)[:, ::-1][:, :kmax]
+    ks = np.arange(1, kmax + 1)[None, :]
+    share = ks - start  # how many members of the tied run enter the k nearest
+    run = end - start
+    zero = np.zeros((m, 1))
+    cs = np.concatenate([zero, np.cumsum(yn, axis=1)], axis=1)
+    cs_s = np.take_along_axis(cs, start, axis=1)
+    run_mean = (np.take_along_axis(cs, end, axis=1) - cs_s) / run
+    if weights == "uniform":
+        return (cs_s + share * run_mean) / ks
+    at_zero = d[:, 0] == 0
+    with np.errstate(divide="ignore"):
+        wgt = np.where(d > 0, 1.0 / np.where(d > 0, d, 1.0), 0.0)
+    cw = np.concatenate([zero, np.cumsum(wgt, axis=1)], axis=1)
+    cwy = np.concatenate([zero, np.cumsum(wgt * yn, axis=1)], axis=1)
+    wk = wgt[:, :kmax]
+    num = np.take_along_axis(cwy, start, axis=1) + share * wk * run_mean
+    den = np.take_along_axis(cw, start, axis=1) + share * wk
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = num / den
+    if at_zero.any():
+        # Training rows at distance zero take all the weight, shared equally among them.
+        e0 = end[at_zero, 0]
+        out[at_zero] = (cs[at_zero, e0] / e0)[:, None]
+    return out
+
+
+def predict_all_k(index: NearestNeighbors, y_index: np.ndarray, Xq: np.ndarray, kmax: int,
+                  weights: str, self_rows: np.ndarray | None = None) -> np.ndarray:
+    """Predictions at ``Xq`` for every k in 1..kmax, shape (n_query, kmax).
+
+    One query of kmax + 1 neighbors serves all k; rows whose tied run reaches past the window
+    are queried again with a wider window until the run is complete.
+    """
+    n_index = y_index.shape[0]
+    n_avail = n_index - (self_rows is not None)
+    out = np.empty((Xq.shape[0], kmax))
+    rows = np.arange(Xq.shape[0])
+    width = kmax + 1
+    while rows.size:
+        sr = None if self_rows is None else self_rows[rows]
+        d, ind = _query(index, Xq[rows], width, n_index, sr)
+        w = d.shape[1]
+        open_run = (d[:, kmax - 1] == d[:, w - 1]) if w < n_avail else np.zeros(rows.size, bool)
+        done = ~open_run
+        out[rows[done]] = _all_k(d[done], y_index[ind[done]], kmax, weights)
+        rows = rows[open_run]
+        width = min(2 * width, n_avail)
+    return out
+
+
+def _index(Xs: np.ndarray) -> NearestNeighbors:
+    return NearestNeighbors().fit(Xs)
+
+
+@dataclass
+class FittedKNN:
+    """kNN fitted to all usable rows."""
+
+    k: int
+    weights: str
+    scaler: Scaler
+    index: NearestNeighbors
+    y: np.ndarray
+    fitted: np.ndarray
+    df: float
+    typical_radius: float
+
+    def predict(self, Xq: np.ndarray) -> np.ndarray:
+        Xs = self.scaler.transform(Xq)
+        return predict_all_k(self.index, self.y, Xs, self.k, self.weights)[:, -1]
+
+    def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
+        n = self.y.shape[0]
+        return {
+            "k": self.k,
+            "neighborhood_fraction": self.k / n,
+            "typical_radius": self.typical_radius,
+            "radius_units": "scaled features (see `scale`)",
+        }
+
+
+class KNN(Method):
+    """k-nearest-neighbor regression."""
+
+    name = "knn"
+    summary = ("Average of the targets of the k nearest training rows, with Euclidean distance "
+               "on scaled features. Larger k is simpler.")
+    min_features = 1
+    max_features = None
+    schemes = ("kfold", "loo")
+    tuned = "k"
+    params = (
+        Param("k", "integer", None, "number of neighbors", low=1, tunable=True,
+              simpler="larger"),
+        Param("weights", "choice", "uniform",
+              "`uniform` averages the k neighbors; `distance` weights them by 1/distance",
+              choices=("uniform", "distance")),
+        Param("scale", "choice", "standard",
+              "feature scaling before distances: `standard` (mean 0, sd 1), `range` (0 to 1) "
+              "or `none`", choices=SCALES),
+    )
+    std_error_doc = ("sigma / sqrt(k), with sigma the root mean squared out-of-fold residual; "
+                     "it measures noise only, not the bias of the local average")
+    references = ("Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, "
+                  "section 2.3.2",)
+
+    def order(self, values):
+        return sorted(values, reverse=True)
+
+    def max_k(self, folds: Folds) -> int:
+        return folds.min_train - 1
+
+    def is_bound(self, value: Any, folds: Folds) -> bool:
+        return value in (1, self.max_k(folds))
+
+    def _check_k(self, k: int, folds: Folds, path: tuple) -> None:
+        hi = self.max_k(folds)
+        if k > hi:
+            raise InvalidValue(
+                f"`k` must be an integer in [1, {hi}] for {folds.n} rows in "
+                f"{'leave-one-out' if folds.scheme == 'loo' else f'{folds.n_folds} folds'}; "
+                f"got {k}. The smallest training fold holds {folds.min_train} rows.",
+                [Where(path, f"larger than {hi}")],
+            )
+
+    def candidates(self, X, y, folds, settings, grid):
+        if folds.scheme == "gcv":
+            raise NotApplicable(
+                "knn is not scored by gcv here; use `tuning.scheme` kfold or loo "
+                "(leave-one-out is exact and costs one neighbor query).",
+                [Where(("tuning", "scheme"), "gcv does not apply to knn")],
+            )
+        if "k" in settings:
+            self._check_k(settings["k"], folds, ("params", "k"))
+            return [settings["k"]]
+        if grid is not None:
+            for i, k in enumerate(grid):
+                self._check_k(k, folds, ("grid", "k", i))
+            return self.order(grid)
+        return self.order(range(1, min(MAX_DEFAULT_K, self.max_k(folds)) + 1))
+
+    def path(self, X, y, folds, settings, values):
+        kmax = max(values)
+        cols = np.asarray(values) - 1
+        weights, scale = settings["weights"], settings["scale"]
+        if folds.scheme == "loo":
+            sc = Scaler.fit(X, scale)
+            pred = predict_all_k(_index(sc.transform(X)), y, sc.transform(X), kmax, weights,
+                                 self_rows=np.arange(X.shape[0]))
+            oof = pred[:, cols].T[:, None, :]
+        else:
+            oof = np.empty((len(values), folds.repeats, X.shape[0]))
+            for r, _f, train, test in folds.splits():
+                sc = Scaler.fit(X[train], scale)
+                pred = predict_all_k(_index(sc.transform(X[train])), y[train],
+                                     sc.transform(X[test]), kmax, weights)
+                oof[:, r, test] = pred[:, cols].T
+        df = X.shape[0] / np.asarray(values, dtype=float)
+        return PathResult(oof, df)
+
+    def fit(self, X, y, settings, value):
+        k = int(value)
+        sc = Scaler.fit(X, settings["scale"])
+        Xs = sc.transform(X)
+        index = _index(Xs)
+        fitted = predict_all_k(index, y, Xs, k, settings["weights"])[:, -1]
+        if X.shape[0] > 1:
+            kk = min(k, X.shape[0] - 1)
+            d, _ = _query(index, Xs, kk, X.shape[0], np.arange(X.shape[0]))
+            radius = float(np.median(d[:, kk - 1]))
+        else:  # pragma: no cover - folds need more rows
+            radius = 0.0
+        return FittedKNN(k, settings["weights"], sc, index, y, fitted, X.shape[0] / k, radius)

@@ -1,0 +1,234 @@
+"""Smoothing splines: cubic in one feature, thin-plate in two or three.
+
+``smoothing`` is the lam of ``scipy.interpolate.make_smoothing_spline`` (one feature) or of
+``scipy.interpolate.RBFInterpolator(kernel="thin_plate_spline")`` (two or three features, after
+``scale``). Larger smoothing is simpler; 0 interpolates.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg
+
+from nearwise.core.data import SCALES, Scaler
+from nearwise.core.errors import NotApplicable, TooFewRows, UnsupportedDimension, Where
+from nearwise.core.methods import spline1d, thinplate
+from nearwise.core.methods.base import Method, Param, PathResult
+
+GRID_SIZE = 20
+MIN_DISTINCT = 5
+MAX_THIN_PLATE_ROWS = 3000
+
+
+@dataclass
+class FittedSpline1D:
+    knots: spline1d.Knots
+    g: np.ndarray
+    gam: np.ndarray
+    smoothing: float
+    fitted: np.ndarray
+    df: float | None
+
+    def predict(self, Xq):
+        return spline1d.evaluate(self.knots.t, self.g, self.gam, Xq[:, 0])
+
+    def summary(self, names):
+        return {"smoothing": self.smoothing, "df": self.df, "kind": "cubic smoothing spline",
+                "distinct_x": int(self.knots.t.size)}
+
+
+@dataclass
+class FittedThinPlate:
+    scaler: Scaler
+    Xs: np.ndarray
+    c: np.ndarray
+    b: np.ndarray
+    smoothing: float
+    fitted: np.ndarray
+    df: float | None
+
+    def predict(self, Xq):
+        Z = self.scaler.transform(Xq)
+        return thinplate.kernel(Z, self.Xs) @ self.c + thinplate.poly(Z) @ self.b
+
+    def summary(self, names):
+        return {"smoothing": self.smoothing, "df": self.df, "kind": "thin-plate spline",
+                "scale_shift": self.scaler.shift.tolist(), "scale_factor": self.scaler.scale.tolist()}
+
+
+class Spline(Method):
+    """Smoothing spline in one to three features."""
+
+    name = "spline"
+    summary = ("Cubic smoothing spline (one feature) or thin-plate spline (two or three "
+               "features) minimising squared error plus smoothing times roughness. Larger "
+               "smoothing is simpler; 0 interpolates.")
+    min_features = 1
+    max_features = 3
+    tuned = "smoothing"
+    params = (
+        Param("smoothing", "number", None,
+              "lam: weight of the roughness penalty integral f''^2 (one feature) or of the "
+              "thin-plate penalty (two or three)", low=0.0, tunable=True, simpler="larger"),
+        Param("scale", "choice", None,
+              "feature scaling before a thin-plate fit (two or three features): `standard` "
+              "(default), `range` or `none`; a one-feature spline works on x as given",
+              choices=SCALES),
+    )
+    std_error_doc = "posterior standard deviation of the smoother (with interval kind `model`)"
+    references = (
+        "Green & Silverman (1994), Nonparametric Regression and Generalized Linear Models",
+        "Wahba (1990), Spline Models for Observational Data",
+    )
+
+    def order(self, values):
+        return sorted(values, reverse=True)
+
+    def is_bound(self, value, folds):
+        return value == 0
+
+    def _check_shape(self, X, folds, settings):
+        n, p = X.shape
+        if p > 3:
+            raise UnsupportedDimension(
+                f"spline supports 1 to 3 features; got {p}. With more features use `knn` or "
+                "`linear`, which accept any number of features.",
+                [Where(("features",), f"{p} features")],
+            )
+        if p == 1 and settings.get("scale") is not None:
+            raise NotApplicable(
+                "`scale` applies to thin-plate splines (two or three features); a one-feature "
+                "spline smooths x as given. Leave `scale` out.",
+                [Where(("params", "scale"), "not used with one feature")],
+            )
+        distinct = np.unique(X, axis=0).shape[0]
+        if distinct < MIN_DISTINCT:
+            raise TooFewRows(
+                f"spline needs at least {MIN_DISTINCT} distinct feature values; found "
+                f"{distinct}. Use `linear` (degree 1) or collect more distinct values.",
+                [Where(("train", "rows"), f"{distinct} distinct values")],
+            )
+        if p > 1:
+            if n > MAX_THIN_PLATE_ROWS:
+                raise TooFewRows(
+                    f"a thin-plate spline here takes at most {MAX_THIN_PLATE_ROWS} rows (its "
+                    f"cost grows as n^3); got {n}. Use `knn`, or fit a sample.",
+                    [Where(("train", "rows"), f"{n} rows")],
+                )
+            if np.linalg.matrix_rank(thinplate.poly(X - X.mean(axis=0))) < p + 1:
+                raise TooFewRows(
+                    "the feature rows lie on a line or plane, so a thin-plate spline is not "
+                    "determined; drop a feature or use `linear`.",
+                    [Where(("features",), "collinear features")],
+                )
+        if folds.scheme == "kfold":
+            for _r, _f, train, _test in folds.splits():
+                if np.unique(X[train], axis=0).shape[0] < max(4, p + 2):
+                    raise TooFewRows(
+                        "a training fold holds too few distinct feature values for a spline; "
+                        "use fewer folds.",
+                        [Where(("tuning", "folds"), "training fold too small")],
+                    )
+
+    def _scale(self, settings):
+        return settings.get("scale") or "standard"
+
+    def candidates(self, X, y, folds, settings, grid):
+        self._check_shape(X, folds, settings)
+        if "smoothing" in settings:
+            return [settings["smoothing"]]
+        if grid is not None:
+            return self.order(grid)
+        n = X.shape[0]
+        if X.shape[1] == 1:
+            t, _, w = spline1d.average_ties(X[:, 0], y)
+            top = max(t.size / 2, 4.0)
+            targets = 2 + np.geomspace(0.25, top - 2, GRID_SIZE)
+            return self.order(spline1d.lam_for_df(t, w, targets).tolist())
+        Xs = Scaler.fit(X, self._scale(settings)).transform(X)
+        eig = thinplate.Eigen.build(Xs, vectors=False)
+        m = X.shape[1] + 1
+        targets = m + np.geomspace(0.25, max(n / 2 - m, 1.0), GRID_SIZE)
+        return self.order(thinplate.lam_for_df(eig.ev, m, targets).tolist())
+
+    # -- one feature ------------------------------------------------------------------
+    def _path_1d(self, x, y, folds, lams):
+        n = x.size
+        t, ybar, w = spline1d.average_ties(x, y)
+        full = spline1d.Knots.build(t, w)
+        diags = [full.diag_smoother(lam) for lam in lams]
+        df = np.array([d.sum() for d in diags])
+        if folds.scheme == "kfold":
+            oof = np.empty((lams.size, folds.repeats, n))
+            for r, _f, train, test in folds.splits():
+                tt, yy, ww = spline1d.average_ties(x[train], y[train])
+                kn = spline1d.Knots.build(tt, ww)
+                for c, lam in enumerate(lams):
+                    g, gam = kn.solve(yy, lam)
+                    oof[c, r, test] = spline1d.evaluate(tt, g, gam, x[test])
+            return PathResult(oof, df)
+        inv = np.searchsorted(t, x)
+        fitted = np.empty((lams.size, n))
+        for c, lam in enumerate(lams):
+            g, _ = full.solve(ybar, lam)
+            fitted[c] = g[inv]
+        if folds.scheme == "gcv":
+            return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
+        h = np.array([d[inv] / w[inv] for d in diags])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            loo = y[None, :] - (y[None, :] - fitted) / (1 - h)
+        loo = np.where(h < 1 - 1e-10, loo, np.nan)
+        return PathResult(loo[:, None, :], df)
+
+    # -- two or three features ----------------------------------------------------------
+    def _path_tps(self, X, y, folds, lams, scale):
+        n = X.shape[0]
+        if folds.scheme == "kfold":
+            Xs = Scaler.fit(X, scale).transform(X)
+            df = thinplate.Eigen.build(Xs, vectors=False).df(lams)
+            oof = np.empty((lams.size, folds.repeats, n))
+            for r, _f, train, test in folds.splits():
+                sc = Scaler.fit(X[train], scale)
+                eig = thinplate.Eigen.build(sc.transform(X[train]))
+                C, B = eig.coefficients(y[train], lams)
+                oof[:, r, test] = eig.predict(C, B, sc.transform(X[test])).T
+            return PathResult(oof, df)
+        eig = thinplate.Eigen.build(Scaler.fit(X, scale).transform(X))
+        df = eig.df(lams)
+        C, _ = eig.coefficients(y, lams)
+        if folds.scheme == "gcv":
+            fitted = (y[:, None] - lams[None, :] * C).T
+            return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
+        loo = (y[:, None] - eig.loo_residuals(C, lams)).T
+        return PathResult(loo[:, None, :], df)
+
+    def path(self, X, y, folds, settings, values):
+        lams = np.asarray(values, dtype=float)
+        if X.shape[1] == 1:
+            return self._path_1d(X[:, 0], y, folds, lams)
+        return self._path_tps(X, y, folds, lams, self._scale(settings))
+
+    def fit(self, X, y, settings, value):
+        lam = float(value)
+        if X.shape[1] == 1:
+            t, ybar, w = spline1d.average_ties(X[:, 0], y)
+            kn = spline1d.Knots.build(t, w)
+            g, gam = kn.solve(ybar, lam)
+            df = float(kn.diag_smoother(lam).sum())
+            fitted = g[np.searchsorted(t, X[:, 0])]
+            return FittedSpline1D(kn, g, gam, lam, fitted, df if np.isfinite(df) else None)
+        sc = Scaler.fit(X, self._scale(settings))
+        Xs = sc.transform(X)
+        try:
+            c, b = thinplate.solve_direct(Xs, y, lam)
+        except linalg.LinAlgError:
+            raise TooFewRows(
+                "smoothing 0 interpolates every row and needs distinct feature rows; some "
+                "rows coincide. Use a positive smoothing.",
+                [Where(("params", "smoothing"), "interpolation of repeated rows")],
+            ) from None
+        df = float(thinplate.Eigen.build(Xs, vectors=False).df(np.array([lam]))[0])
+        fitted = thinplate.kernel(Xs, Xs) @ c + thinplate.poly(Xs) @ b
+        return FittedThinPlate(sc, Xs, c, b, lam, fitted, df)

@@ -1,0 +1,54 @@
+"""What a caller asks for, as plain frozen data (built by the web layer, read by the core)."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from nearwise.core.data import Table
+
+SCHEMES = ("kfold", "loo", "gcv")
+RULES = ("one_se", "min")
+METRICS = ("rmse", "mae")
+INTERVAL_KINDS = ("cv_plus", "model")
+
+
+@dataclass(frozen=True)
+class TuningSpec:
+    """Cross-validation settings. ``folds`` and ``repeats`` apply to ``kfold`` only."""
+
+    scheme: str = "kfold"
+    folds: int = 5
+    repeats: int = 1
+    seed: int = 0
+    rule: str = "one_se"
+    metric: str = "rmse"
+    group_by: str | None = None
+
+
+@dataclass(frozen=True)
+class IntervalSpec:
+    """Prediction interval settings."""
+
+    level: float = 0.9
+    kind: str = "cv_plus"
+
+
+@dataclass(frozen=True)
+class Job:
+    """One predict request, after the envelope was checked and the tables parsed.
+
+    ``params`` and ``grid`` hold the caller's values as sent (JSON scalars and lists); the
+    core checks them against the method's constraints.
+    """
+
+    method: str
+    train: Table
+    target: str
+    features: Sequence[str] | None = None
+    query: Table | None = None
+    params: Mapping[str, Any] = field(default_factory=dict)
+    grid: Mapping[str, Sequence[Any]] = field(default_factory=dict)
+    tuning: TuningSpec = field(default_factory=TuningSpec)
+    interval: IntervalSpec | None = None

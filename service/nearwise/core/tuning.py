@@ -1,0 +1,235 @@
+"""Fold assignment, cross-validated scoring of a whole grid, and the one-standard-error rule.
+
+The methods compute out-of-fold predictions for every candidate at once (their fast paths);
+this module turns those predictions into the score table the API returns and picks a
+candidate. The folds and out-of-fold predictions are kept for later use (intervals, method
+comparison).
+
+References
+----------
+Hastie, T., Tibshirani, R. & Friedman, J. (2009). *The Elements of Statistical Learning*, 2nd
+ed., Springer, section 7.10 (K-fold cross-validation and the one-standard-error rule).
+Craven, P. & Wahba, G. (1979). Smoothing noisy data with spline functions. *Numerische
+Mathematik* 31, 377-403 (generalised cross-validation).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
+from nearwise.core.spec import METRICS, RULES, SCHEMES, TuningSpec
+
+
+@dataclass(frozen=True)
+class Folds:
+    """How rows are split for cross-validation.
+
+    ``fold_id`` has shape (repeats, n): the test fold of each row in each repeat (K-fold), or
+    the row's own number (leave-one-out). For ``gcv`` there are no folds and ``fold_id`` is
+    None. ``min_train`` is the size of the smallest training fold (n for ``gcv``).
+    """
+
+    scheme: str
+    n: int
+    n_folds: int
+    repeats: int
+    fold_id: np.ndarray | None
+    min_train: int
+
+    def splits(self):
+        """Yield ``(repeat, fold, train_index, test_index)`` for the K-fold scheme."""
+        assert self.fold_id is not None
+        for r in range(self.repeats):
+            ids = self.fold_id[r]
+            for f in range(self.n_folds):
+                test = np.flatnonzero(ids == f)
+                train = np.flatnonzero(ids != f)
+                yield r, f, train, test
+
+
+def check_spec(spec: TuningSpec) -> None:
+    """Check the tuning options that do not depend on the data."""
+    if spec.scheme not in SCHEMES:
+        raise InvalidValue(
+            f"`tuning.scheme` must be one of {', '.join(SCHEMES)}; got {spec.scheme!r}.",
+            [Where(("tuning", "scheme"), "unknown scheme")],
+        )
+    if spec.rule not in RULES:
+        raise InvalidValue(
+            f"`tuning.rule` must be one of {', '.join(RULES)}; got {spec.rule!r}.",
+            [Where(("tuning", "rule"), "unknown rule")],
+        )
+    if spec.metric not in METRICS:
+        raise InvalidValue(
+            f"`tuning.metric` must be one of {', '.join(METRICS)}; got {spec.metric!r}.",
+            [Where(("tuning", "metric"), "unknown metric")],
+        )
+    if spec.scheme == "kfold" and spec.folds < 2:
+        raise InvalidValue(
+            f"`tuning.folds` must be at least 2; got {spec.folds}.",
+            [Where(("tuning", "folds"), "fewer than 2 folds")],
+        )
+    if spec.repeats < 1:
+        raise InvalidValue(
+            f"`tuning.repeats` must be at least 1; got {spec.repeats}.",
+            [Where(("tuning", "repeats"), "fewer than 1 repeat")],
+        )
+    if spec.scheme != "kfold" and spec.repeats != 1:
+        raise NotApplicable(
+            f"`tuning.repeats` applies to the kfold scheme only; {spec.scheme} is deterministic. "
+            "Leave repeats at 1.",
+            [Where(("tuning", "repeats"), f"not used by {spec.scheme}")],
+        )
+    if spec.scheme != "kfold" and spec.group_by is not None:
+        raise NotApplicable(
+            f"`tuning.group_by` needs the kfold scheme; {spec.scheme} leaves single rows out.",
+            [Where(("tuning", "group_by"), f"not used by {spec.scheme}")],
+        )
+
+
+def make_folds(n: int, spec: TuningSpec, groups: np.ndarray | None = None) -> Folds:
+    """Assign rows to folds.
+
+    K-fold: a seeded permutation split into ``folds`` parts whose sizes differ by at most one,
+    drawn afresh for each repeat. With groups, whole groups are dealt to folds: groups are
+    shuffled, then each (largest first) goes to the fold holding the fewest rows so far.
+    """
+    if spec.scheme == "gcv":
+        return Folds("gcv", n, 1, 1, None, n)
+    if spec.scheme == "loo":
+        if n < 3:
+            raise TooFewRows(
+                f"leave-one-out needs at least 3 usable rows; got {n}.",
+                [Where(("train", "rows"), f"{n} usable rows")],
+            )
+        return Folds("loo", n, n, 1, np.arange(n)[None, :], n - 1)
+    k = spec.folds
+    units = n if groups is None else int(groups.max()) + 1
+    if units < k:
+        what = "rows" if groups is None else "groups"
+        fix = "`tuning.scheme: loo`" if groups is None else "more groups"
+        raise TooFewRows(
+            f"{k}-fold cross-validation needs at least {k} usable {what}; got {units}. "
+            f"Use fewer folds (`tuning.folds`) or {fix}.",
+            [Where(("tuning", "folds"), f"{k} folds for {units} {what}")],
+        )
+    rng = np.random.default_rng(spec.seed)
+    fold_id = np.empty((spec.repeats, n), dtype=np.intp)
+    for r in range(spec.repeats):
+        if groups is None:
+            perm = rng.permutation(n)
+            fold_id[r, perm] = np.arange(n) % k
+        else:
+            sizes = np.bincount(groups, minlength=units)
+            order = rng.permutation(units)
+            order = order[np.argsort(-sizes[order], kind="stable")]
+            load = np.zeros(k, dtype=np.intp)
+            g_fold = np.empty(units, dtype=np.intp)
+            for g in order:
+                f = int(np.argmin(load))
+                g_fold[g] = f
+                load[f] += sizes[g]
+            fold_id[r] = g_fold[groups]
+    counts = np.stack([np.bincount(fold_id[r], minlength=k) for r in range(spec.repeats)])
+    min_train = int(n - counts.max())
+    if min_train < 2:
+        raise TooFewRows(
+            f"a training fold would hold {min_train} row(s); use fewer folds or more groups.",
+            [Where(("tuning", "folds"), "training fold too small")],
+        )
+    return Folds("kfold", n, k, spec.repeats, fold_id, min_train)
+
+
+@dataclass(frozen=True)
+class Scores:
+    """Cross-validated errors of every candidate, in candidate order.
+
+    ``oof`` holds out-of-fold predictions with shape (candidates, repeats, n); for ``gcv`` it
+    holds the fitted values and ``residual`` the GCV-inflated residuals.
+    """
+
+    error: np.ndarray
+    error_se: np.ndarray
+    unit_errors: np.ndarray
+    residual: np.ndarray
+    oof: np.ndarray
+
+
+def score(
+    y: np.ndarray, oof: np.ndarray, folds: Folds, metric: str, gcv_scale: np.ndarray | None = None
+) -> Scores:
+    """Score every candidate from its out-of-fold predictions.
+
+    The error is pooled over all held-out rows (and repeats): the root mean squared or the mean
+    absolute residual. Its standard error is the standard deviation of the per-fold errors
+    divided by the square root of the number of folds (each row is a fold for leave-one-out and
+    GCV); for RMSE it is taken on the squared scale and carried over by the delta method,
+    se(RMSE) = se(MSE) / (2 RMSE).
+
+    For GCV, ``gcv_scale`` holds 1 - df/n per candidate; residuals are divided by it, so the
+    squared error equals the GCV score of Craven & Wahba.
+    """
+    resid = y[None, None, :] - oof
+    if gcv_scale is not None:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            resid = resid / gcv_scale[:, None, None]
+    loss = resid**2 if metric == "rmse" else np.abs(resid)
+    n_c = oof.shape[0]
+    if folds.scheme == "kfold":
+        assert folds.fold_id is not None
+        k = folds.n_folds
+        units = np.empty((n_c, folds.repeats * k))
+        for r in range(folds.repeats):
+            ids = folds.fold_id[r]
+            cnt = np.bincount(ids, minlength=k)
+            for c in range(n_c):
+                units[c, r * k : (r + 1) * k] = np.bincount(ids, weights=loss[c, r], minlength=k) / cnt
+    else:
+        units = loss[:, 0, :]
+    pooled = loss.reshape(n_c, -1).mean(axis=1)
+    m = units.shape[1]
+    with np.errstate(invalid="ignore"):
+        se_units = units.std(axis=1, ddof=1) / np.sqrt(m) if m > 1 else np.zeros(n_c)
+    if metric == "rmse":
+        error = np.sqrt(pooled)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            error_se = np.where(error > 0, se_units / (2 * error), 0.0)
+    else:
+        error, error_se = pooled, se_units
+    bad = ~np.isfinite(error)
+    error = np.where(bad, np.inf, error)
+    error_se = np.where(bad | ~np.isfinite(error_se), np.inf, error_se)
+    return Scores(error, error_se, units, resid, oof)
+
+
+def choose(error: np.ndarray, error_se: np.ndarray, rule: str) -> tuple[int, int]:
+    """Return ``(best, chosen)`` indices; candidates are ordered simplest first.
+
+    ``best`` has the smallest error (the simplest one on ties). With ``one_se`` the chosen
+    candidate is the simplest whose error is at most the best error plus its standard error.
+    """
+    if not np.isfinite(error).any():
+        raise TooFewRows(
+            "no candidate could be scored: every fit failed on some fold. Use fewer folds, "
+            "a simpler grid, or more rows."
+        )
+    best = int(np.argmin(error))
+    if rule == "min":
+        return best, best
+    limit = error[best] + error_se[best]
+    chosen = int(np.flatnonzero(error <= limit)[0])
+    return best, chosen
+
+
+def cv_r2(y: np.ndarray, oof: np.ndarray) -> float | None:
+    """Out-of-fold R^2: 1 - sum of squared out-of-fold residuals / total sum of squares.
+
+    ``oof`` has shape (repeats, n); residuals are pooled over repeats.
+    """
+    tss = float(np.sum((y - y.mean()) ** 2)) * oof.shape[0]
+    if tss <= 0:
+        return None
+    return 1.0 - float(np.sum((y[None, :] - oof) ** 2)) / tss
