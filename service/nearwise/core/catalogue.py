@@ -16,7 +16,13 @@ def describe() -> dict[str, Any]:
             "schemes": list(SCHEMES),
             "rules": list(RULES),
             "metrics": list(METRICS),
-            "defaults": {"scheme": "kfold", "folds": 5, "repeats": 1, "seed": 0,
-                         "rule": "one_se", "metric": "rmse"},
+            "defaults": {
+                "scheme": "kfold",
+                "folds": 5,
+                "repeats": 1,
+                "seed": 0,
+                "rule": "one_se",
+                "metric": "rmse",
+            },
         },
     }

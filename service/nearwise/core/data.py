@@ -93,7 +93,8 @@ def _check_finite(table: Table, cols: Sequence[int], block: np.ndarray, what: st
         where = [
             Where(
                 (table.name, "rows", int(r), int(cols[c])),
-                f"{what} `{table.columns[cols[c]]}` is missing" if np.isnan(block[r, c])
+                f"{what} `{table.columns[cols[c]]}` is missing"
+                if np.isnan(block[r, c])
                 else f"{what} `{table.columns[cols[c]]}` is not finite",
             )
             for r, c in zip(rows[:20], cs[:20], strict=True)
@@ -202,8 +203,9 @@ def _group_codes(train: Table, g: int) -> np.ndarray:
                     f"group column `{train.columns[g]}` is missing in train row {i}.",
                     [Where(("train", "rows", i, g), "missing group")],
                 )
-        tokens = np.array([k if k is not None else f"\x00{v!r}" for k, v in zip(keys, num,
-                                                                                strict=True)])
+        tokens = np.array(
+            [k if k is not None else f"\x00{v!r}" for k, v in zip(keys, num, strict=True)]
+        )
         return np.unique(tokens, return_inverse=True)[1]
     col = train.values[:, g]
     if np.isnan(col).any():

@@ -68,25 +68,31 @@ def run(job: Job) -> PredictResult:
 
     notices: list[Notice] = []
     if data.rows_dropped:
-        notices.append(Notice(
-            "target_missing",
-            f"{data.rows_dropped} training row(s) have no value for `{data.target}` and were "
-            "left out of the fit; they still get predictions.",
-            tuple(int(i) for i in np.flatnonzero(np.isnan(data.y_all))),
-        ))
+        notices.append(
+            Notice(
+                "target_missing",
+                f"{data.rows_dropped} training row(s) have no value for `{data.target}` and were "
+                "left out of the fit; they still get predictions.",
+                tuple(int(i) for i in np.flatnonzero(np.isnan(data.y_all))),
+            )
+        )
     if len(values) > 1 and chosen in (0, len(values) - 1) and not method.is_bound(value, folds):
         end = "simplest" if chosen == 0 else "most flexible"
-        notices.append(Notice(
-            "tuning_at_edge",
-            f"the chosen `{method.tuned}` = {value} is the {end} candidate in the grid; the "
-            "best value may lie beyond it. Widen the grid in that direction.",
-        ))
+        notices.append(
+            Notice(
+                "tuning_at_edge",
+                f"the chosen `{method.tuned}` = {value} is the {end} candidate in the grid; the "
+                "best value may lie beyond it. Widen the grid in that direction.",
+            )
+        )
     if not np.all(np.isfinite(path.df)):
-        notices.append(Notice(
-            "df_unavailable",
-            "the effective degrees of freedom could not be computed stably for some "
-            "candidates (nearly coincident x values); they are reported as null.",
-        ))
+        notices.append(
+            Notice(
+                "df_unavailable",
+                "the effective degrees of freedom could not be computed stably for some "
+                "candidates (nearly coincident x values); they are reported as null.",
+            )
+        )
 
     if data.X_query is not None:
         value_at = model.predict(data.X_query)
@@ -94,8 +100,10 @@ def run(job: Job) -> PredictResult:
     else:
         value_at = model.predict(data.X_all)
         residual = data.y_all - value_at
-    params: dict[str, Any] = {**{k: v for k, v in settings.items() if v is not None},
-                              method.tuned: value}
+    params: dict[str, Any] = {
+        **{k: v for k, v in settings.items() if v is not None},
+        method.tuned: value,
+    }
     params.update(method_extra_params(method, settings, value, X.shape[1]))
     report = TuningReport(
         scheme=job.tuning.scheme,
@@ -107,8 +115,12 @@ def run(job: Job) -> PredictResult:
         group_by=job.tuning.group_by,
         best={method.tuned: values[best]},
         path=tuple(
-            PathEntry({method.tuned: v}, _finite(scores.error[c]), _finite(scores.error_se[c]),
-                      _finite(path.df[c]))
+            PathEntry(
+                {method.tuned: v},
+                _finite(scores.error[c]),
+                _finite(scores.error_se[c]),
+                _finite(path.df[c]),
+            )
             for c, v in enumerate(values)
         ),
     )
@@ -131,8 +143,9 @@ def run(job: Job) -> PredictResult:
         tuning=report,
         fit=fit,
         model=model.summary(data.features),
-        predictions=Predictions(value=value_at, residual=residual,
-                                flags=tuple(() for _ in range(value_at.shape[0]))),
+        predictions=Predictions(
+            value=value_at, residual=residual, flags=tuple(() for _ in range(value_at.shape[0]))
+        ),
         warnings=tuple(notices),
     )
 

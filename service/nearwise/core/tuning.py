@@ -186,7 +186,9 @@ def score(
             ids = folds.fold_id[r]
             cnt = np.bincount(ids, minlength=k)
             for c in range(n_c):
-                units[c, r * k : (r + 1) * k] = np.bincount(ids, weights=loss[c, r], minlength=k) / cnt
+                units[c, r * k : (r + 1) * k] = (
+                    np.bincount(ids, weights=loss[c, r], minlength=k) / cnt
+                )
     else:
         units = loss[:, 0, :]
     pooled = loss.reshape(n_c, -1).mean(axis=1)

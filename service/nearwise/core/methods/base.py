@@ -31,8 +31,12 @@ class Param:
     simpler: str | None = None
 
     def describe(self) -> dict[str, Any]:
-        out: dict[str, Any] = {"name": self.name, "type": self.kind, "doc": self.doc,
-                               "tunable": self.tunable}
+        out: dict[str, Any] = {
+            "name": self.name,
+            "type": self.kind,
+            "doc": self.doc,
+            "tunable": self.tunable,
+        }
         if self.default is not None:
             out["default"] = self.default
         if self.low is not None:
@@ -62,7 +66,9 @@ class Param:
             ok = isinstance(value, str) and value in self.choices
             expect = "one of " + ", ".join(self.choices)
         if ok and self.kind in ("integer", "number"):
-            ok = (self.low is None or value >= self.low) and (self.high is None or value <= self.high)
+            ok = (self.low is None or value >= self.low) and (
+                self.high is None or value <= self.high
+            )
             expect = f"{expect} in [{self.low}, {self.high if self.high is not None else 'inf'}]"
         if not ok:
             raise InvalidValue(

@@ -26,8 +26,9 @@ from nearwise.core.tuning import Folds
 MAX_DEFAULT_K = 50
 
 
-def _query(index: NearestNeighbors, Xq: np.ndarray, width: int, n_index: int,
-           self_rows: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+def _query(
+    index: NearestNeighbors, Xq: np.ndarray, width: int, n_index: int, self_rows: np.ndarray | None
+) -> tuple[np.ndarray, np.ndarray]:
     """Sorted distances and indices of the ``width`` nearest indexed rows.
 
     With ``self_rows``, each query row's own index entry is removed (not simply the first
@@ -82,8 +83,14 @@ def _all_k(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.ndarray
     return out
 
 
-def predict_all_k(index: NearestNeighbors, y_index: np.ndarray, Xq: np.ndarray, kmax: int,
-                  weights: str, self_rows: np.ndarray | None = None) -> np.ndarray:
+def predict_all_k(
+    index: NearestNeighbors,
+    y_index: np.ndarray,
+    Xq: np.ndarray,
+    kmax: int,
+    weights: str,
+    self_rows: np.ndarray | None = None,
+) -> np.ndarray:
     """Predictions at ``Xq`` for every k in 1..kmax, shape (n_query, kmax).
 
     One query of kmax + 1 neighbors serves all k; rows whose tied run reaches past the window
@@ -141,26 +148,39 @@ class KNN(Method):
     """k-nearest-neighbor regression."""
 
     name = "knn"
-    summary = ("Average of the targets of the k nearest training rows, with Euclidean distance "
-               "on scaled features. Larger k is simpler.")
+    summary = (
+        "Average of the targets of the k nearest training rows, with Euclidean distance "
+        "on scaled features. Larger k is simpler."
+    )
     min_features = 1
     max_features = None
     schemes = ("kfold", "loo")
     tuned = "k"
     params = (
-        Param("k", "integer", None, "number of neighbors", low=1, tunable=True,
-              simpler="larger"),
-        Param("weights", "choice", "uniform",
-              "`uniform` averages the k neighbors; `distance` weights them by 1/distance",
-              choices=("uniform", "distance")),
-        Param("scale", "choice", "standard",
-              "feature scaling before distances: `standard` (mean 0, sd 1), `range` (0 to 1) "
-              "or `none`", choices=SCALES),
+        Param("k", "integer", None, "number of neighbors", low=1, tunable=True, simpler="larger"),
+        Param(
+            "weights",
+            "choice",
+            "uniform",
+            "`uniform` averages the k neighbors; `distance` weights them by 1/distance",
+            choices=("uniform", "distance"),
+        ),
+        Param(
+            "scale",
+            "choice",
+            "standard",
+            "feature scaling before distances: `standard` (mean 0, sd 1), `range` (0 to 1) "
+            "or `none`",
+            choices=SCALES,
+        ),
     )
-    std_error_doc = ("sigma / sqrt(k), with sigma the root mean squared out-of-fold residual; "
-                     "it measures noise only, not the bias of the local average")
-    references = ("Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, "
-                  "section 2.3.2",)
+    std_error_doc = (
+        "sigma / sqrt(k), with sigma the root mean squared out-of-fold residual; "
+        "it measures noise only, not the bias of the local average"
+    )
+    references = (
+        "Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, section 2.3.2",
+    )
 
     def order(self, values):
         return sorted(values, reverse=True)
@@ -203,15 +223,22 @@ class KNN(Method):
         weights, scale = settings["weights"], settings["scale"]
         if folds.scheme == "loo":
             sc = Scaler.fit(X, scale)
-            pred = predict_all_k(_index(sc.transform(X)), y, sc.transform(X), kmax, weights,
-                                 self_rows=np.arange(X.shape[0]))
+            pred = predict_all_k(
+                _index(sc.transform(X)),
+                y,
+                sc.transform(X),
+                kmax,
+                weights,
+                self_rows=np.arange(X.shape[0]),
+            )
             oof = pred[:, cols].T[:, None, :]
         else:
             oof = np.empty((len(values), folds.repeats, X.shape[0]))
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
-                pred = predict_all_k(_index(sc.transform(X[train])), y[train],
-                                     sc.transform(X[test]), kmax, weights)
+                pred = predict_all_k(
+                    _index(sc.transform(X[train])), y[train], sc.transform(X[test]), kmax, weights
+                )
                 oof[:, r, test] = pred[:, cols].T
         df = X.shape[0] / np.asarray(values, dtype=float)
         return PathResult(oof, df)

@@ -33,8 +33,11 @@ def monomials(p: int, degree: int, interactions: bool) -> list[tuple[int, ...]]:
     """Exponent vectors ordered by total degree (then as ``combinations_with_replacement``)."""
     out = [tuple([0] * p)]
     for deg in range(1, degree + 1):
-        combos = (itertools.combinations_with_replacement(range(p), deg) if interactions
-                  else ((j,) * deg for j in range(p)))
+        combos = (
+            itertools.combinations_with_replacement(range(p), deg)
+            if interactions
+            else ((j,) * deg for j in range(p))
+        )
         for c in combos:
             e = [0] * p
             for j in c:
@@ -115,13 +118,15 @@ class FittedLinear:
         p = 2 * stats.t.sf(np.abs(t), dof)
         rows = []
         for i, e in enumerate(self.terms):
-            rows.append({
-                "name": term_name(e, names),
-                "estimate": float(est[i]),
-                "std_error": float(se[i]),
-                "t": None if np.isnan(t[i]) else float(t[i]),
-                "p_value": None if np.isnan(p[i]) else float(p[i]),
-            })
+            rows.append(
+                {
+                    "name": term_name(e, names),
+                    "estimate": float(est[i]),
+                    "std_error": float(se[i]),
+                    "t": None if np.isnan(t[i]) else float(t[i]),
+                    "p_value": None if np.isnan(p[i]) else float(p[i]),
+                }
+            )
         return {"terms": rows, "sigma": self.sigma, "r2": self.r2, "residual_df": dof}
 
 
@@ -129,19 +134,36 @@ class Linear(Method):
     """Polynomial least squares."""
 
     name = "linear"
-    summary = ("Least squares on a polynomial basis of the features, solved by QR. Larger "
-               "degree is more flexible.")
+    summary = (
+        "Least squares on a polynomial basis of the features, solved by QR. Larger "
+        "degree is more flexible."
+    )
     tuned = "degree"
     params = (
-        Param("degree", "integer", None, "total polynomial degree", low=1, high=5,
-              tunable=True, simpler="smaller"),
-        Param("interactions", "boolean", None,
-              "include products of different features (default: true when degree > 1)"),
+        Param(
+            "degree",
+            "integer",
+            None,
+            "total polynomial degree",
+            low=1,
+            high=5,
+            tunable=True,
+            simpler="smaller",
+        ),
+        Param(
+            "interactions",
+            "boolean",
+            None,
+            "include products of different features (default: true when degree > 1)",
+        ),
     )
-    std_error_doc = ("standard error of the fitted mean, sigma * sqrt(x0' (X'X)^-1 x0), "
-                     "computed from the QR factor R")
-    references = ("Montgomery, Peck & Vining (2012), Introduction to Linear Regression "
-                  "Analysis, 5th ed.",)
+    std_error_doc = (
+        "standard error of the fitted mean, sigma * sqrt(x0' (X'X)^-1 x0), "
+        "computed from the QR factor R"
+    )
+    references = (
+        "Montgomery, Peck & Vining (2012), Introduction to Linear Regression Analysis, 5th ed.",
+    )
 
     def order(self, values):
         return sorted(values)
@@ -176,15 +198,21 @@ class Linear(Method):
             if full and folds.min_train > size:
                 ok.append(d)
             elif source is not None:
-                why = (f"the degree-{d} basis has {size} terms, but the data determine only "
-                       f"{np.count_nonzero(kept < size)} of them (too few distinct values)"
-                       if not full else
-                       f"the degree-{d} basis has {size} terms, and the smallest training "
-                       f"fold holds only {folds.min_train} rows")
+                why = (
+                    f"the degree-{d} basis has {size} terms, but the data determine only "
+                    f"{np.count_nonzero(kept < size)} of them (too few distinct values)"
+                    if not full
+                    else f"the degree-{d} basis has {size} terms, and the smallest training "
+                    f"fold holds only {folds.min_train} rows"
+                )
                 raise InvalidValue(
                     f"degree {d} cannot be fitted: {why}. Use a lower degree.",
-                    [Where(source if source[0] == "params" else (*source, values.index(d)),
-                           "degree too high for these data")],
+                    [
+                        Where(
+                            source if source[0] == "params" else (*source, values.index(d)),
+                            "degree too high for these data",
+                        )
+                    ],
                 )
         if not ok:
             raise TooFewRows(
@@ -242,5 +270,4 @@ class Linear(Method):
         tss = float(np.sum((y - y.mean()) ** 2))
         sigma = float(np.sqrt(rss / (n - len(terms))))
         r2 = 1.0 - rss / tss if tss > 0 else 1.0
-        return FittedLinear(terms, shift, scale, beta, R,
-                            sigma, r2, n, fitted, float(len(terms)))
+        return FittedLinear(terms, shift, scale, beta, R, sigma, r2, n, fitted, float(len(terms)))

@@ -35,8 +35,12 @@ class FittedSpline1D:
         return spline1d.evaluate(self.knots.t, self.g, self.gam, Xq[:, 0])
 
     def summary(self, names):
-        return {"smoothing": self.smoothing, "df": self.df, "kind": "cubic smoothing spline",
-                "distinct_x": int(self.knots.t.size)}
+        return {
+            "smoothing": self.smoothing,
+            "df": self.df,
+            "kind": "cubic smoothing spline",
+            "distinct_x": int(self.knots.t.size),
+        }
 
 
 @dataclass
@@ -54,28 +58,46 @@ class FittedThinPlate:
         return thinplate.kernel(Z, self.Xs) @ self.c + thinplate.poly(Z) @ self.b
 
     def summary(self, names):
-        return {"smoothing": self.smoothing, "df": self.df, "kind": "thin-plate spline",
-                "scale_shift": self.scaler.shift.tolist(), "scale_factor": self.scaler.scale.tolist()}
+        return {
+            "smoothing": self.smoothing,
+            "df": self.df,
+            "kind": "thin-plate spline",
+            "scale_shift": self.scaler.shift.tolist(),
+            "scale_factor": self.scaler.scale.tolist(),
+        }
 
 
 class Spline(Method):
     """Smoothing spline in one to three features."""
 
     name = "spline"
-    summary = ("Cubic smoothing spline (one feature) or thin-plate spline (two or three "
-               "features) minimising squared error plus smoothing times roughness. Larger "
-               "smoothing is simpler; 0 interpolates.")
+    summary = (
+        "Cubic smoothing spline (one feature) or thin-plate spline (two or three "
+        "features) minimising squared error plus smoothing times roughness. Larger "
+        "smoothing is simpler; 0 interpolates."
+    )
     min_features = 1
     max_features = 3
     tuned = "smoothing"
     params = (
-        Param("smoothing", "number", None,
-              "lam: weight of the roughness penalty integral f''^2 (one feature) or of the "
-              "thin-plate penalty (two or three)", low=0.0, tunable=True, simpler="larger"),
-        Param("scale", "choice", None,
-              "feature scaling before a thin-plate fit (two or three features): `standard` "
-              "(default), `range` or `none`; a one-feature spline works on x as given",
-              choices=SCALES),
+        Param(
+            "smoothing",
+            "number",
+            None,
+            "lam: weight of the roughness penalty integral f''^2 (one feature) or of the "
+            "thin-plate penalty (two or three)",
+            low=0.0,
+            tunable=True,
+            simpler="larger",
+        ),
+        Param(
+            "scale",
+            "choice",
+            None,
+            "feature scaling before a thin-plate fit (two or three features): `standard` "
+            "(default), `range` or `none`; a one-feature spline works on x as given",
+            choices=SCALES,
+        ),
     )
     std_error_doc = "posterior standard deviation of the smoother (with interval kind `model`)"
     references = (

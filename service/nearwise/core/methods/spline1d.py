@@ -142,8 +142,9 @@ def evaluate(t: np.ndarray, g: np.ndarray, gam: np.ndarray, x: np.ndarray) -> np
     h = t1 - t0
     u = x - t0
     v = t1 - x
-    inside = ((u * g[i + 1] + v * g[i]) / h
-              - u * v * ((1 + u / h) * gam[i + 1] + (1 + v / h) * gam[i]) / 6.0)
+    inside = (u * g[i + 1] + v * g[i]) / h - u * v * (
+        (1 + u / h) * gam[i + 1] + (1 + v / h) * gam[i]
+    ) / 6.0
     h0 = t[1] - t[0]
     hn = t[-1] - t[-2]
     slope0 = (g[1] - g[0]) / h0 - h0 * gam[1] / 6.0

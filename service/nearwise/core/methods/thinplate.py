@@ -66,7 +66,7 @@ class Eigen:
         for j in range(m):
             v = np.zeros(n)
             v[j] = 1.0
-            v[j + 1:] = qr[j + 1:, j]
+            v[j + 1 :] = qr[j + 1 :, j]
             refl.append((v, float(tau[j])))
         M = K.copy()
         for v, t in refl:  # M <- H M H, H = I - t v v' symmetric
@@ -90,8 +90,9 @@ class Eigen:
     def df(self, lams: np.ndarray) -> np.ndarray:
         ev = np.maximum(self.ev, 0.0)
         with np.errstate(divide="ignore", invalid="ignore"):
-            frac = np.where(ev[None, :] + lams[:, None] > 0,
-                            ev[None, :] / (ev[None, :] + lams[:, None]), 1.0)
+            frac = np.where(
+                ev[None, :] + lams[:, None] > 0, ev[None, :] / (ev[None, :] + lams[:, None]), 1.0
+            )
         return self.n_poly + frac.sum(axis=1)
 
     def coefficients(self, y: np.ndarray, lams: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
