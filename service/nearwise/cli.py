@@ -1,0 +1,106 @@
+"""The ``nearwise`` command: ``serve`` runs gunicorn, ``openapi`` writes the OpenAPI document.
+
+Nothing here imports numpy: the BLAS thread variables are set before the workers import it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from gunicorn.app.base import BaseApplication
+
+from nearwise.web.settings import Settings, SettingsError
+
+DEFAULT_OPENAPI = Path("openapi") / "openapi.json"
+BLAS_THREADS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+SERVE_FLAGS = ("bind", "workers", "threads")
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit status."""
+    args = _parser().parse_args(argv)
+    try:
+        return int(args.run(args))
+    except SettingsError as exc:
+        print(f"nearwise: {exc}", file=sys.stderr)
+        return 2
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="nearwise", description="The nearwise service.")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    serve = sub.add_parser("serve", help="serve the API with gunicorn (gthread workers)")
+    serve.add_argument("--bind", help="HOST:PORT (default: NEARWISE_BIND or 127.0.0.1:8080)")
+    serve.add_argument("--workers", help="worker processes (default: NEARWISE_WORKERS or 2)")
+    serve.add_argument("--threads", help="threads per worker (default: NEARWISE_THREADS or 4)")
+    serve.set_defaults(run=serve_command)
+    doc = sub.add_parser("openapi", help="write the OpenAPI document")
+    doc.add_argument(
+        "path",
+        nargs="?",
+        default=str(DEFAULT_OPENAPI),
+        help=f"file to write, or - for standard output (default: {DEFAULT_OPENAPI})",
+    )
+    doc.set_defaults(run=openapi_command)
+    return parser
+
+
+def openapi_command(args: argparse.Namespace) -> int:
+    """Write the document generated with default settings, so it never depends on the host."""
+    from nearwise.web.app import create_app
+    from nearwise.web.openapi import render
+
+    text = render(create_app(Settings()))
+    if args.path == "-":
+        sys.stdout.write(text)
+        return 0
+    Path(args.path).write_text(text, encoding="utf-8")
+    print(f"wrote {args.path}")
+    return 0
+
+
+def serve_command(args: argparse.Namespace) -> int:
+    """Run gunicorn in this process with embedded defaults; no config file is read."""
+    for var in BLAS_THREADS:
+        os.environ[var] = "1"  # one BLAS thread per worker: fair sharing, identical sums
+    given = {k: getattr(args, k) for k in SERVE_FLAGS if getattr(args, k) is not None}
+    settings = Settings.from_env().with_overrides({k: f"--{k}" for k in SERVE_FLAGS}, given)
+    Server(settings).run()
+    return 0
+
+
+class Server(BaseApplication):
+    """gunicorn with options from :class:`Settings`; each worker builds its own app."""
+
+    def __init__(self, settings: Settings) -> None:
+        self.settings = settings
+        super().__init__()
+
+    def load_config(self) -> None:
+        s = self.settings
+        options: dict[str, Any] = {
+            "bind": [s.bind],
+            "workers": s.workers,
+            "threads": s.threads,
+            "worker_class": "gthread",
+            "loglevel": s.log_level.lower(),
+            "accesslog": "-",
+            "errorlog": "-",
+            "proc_name": "nearwise",
+            "timeout": 30,
+            "graceful_timeout": 10,
+        }
+        if "control_socket_disable" in self.cfg.settings:  # gunicorn >= 25.1: no shared socket
+            options["control_socket_disable"] = True
+        for key, value in options.items():
+            self.cfg.set(key, value)
+
+    def load(self) -> Any:
+        from nearwise.web.app import create_app
+
+        return create_app(self.settings)

@@ -1,0 +1,44 @@
+"""The application factory. Nothing happens at import time."""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable
+
+from flask import Flask, Response
+
+from nearwise.web import guards, openapi, problems
+from nearwise.web.settings import Settings, log_level_number
+
+
+def create_app(settings: Settings | None = None) -> Flask:
+    """A configured app; ``settings`` default to the ``NEARWISE_*`` environment variables."""
+    settings = settings if settings is not None else Settings.from_env()
+    app = Flask("nearwise", static_folder=None)
+    app.config["MAX_CONTENT_LENGTH"] = settings.max_body_bytes
+    app.extensions["nearwise"] = settings
+    logging.getLogger("nearwise").setLevel(log_level_number(settings))
+    problems.install(app)
+    guards.install(app, settings)
+
+    from nearwise.web.routes import catalogue, health, predict
+
+    for bp in (predict.bp, catalogue.bp, health.bp):
+        app.register_blueprint(bp)
+    app.add_url_rule("/openapi.json", "openapi", _openapi_view(app))
+    return app
+
+
+def _openapi_view(app: Flask) -> Callable[[], Response]:
+    cache: dict[str, bytes] = {}
+
+    def openapi_document() -> Response:
+        """The OpenAPI 3.1 document of this service."""
+        from nearwise.web.body import negotiate
+
+        negotiate(["application/json"])
+        if "doc" not in cache:
+            cache["doc"] = openapi.render(app).encode()
+        return Response(cache["doc"], mimetype="application/json")
+
+    return openapi_document

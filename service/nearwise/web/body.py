@@ -1,0 +1,81 @@
+"""Reading request bodies under the size cap, and content negotiation."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from flask import request
+
+from nearwise.web.problems import Problem
+
+_CHUNK = 64 * 1024
+
+
+def read_body(limit: int) -> bytes:
+    """The whole request body, or a 413 once it exceeds ``limit`` bytes.
+
+    A declared ``Content-Length`` over the limit is refused before reading. A body without
+    one (chunked transfer) is read up to ``limit + 1`` bytes, so an oversized stream is
+    refused rather than silently cut.
+    """
+    env = request.environ
+    stream = env["wsgi.input"]
+    length = request.content_length
+    if length is not None:
+        if length > limit:
+            raise _too_large(limit, f"Content-Length: {length}")
+        data = stream.read(length) if length else b""
+        if len(data) != length:
+            raise Problem(
+                400,
+                f"The body ended after {len(data)} of the {length} bytes "
+                "declared by Content-Length.",
+            )
+        return data
+    chunked = "chunked" in env.get("HTTP_TRANSFER_ENCODING", "").lower()
+    if not (chunked or env.get("wsgi.input_terminated")):
+        return b""
+    parts: list[bytes] = []
+    size = 0
+    while True:
+        chunk = stream.read(min(_CHUNK, limit + 1 - size))
+        if not chunk:
+            return b"".join(parts)
+        parts.append(chunk)
+        size += len(chunk)
+        if size > limit:
+            raise _too_large(limit, "sent without Content-Length")
+
+
+def _too_large(limit: int, found: str) -> Problem:
+    return Problem(
+        413,
+        f"The body is larger than the limit of {limit} bytes set by NEARWISE_MAX_BODY_BYTES "
+        f"({found}). Send fewer rows per request.",
+        code="body_too_large",
+        headers={"Connection": "close"},
+    )
+
+
+def negotiate(offered: Sequence[str]) -> str:
+    """The offered media type the ``Accept`` header prefers (the first when absent), or 406."""
+    if not request.headers.get("Accept"):
+        return offered[0]
+    best = request.accept_mimetypes.best_match(offered)
+    if best is None:
+        raise Problem(
+            406,
+            f"This endpoint answers {' or '.join(offered)}; the Accept header allows neither "
+            f"({request.headers['Accept']!r}).",
+        )
+    return best
+
+
+def unsupported_media_type(accepted: Sequence[str]) -> Problem:
+    """The 415 for a body of a type the endpoint does not read."""
+    sent = request.mimetype or "no Content-Type"
+    return Problem(
+        415,
+        f"This endpoint reads {', '.join(accepted)} bodies; got {sent}.",
+        headers={"Accept-Post": ", ".join(accepted)},
+    )

@@ -1,0 +1,74 @@
+"""Strict marshmallow fields: JSON types are taken as sent, never coerced."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from marshmallow import fields
+
+
+class StrictInteger(fields.Integer):
+    """An integer; booleans, floats and numeric strings are refused."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(strict=True, **kwargs)
+
+    def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise self.make_error("invalid")
+        return value
+
+
+class Number(fields.Float):
+    """A finite JSON number; booleans and strings are refused."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(allow_nan=False, **kwargs)
+
+    def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> float | int:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise self.make_error("invalid")
+        if isinstance(value, float) and not math.isfinite(value):
+            raise self.make_error("special")
+        return value
+
+
+class Scalar(fields.Field):
+    """A parameter value: text, a boolean or a finite number (checked further by the core)."""
+
+    default_error_messages = {  # noqa: RUF012 - marshmallow's own convention
+        "invalid": "Not a valid value: expected text, a boolean or a finite number.",
+    }
+
+    def __init__(self, **kwargs: Any) -> None:
+        kwargs.setdefault("metadata", {})
+        kwargs["metadata"] = {"type": ["string", "number", "boolean"], **kwargs["metadata"]}
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
+        if isinstance(value, float) and not math.isfinite(value):
+            raise self.make_error("invalid")
+        if not isinstance(value, str | bool | int | float):
+            raise self.make_error("invalid")
+        return value
+
+
+class Rows(fields.Field):
+    """Table rows: an array of arrays of cells, parsed later in one vectorised pass."""
+
+    default_error_messages = {"invalid": "Not a valid list of rows."}  # noqa: RUF012
+
+    def __init__(self, **kwargs: Any) -> None:
+        cell = {"type": ["number", "string", "null"]}
+        kwargs["metadata"] = {
+            "type": "array",
+            "items": {"type": "array", "items": cell},
+            **kwargs.get("metadata", {}),
+        }
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> list[Any]:
+        if not isinstance(value, list):
+            raise self.make_error("invalid")
+        return value

@@ -1,0 +1,90 @@
+"""Request fields sent as form fields or query-string parameters (with CSV tables).
+
+A field's name is its path in the JSON body with dots: ``method``, ``target``,
+``tuning.folds``, ``interval.level``, ``params.k``, ``grid.k``. Text fields are taken as
+sent; number, boolean and parameter fields are read as a JSON literal (``5``, ``0.25``,
+``true``) when they are one, and otherwise kept as text for the schema to judge. A list
+(``features``, ``grid.NAME``) is one field per item, or one field holding a JSON array or
+comma-separated items. Nothing else is converted; a field given twice is refused.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterable
+from typing import Any
+
+from marshmallow import Schema, fields
+
+from nearwise.core.errors import InvalidValue, Where
+
+
+def collect(sources: Iterable[tuple[str, list[str]]], schema: Schema) -> dict[str, Any]:
+    """Build the request document from ``(name, values)`` pairs of form or query fields."""
+    doc: dict[str, Any] = {}
+    seen: set[str] = set()
+    for name, values in sources:
+        if name in seen:
+            raise twice(name)
+        seen.add(name)
+        path = name.split(".")
+        field = _field_at(schema, path)
+        if len(values) > 1 and not isinstance(field, fields.List):
+            raise twice(name)
+        value = _decode(field, values)
+        node = doc
+        for key in path[:-1]:
+            child = node.setdefault(key, {})
+            if not isinstance(child, dict):
+                raise twice(key)
+            node = child
+        if path[-1] in node:
+            raise twice(name)
+        node[path[-1]] = value
+    return doc
+
+
+def twice(name: str) -> InvalidValue:
+    return InvalidValue(
+        f"`{name}` is given more than once (as a form field and in the query string, or "
+        "twice); give it once.",
+        [Where(tuple(name.split(".")), "given more than once")],
+    )
+
+
+def _field_at(schema: Schema, path: list[str]) -> fields.Field | None:
+    field: Any = schema.fields.get(path[0])
+    for key in path[1:]:
+        if isinstance(field, fields.Nested):
+            field = field.schema.fields.get(key)
+        elif isinstance(field, fields.Dict):
+            field = field.value_field
+        else:
+            return None
+    return field
+
+
+def _decode(field: fields.Field | None, values: list[str]) -> Any:
+    if isinstance(field, fields.List):
+        items = values if len(values) > 1 else _split(values[0])
+        return [_scalar(field.inner, v) for v in items] if isinstance(items, list) else items
+    return _scalar(field, values[0])
+
+
+def _split(text: str) -> Any:
+    if text.lstrip().startswith("["):
+        try:
+            return json.loads(text)
+        except ValueError:
+            return text
+    return text.split(",")
+
+
+def _scalar(field: fields.Field | None, value: Any) -> Any:
+    if not isinstance(value, str) or field is None or isinstance(field, fields.String):
+        return value
+    try:
+        decoded = json.loads(value)
+    except ValueError:
+        return value
+    return decoded if decoded is None or isinstance(decoded, bool | int | float) else value

@@ -1,0 +1,143 @@
+"""One predict-style request, whatever its media type -> checked fields and parsed tables.
+
+``application/json``: the whole request as one document. ``multipart/form-data``: CSV parts
+``train`` and ``query``, the other fields as form fields or query-string parameters.
+``text/csv``: the body is ``train``; the other fields come from the query string.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from dataclasses import dataclass
+from typing import Any
+
+from flask import g, request
+from marshmallow import Schema
+from werkzeug.datastructures import FileStorage, MultiDict
+from werkzeug.formparser import FormDataParser
+
+from nearwise.core.errors import InvalidValue, Where
+from nearwise.web import forms
+from nearwise.web.body import read_body, unsupported_media_type
+from nearwise.web.csvio import CsvPart, read_csv
+from nearwise.web.jsonio import DuplicateKey, loads_strict
+from nearwise.web.problems import Problem
+from nearwise.web.settings import Settings
+from nearwise.web.tables import Limits, Parsed, from_json
+from nearwise.web.validation import load
+
+JSON, MULTIPART, CSV = "application/json", "multipart/form-data", "text/csv"
+READS = (JSON, MULTIPART, CSV)
+TABLES = ("train", "query")
+
+
+@dataclass(frozen=True)
+class Intake:
+    fields: dict[str, Any]
+    tables: dict[str, Parsed]
+
+
+def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intake:
+    """Read and check the body; ``full`` validates a JSON body, ``fields_only`` form fields."""
+    mimetype = request.mimetype
+    if mimetype not in READS:
+        raise unsupported_media_type(READS)
+    charset = request.mimetype_params.get("charset", "utf-8").lower()
+    if charset not in ("utf-8", "us-ascii"):
+        raise Problem(415, f"Bodies are read as UTF-8; got charset={charset}.")
+    body = read_body(settings.max_body_bytes)
+    limits = Limits(settings.max_rows, settings.max_columns, settings.max_cells)
+    if mimetype == JSON:
+        return _json(body, limits, full)
+    if mimetype == CSV:
+        if not body:
+            raise Problem(400, "The text/csv body is empty; it should hold the train table.")
+        return _csv({"train": [body]}, request.args, limits, fields_only)
+    files, form = _multipart(body, settings.max_body_bytes)
+    return _csv(files, MultiDict([*form.items(multi=True)]), limits, fields_only)
+
+
+def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
+    try:
+        parsed = loads_strict(body)
+    except UnicodeDecodeError as exc:
+        raise Problem(400, f"The body is not UTF-8: {exc.reason} at byte {exc.start}.") from None
+    except json.JSONDecodeError as exc:
+        raise Problem(
+            400, f"The body is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}."
+        ) from None
+    except DuplicateKey as exc:
+        raise InvalidValue(f"The body is ambiguous: {exc}.", [Where(exc.path, str(exc))]) from None
+    if request.args:
+        raise Problem(
+            422,
+            "With a JSON body every field goes in the body; query-string parameters are not read.",
+            [{"parameter": k, "message": "not read with a JSON body"} for k in request.args],
+            code="invalid_request",
+        )
+    data = load(schema, parsed.doc)
+    tables = {
+        name: from_json(
+            name, data[name]["columns"], data[name]["rows"], limits, parsed.saw_constant
+        )
+        for name in TABLES
+        if name in data
+    }
+    return Intake({k: v for k, v in data.items() if k not in TABLES}, tables)
+
+
+def _multipart(body: bytes, limit: int) -> tuple[dict[str, list[bytes]], MultiDict]:
+    parser = FormDataParser(
+        max_form_memory_size=limit, max_content_length=limit, max_form_parts=1000, silent=False
+    )
+    try:
+        _, form, files = parser.parse(
+            io.BytesIO(body), MULTIPART, len(body), dict(request.mimetype_params)
+        )
+    except ValueError as exc:
+        raise Problem(400, f"The multipart body is not readable: {exc}.") from None
+    parts: dict[str, list[bytes]] = {}
+    rest = MultiDict()
+    for name, item in [*files.items(multi=True), *form.items(multi=True)]:
+        if name in TABLES:
+            data = item.read() if isinstance(item, FileStorage) else item.encode()
+            parts.setdefault(name, []).append(data)
+        elif isinstance(item, FileStorage):
+            raise InvalidValue(
+                f"A file part named `{name}` was sent; only `train` and `query` are read as files.",
+                [Where((name,), "unknown part")],
+            )
+        else:
+            rest.add(name, item)
+    return parts, rest
+
+
+def _csv(parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema: Schema) -> Intake:
+    merged = MultiDict([*form.items(multi=True)])
+    for name in request.args:
+        if name in TABLES:
+            raise InvalidValue(
+                f"`{name}` is a table: send it as a CSV part of a multipart/form-data body.",
+                [Where((name,), "not a table")],
+            )
+        if name in merged:
+            raise forms.twice(name)
+        merged.setlist(name, request.args.getlist(name))
+    doc = forms.collect(((k, merged.getlist(k)) for k in merged), schema)
+    data = load(schema, doc)
+    csv_parts: dict[str, CsvPart] = {}
+    g.csv_parts = csv_parts
+    tables: dict[str, Parsed] = {}
+    for name in TABLES:
+        sent = parts.get(name, [])
+        if len(sent) > 1:
+            raise forms.twice(name)
+        if sent:
+            tables[name] = read_csv(name, sent[0], limits, csv_parts)
+    if "train" not in tables:
+        raise InvalidValue(
+            "The `train` table is missing: send it as a CSV part named train.",
+            [Where(("train",), "Missing data for required field.")],
+        )
+    return Intake(data, tables)

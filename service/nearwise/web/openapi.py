@@ -1,0 +1,94 @@
+"""The OpenAPI 3.1 document, generated from the schemas and the views' docstrings."""
+
+from __future__ import annotations
+
+import copy
+import inspect
+import json
+from typing import Any
+
+from apispec import APISpec
+from apispec.ext.marshmallow import MarshmallowPlugin
+from flask import Flask
+
+from nearwise import __version__
+from nearwise.web import responses, schemas
+
+_METHODS = ("get", "post", "put", "patch", "delete")
+_SCHEMAS = {  # nested schemas before the schemas that hold them
+    "Table": schemas.TableSchema,
+    "Tuning": schemas.TuningSchema,
+    "Interval": schemas.IntervalSchema,
+    "PredictRequest": schemas.PredictRequest,
+    "PathEntry": responses.PathEntrySchema,
+    "TuningReport": responses.TuningReportSchema,
+    "FitReport": responses.FitReportSchema,
+    "IntervalReport": responses.IntervalReportSchema,
+    "Prediction": responses.PredictionSchema,
+    "Warning": responses.WarningSchema,
+    "PredictResponse": responses.PredictResponse,
+    "Methods": responses.MethodsResponse,
+    "Status": responses.StatusSchema,
+    "ErrorEntry": responses.ErrorEntrySchema,
+    "Problem": responses.ProblemSchema,
+}
+DESCRIPTION = (
+    "Fits kNN, linear and spline models to a table, tunes their flexibility by "
+    "cross-validation and returns predictions. Every error is application/problem+json "
+    "(RFC 9457). When NEARWISE_API_KEYS is set, /v1 endpoints need the `X-API-Key` header."
+)
+
+
+def build(app: Flask) -> dict[str, Any]:
+    """The OpenAPI document of ``app`` as a dict."""
+    spec = APISpec(
+        title="nearwise",
+        version=__version__,
+        openapi_version="3.1.0",
+        plugins=[MarshmallowPlugin(schema_name_resolver=_name)],
+        info={"description": DESCRIPTION},
+    )
+    for name, schema in _SCHEMAS.items():
+        spec.components.schema(name, schema=schema)
+    spec.components.security_scheme(
+        "apiKey", {"type": "apiKey", "in": "header", "name": "X-API-Key"}
+    )
+    rules = sorted(app.url_map.iter_rules(), key=lambda r: r.rule)
+    for rule in rules:
+        if rule.endpoint == "static":
+            continue
+        view = app.view_functions[rule.endpoint]
+        ops = {
+            m.lower(): _operation(view, rule.rule)
+            for m in sorted(rule.methods or ())
+            if m.lower() in _METHODS
+        }
+        spec.path(path=rule.rule, operations=ops)
+    return spec.to_dict()
+
+
+def _operation(view: Any, path: str) -> dict[str, Any]:
+    doc = inspect.getdoc(view) or ""
+    summary, _, rest = doc.partition("\n")
+    op = copy.deepcopy(getattr(view, "openapi", {}))
+    op.setdefault("responses", {"200": {"description": "OK"}})
+    op["summary"] = summary.strip()
+    op["operationId"] = view.__name__
+    if rest.strip():
+        op["description"] = rest.strip()
+    if path.startswith("/v1/"):
+        op["security"] = [{}, {"apiKey": []}]
+    return op
+
+
+def _name(schema: Any) -> str:
+    cls = schema if isinstance(schema, type) else type(schema)
+    for name, known in _SCHEMAS.items():
+        if known is cls:
+            return name
+    return cls.__name__.removesuffix("Schema")
+
+
+def render(app: Flask) -> str:
+    """The document as deterministic text: sorted keys, two-space indent, final newline."""
+    return json.dumps(build(app), sort_keys=True, indent=2, ensure_ascii=False) + "\n"

@@ -1,0 +1,72 @@
+"""Reusable pieces of the OpenAPI document: problem responses and the form-field view."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from marshmallow import Schema, fields
+
+from nearwise.web.responses import ProblemSchema
+
+PROBLEM_WHEN = {
+    400: "Unreadable body: not JSON, not CSV, not UTF-8, or a malformed multipart body.",
+    401: "An API key is required (NEARWISE_API_KEYS is set): send it in `X-API-Key`.",
+    406: "The Accept header allows none of the media types this endpoint answers.",
+    413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked), or a table is "
+    "over NEARWISE_MAX_ROWS, NEARWISE_MAX_COLUMNS or NEARWISE_MAX_CELLS.",
+    415: "The body's media type is not one this endpoint reads.",
+    422: "Readable but invalid: unknown field, method or parameter, a bad cell (pointer to "
+    "its row and column), too few rows for the folds, an unsupported dimension, ...",
+}
+
+
+def problems(*statuses: int) -> dict[str, Any]:
+    """``responses`` entries for the given problem statuses."""
+    return {
+        str(s): {
+            "description": PROBLEM_WHEN[s],
+            "content": {"application/problem+json": {"schema": ProblemSchema}},
+        }
+        for s in statuses
+    }
+
+
+def _kind(field: fields.Field) -> dict[str, Any]:
+    if isinstance(field, fields.String):
+        return {"type": "string"}
+    if isinstance(field, fields.Integer):
+        return {"type": "integer"}
+    if isinstance(field, fields.Number):
+        return {"type": "number"}
+    if isinstance(field, fields.List):
+        return {"type": "array", "items": _kind(field.inner)}
+    return {"type": ["string", "number", "boolean"]}
+
+
+def form_fields(schema: Schema) -> dict[str, dict[str, Any]]:
+    """Dotted form-field names (``tuning.folds``) with their JSON Schema, from a schema."""
+    out: dict[str, dict[str, Any]] = {}
+    for name, field in schema.fields.items():
+        text = field.metadata.get("description", "")
+        if isinstance(field, fields.Nested):
+            for sub, inner in form_fields(field.schema).items():
+                out[f"{name}.{sub}"] = inner
+        elif isinstance(field, fields.Dict):
+            out[f"{name}.NAME"] = {**_kind(field.value_field), "description": text}
+        else:
+            out[name] = {**_kind(field), "description": text}
+    return out
+
+
+FORM_RULES = (
+    "Fields other than the tables are named by their path in the JSON body with dots: "
+    "`method`, `target`, `features`, `tuning.folds`, `interval.level`, `params.k`, `grid.k`. "
+    "They may be sent as form fields or as query-string parameters, each name once. Text "
+    "fields are taken as sent; numbers and booleans are read as JSON literals (`5`, `0.25`, "
+    "`true`). A list (`features`, `grid.NAME`) is one field per item, or one field holding "
+    "a JSON array or comma-separated items. CSV tables: UTF-8, comma-separated, a header line "
+    "naming the columns, one row per line; an empty cell is a missing value; blank lines at "
+    "the end are ignored. Errors inside a CSV part name its `part`, `line` (the header is "
+    "line 1) and `column`; errors in other fields carry a `pointer` (`tuning.folds` is "
+    "`/tuning/folds`)."
+)

@@ -1,0 +1,95 @@
+"""OpenAPI details of POST /v1/predict: its three request bodies and two answers."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from nearwise.web.openapi_parts import FORM_RULES, form_fields
+from nearwise.web.responses import PredictResponse
+from nearwise.web.schemas import PredictFields, PredictRequest
+
+_CSV_TABLE = {"type": "string", "contentMediaType": "text/csv"}
+_EXAMPLE_CSV = "wind_ms,air_density,power_kw\r\n7.1,1.21,812.0\r\n7.4,1.19,860.5\r\n"
+
+
+def _multipart_schema() -> dict[str, Any]:
+    props = {k: v for k, v in form_fields(PredictFields()).items() if ".NAME" not in k}
+    return {
+        "type": "object",
+        "description": FORM_RULES,
+        "properties": {
+            "train": {**_CSV_TABLE, "description": "The training table as CSV."},
+            "query": {**_CSV_TABLE, "description": "The rows to predict at, as CSV."},
+            **props,
+        },
+        "patternProperties": {
+            r"^params\.[^.]+$": {
+                "type": ["string", "number", "boolean"],
+                "description": "A fixed parameter, e.g. `params.k=10`.",
+            },
+            r"^grid\.[^.]+$": {
+                "type": "array",
+                "items": {"type": "number"},
+                "description": "Candidates, e.g. `grid.k=1,3,5,9`.",
+            },
+        },
+        "required": ["train", "method", "target"],
+    }
+
+
+REQUEST_BODY: dict[str, Any] = {
+    "required": True,
+    "description": "The request as JSON; or CSV tables as multipart parts `train` and `query` "
+    "with the other fields as form fields or query-string parameters; or the "
+    "train table alone as a text/csv body with the other fields in the query "
+    "string. " + FORM_RULES,
+    "content": {
+        "application/json": {"schema": PredictRequest},
+        "multipart/form-data": {
+            "schema": _multipart_schema(),
+            "encoding": {
+                "train": {"contentType": "text/csv"},
+                "query": {"contentType": "text/csv"},
+            },
+        },
+        "text/csv": {
+            "schema": {**_CSV_TABLE, "description": "The train table."},
+            "example": _EXAMPLE_CSV,
+        },
+    },
+}
+
+RESPONSE_200: dict[str, Any] = {
+    "description": "The tuned fit and its predictions. With `Accept: text/csv`: the query's "
+    "columns as sent (the train table's when there is no query), then "
+    "`prediction` (then `residual` when there is no query), `std_error`, "
+    "`lower`, `upper` and `flags` (codes separated by spaces); data-set-level "
+    "warning codes go in the `Nearwise-Warnings` header.",
+    "headers": {
+        "Nearwise-Warnings": {
+            "description": "CSV answers only: data-set-level warning codes, comma-separated.",
+            "schema": {"type": "string"},
+        }
+    },
+    "content": {
+        "application/json": {"schema": PredictResponse},
+        "text/csv": {"schema": {"type": "string", "contentMediaType": "text/csv"}},
+    },
+}
+
+
+def query_parameters() -> list[dict[str, Any]]:
+    """The fields as query-string parameters (read with CSV and multipart bodies only)."""
+    return [
+        {
+            "name": name,
+            "in": "query",
+            "required": False,
+            "description": "Only with a text/csv or multipart/form-data body. "
+            + spec.pop("description", ""),
+            "schema": spec,
+            **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
+        }
+        for name, spec in form_fields(PredictFields()).items()
+        if ".NAME" not in name
+    ]

@@ -1,0 +1,158 @@
+"""The one error handler: every failure becomes ``application/problem+json`` (RFC 9457).
+
+Body members: ``type``, ``title``, ``status``, ``detail``, ``code`` and ``errors``. Each entry
+of ``errors`` is ``{"pointer": RFC 6901 pointer, "message"}`` for JSON input or
+``{"part", "line", "column", "message"}`` for a cell of a CSV part. No stack trace leaves.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any, Protocol
+
+from flask import Flask, Response, g
+from werkzeug.exceptions import HTTPException
+
+from nearwise.core.errors import NearwiseError, Where
+from nearwise.web.jsonio import dumps
+
+PROBLEM_JSON = "application/problem+json"
+log = logging.getLogger("nearwise.web")
+
+#: Stable codes for HTTP-level problems, by status.
+HTTP_CODES = {
+    400: "unreadable_body",
+    401: "unauthorized",
+    404: "not_found",
+    405: "method_not_allowed",
+    406: "not_acceptable",
+    413: "too_large",
+    415: "unsupported_media_type",
+    422: "invalid_request",
+    500: "internal_error",
+    503: "unavailable",
+}
+
+
+@dataclass
+class Problem(Exception):
+    """An error the web layer raises itself, already knowing its status."""
+
+    status: int
+    detail: str
+    where: Sequence[Where | dict[str, Any]] = ()
+    code: str = ""
+    title: str = ""
+    headers: Mapping[str, str] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        super().__init__(self.detail)
+
+
+class CsvSource(Protocol):
+    """What a parsed CSV part offers for turning a row index into a line of the part."""
+
+    columns: tuple[str, ...]
+
+    def line_of(self, row: int) -> int: ...
+
+
+def pointer(path: Sequence[str | int]) -> str:
+    """RFC 6901 JSON Pointer for a path: ``("train", "rows", 3, 1)`` -> ``/train/rows/3/1``."""
+    return "".join("/" + str(p).replace("~", "~0").replace("/", "~1") for p in path)
+
+
+def error_entry(where: Where, csv_parts: Mapping[str, CsvSource]) -> dict[str, Any]:
+    """One ``errors`` entry; a place inside a CSV part is named by part, line and column."""
+    path = where.path
+    part = csv_parts.get(str(path[0])) if path else None
+    if part is None:
+        return {"pointer": pointer(path), "message": where.message}
+    if len(path) < 2 or path[1] not in ("rows", "columns"):
+        return {"part": path[0], "message": where.message}
+    entry: dict[str, Any] = {"part": path[0]}
+    if path[1] == "columns":
+        entry["line"] = 1
+        col = path[2] if len(path) > 2 else None
+    else:
+        entry["line"] = part.line_of(int(path[2])) if len(path) > 2 else None
+        col = path[3] if len(path) > 3 else None
+    if isinstance(col, int) and 0 <= col < len(part.columns):
+        entry["column"] = part.columns[col]
+    entry["message"] = where.message
+    return {k: v for k, v in entry.items() if v is not None}
+
+
+def problem_response(
+    status: int,
+    title: str,
+    detail: str,
+    code: str,
+    errors: Sequence[dict[str, Any]] = (),
+    headers: Mapping[str, str] | None = None,
+) -> Response:
+    """Build the ``application/problem+json`` response."""
+    body = {
+        "type": f"/problems/{code}",
+        "title": title,
+        "status": status,
+        "detail": detail,
+        "code": code,
+        "errors": list(errors),
+    }
+    resp = Response(dumps(body), status=status, mimetype=PROBLEM_JSON)
+    resp.headers.update(dict(headers or {}))
+    return resp
+
+
+def _csv_parts() -> Mapping[str, CsvSource]:
+    return g.get("csv_parts", {})
+
+
+def handle(exc: Exception) -> Response:
+    """Turn any exception into a problem response; unexpected ones are logged as 500."""
+    if isinstance(exc, Problem):
+        errors = [w if isinstance(w, dict) else error_entry(w, _csv_parts()) for w in exc.where]
+        title = exc.title or _phrase(exc.status)
+        code = exc.code or HTTP_CODES.get(exc.status, "error")
+        return problem_response(exc.status, title, exc.detail, code, errors, exc.headers)
+    if isinstance(exc, NearwiseError):
+        errors = [error_entry(w, _csv_parts()) for w in exc.where]
+        return problem_response(422, exc.title, exc.detail, exc.code, errors)
+    if isinstance(exc, HTTPException) and exc.code is not None and exc.code < 500:
+        headers = {k: v for k, v in exc.get_headers() if k.lower() not in ("content-type",)}
+        code = HTTP_CODES.get(exc.code, "http_error")
+        return problem_response(exc.code, _phrase(exc.code), _http_detail(exc), code, (), headers)
+    log.error("unexpected error while answering a request", exc_info=exc)
+    return problem_response(
+        500,
+        _phrase(500),
+        "The service failed unexpectedly; the error has been logged. Please report it.",
+        "internal_error",
+    )
+
+
+def _phrase(status: int) -> str:
+    from http import HTTPStatus
+
+    try:
+        return HTTPStatus(status).phrase
+    except ValueError:
+        return "Error"
+
+
+def _http_detail(exc: HTTPException) -> str:
+    if exc.code == 405:
+        allowed = exc.valid_methods if hasattr(exc, "valid_methods") else None
+        if allowed:
+            return f"This endpoint accepts {', '.join(sorted(allowed))} only."
+    if exc.code == 404:
+        return "No endpoint at this path; see /openapi.json for the ones offered."
+    return str(exc.description or _phrase(exc.code or 500))
+
+
+def install(app: Flask) -> None:
+    """Register :func:`handle` for every exception."""
+    app.register_error_handler(Exception, handle)

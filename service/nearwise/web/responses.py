@@ -1,0 +1,126 @@
+"""Schemas of the answers, for the OpenAPI document (the views write the JSON directly)."""
+
+from __future__ import annotations
+
+from marshmallow import fields
+
+from nearwise.web.fields import Scalar
+from nearwise.web.schemas import Strict, _doc
+
+
+def _num(text: str, nullable: bool = False) -> fields.Float:
+    return fields.Float(allow_none=nullable, metadata=_doc(text))
+
+
+class PathEntrySchema(Strict):
+    params = fields.Dict(keys=fields.String(), values=Scalar(), metadata=_doc("The candidate."))
+    error = _num("Cross-validated error (the tuning metric).")
+    error_se = _num("Standard error of `error` across folds.", nullable=True)
+    df = _num("Effective degrees of freedom, where defined.", nullable=True)
+
+
+class TuningReportSchema(Strict):
+    scheme = fields.String()
+    folds = fields.Integer(allow_none=True, metadata=_doc("Null for `loo` and `gcv`."))
+    repeats = fields.Integer()
+    seed = fields.Integer()
+    rule = fields.String()
+    metric = fields.String()
+    group_by = fields.String(allow_none=True)
+    best = fields.Dict(
+        keys=fields.String(), values=Scalar(), metadata=_doc("The minimum-error candidate.")
+    )
+    path = fields.List(
+        fields.Nested(PathEntrySchema), metadata=_doc("Every candidate, simplest first.")
+    )
+
+
+class FitReportSchema(Strict):
+    n_train = fields.Integer(metadata=_doc("Training rows used."))
+    rows_dropped = fields.Integer(metadata=_doc("Training rows dropped: missing target."))
+    cv_error = _num("Cross-validated error of the chosen parameters.", nullable=True)
+    cv_error_se = _num("Its standard error.", nullable=True)
+    cv_r2 = _num("1 - cross-validated MSE / variance of the target.", nullable=True)
+    train_error = _num("Error on the training rows.", nullable=True)
+    df = _num("Effective degrees of freedom of the final fit.", nullable=True)
+
+
+class IntervalReportSchema(Strict):
+    level = fields.Float()
+    kind = fields.String()
+
+
+class PredictionSchema(Strict):
+    value = _num("The prediction.", nullable=True)
+    residual = _num(
+        "Target minus fitted value; only without a query, null where the target is missing.",
+        nullable=True,
+    )
+    std_error = _num("Standard error of the prediction, where computed.", nullable=True)
+    lower = _num("Lower interval bound, where computed.", nullable=True)
+    upper = _num("Upper interval bound, where computed.", nullable=True)
+    flags = fields.List(fields.String(), metadata=_doc("Warning codes concerning this row."))
+
+
+class WarningSchema(Strict):
+    code = fields.String(metadata=_doc("Stable snake_case code."))
+    message = fields.String()
+    rows = fields.List(fields.Integer(), metadata=_doc("Rows concerned; empty: the data set."))
+
+
+class PredictResponse(Strict):
+    method = fields.String()
+    target = fields.String()
+    features = fields.List(fields.String())
+    params = fields.Dict(
+        keys=fields.String(),
+        values=Scalar(),
+        metadata=_doc("Every parameter in force, fixed and tuned."),
+    )
+    tuning = fields.Nested(TuningReportSchema)
+    fit = fields.Nested(FitReportSchema)
+    model = fields.Dict(metadata=_doc("Method-specific summary; see GET /v1/methods."))
+    interval = fields.Nested(IntervalReportSchema, allow_none=True)
+    predictions = fields.List(
+        fields.Nested(PredictionSchema), metadata=_doc("One per query row (or training row).")
+    )
+    warnings = fields.List(fields.Nested(WarningSchema))
+
+
+class MethodsResponse(Strict):
+    methods = fields.List(
+        fields.Dict(),
+        metadata=_doc(
+            "Per method: summary, dimensions, parameters (type, range, default grid, simpler "
+            "direction), interval kinds and how `std_error` is computed."
+        ),
+    )
+    tuning = fields.Dict(metadata=_doc("The tuning schemes, rules and metrics, with defaults."))
+
+
+class StatusSchema(Strict):
+    status = fields.String(metadata=_doc("`ok` or `ready`."))
+
+
+class ErrorEntrySchema(Strict):
+    pointer = fields.String(
+        metadata=_doc(
+            "RFC 6901 JSON Pointer into the request (JSON "
+            "bodies and form fields: `tuning.folds` is "
+            "`/tuning/folds`)."
+        )
+    )
+    part = fields.String(metadata=_doc("CSV part at fault (`train` or `query`)."))
+    line = fields.Integer(metadata=_doc("Line of that part; the header is line 1."))
+    column = fields.String(metadata=_doc("Column name in that part."))
+    parameter = fields.String(metadata=_doc("Query-string parameter at fault."))
+    message = fields.String(required=True)
+
+
+class ProblemSchema(Strict):
+    type = fields.String(metadata=_doc("`/problems/{code}`."))
+    title = fields.String()
+    status = fields.Integer()
+    detail = fields.String(metadata=_doc("What is wrong and how to fix it."))
+    code = fields.String(metadata=_doc("Stable snake_case code."))
+    errors = fields.List(fields.Nested(ErrorEntrySchema))

@@ -1,0 +1,61 @@
+"""Fit, tune and predict."""
+
+from __future__ import annotations
+
+from flask import Blueprint, Response, current_app
+
+from nearwise.core.spec import IntervalSpec, Job, TuningSpec
+from nearwise.web import serialize
+from nearwise.web.body import negotiate
+from nearwise.web.intake import Intake, read_request
+from nearwise.web.openapi_parts import problems
+from nearwise.web.predict_doc import REQUEST_BODY, RESPONSE_200, query_parameters
+from nearwise.web.routes import json_response, operation
+from nearwise.web.schemas import PredictFields, PredictRequest
+
+bp = Blueprint("predict", __name__, url_prefix="/v1")
+ANSWERS = ("application/json", "text/csv")
+CSV_ANSWER = "text/csv; charset=utf-8; header=present"
+
+
+@bp.post("/predict")
+@operation(
+    tags=["predict"],
+    parameters=query_parameters(),
+    requestBody=REQUEST_BODY,
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422)},
+)
+def predict() -> Response:
+    """Fit one method to train, tune it by cross-validation and predict at query."""
+    from nearwise.core import pipeline
+
+    answer = negotiate(ANSWERS)
+    intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
+    result = pipeline.run(build_job(intake))
+    if answer == "text/csv":
+        rows = intake.tables.get("query") or intake.tables["train"]
+        resp = Response(serialize.predict_csv(result, rows), content_type=CSV_ANSWER)
+        codes = serialize.dataset_codes(result)
+        if codes:
+            resp.headers["Nearwise-Warnings"] = ", ".join(codes)
+    else:
+        resp = json_response(serialize.predict_document(result))
+    resp.vary.add("Accept")
+    return resp
+
+
+def build_job(intake: Intake) -> Job:
+    """The core's job from the checked fields and parsed tables."""
+    f = intake.fields
+    query = intake.tables.get("query")
+    return Job(
+        method=f["method"],
+        train=intake.tables["train"].table,
+        target=f["target"],
+        features=f.get("features"),
+        query=query.table if query else None,
+        params=f.get("params", {}),
+        grid=f.get("grid", {}),
+        tuning=TuningSpec(**f.get("tuning", {})),
+        interval=IntervalSpec(**f["interval"]) if "interval" in f else None,
+    )

@@ -1,0 +1,165 @@
+"""JSON tables and CSV parts -> :class:`nearwise.core.data.Table`, in one vectorised pass.
+
+Cells are numbers, ``null`` (JSON) or an empty cell (CSV) for a missing value, or text (kept in
+``Table.labels``; the core allows text only in the grouping column). Booleans, nested values,
+``NaN``/``Infinity`` literals and numbers too large for a double are refused with the row and
+column at fault; nothing is coerced.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from itertools import chain
+from typing import Any
+
+import numpy as np
+
+from nearwise.core.data import Table
+from nearwise.core.errors import BadCell, BadTable, Where
+from nearwise.web.problems import Problem
+
+_NUMERIC = {float, int, type(None)}
+_CELL_TYPES = (float, int, type(None), str)
+_NUMBER, _NULL, _TEXT, _OTHER = 0, 1, 2, 3
+_KINDS = {float: _NUMBER, int: _NUMBER, type(None): _NULL, str: _TEXT}
+
+
+def _kind(cell: Any) -> int:
+    return _KINDS.get(type(cell), _OTHER)
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Size caps on one table (``NEARWISE_MAX_ROWS``, ``_MAX_COLUMNS``, ``_MAX_CELLS``)."""
+
+    max_rows: int
+    max_columns: int
+    max_cells: int
+
+
+@dataclass(frozen=True)
+class Parsed:
+    """A parsed table with its cells as sent (for echoing them back in a CSV answer)."""
+
+    table: Table
+    cells: list[list[Any]]
+
+
+def check_shape(name: str, columns: list[str], n_rows: int, limits: Limits) -> None:
+    """Refuse tables over the limits (413) and duplicate column names (422)."""
+    p = len(columns)
+    if n_rows > limits.max_rows or p > limits.max_columns or n_rows * p > limits.max_cells:
+        raise Problem(
+            413,
+            f"The {name} table has {n_rows} rows x {p} columns; the limits are "
+            f"{limits.max_rows} rows, {limits.max_columns} columns and {limits.max_cells} cells.",
+            [Where((name,), "table over the size limits")],
+            code="table_too_large",
+        )
+    seen: dict[str, int] = {}
+    for j, col in enumerate(columns):
+        if col in seen:
+            raise BadTable(
+                f"Column names must be unique; `{col}` appears more than once in {name}.",
+                [Where((name, "columns", j), f"duplicate column `{col}`")],
+            )
+        seen[col] = j
+
+
+def from_json(
+    name: str, columns: list[str], rows: list[Any], limits: Limits, saw_constant: bool = False
+) -> Parsed:
+    """Parse the ``rows`` of a JSON table whose envelope was already checked.
+
+    ``saw_constant`` says a ``NaN``/``Infinity`` literal appeared somewhere in the body, which
+    takes the slower path that can tell it from ``null``.
+    """
+    check_shape(name, columns, len(rows), limits)
+    p = len(columns)
+    if not rows:
+        return Parsed(Table(name, tuple(columns), np.empty((0, p))), [])
+    try:
+        kinds = set(map(type, chain.from_iterable(rows)))
+    except TypeError:
+        _raise_first_problem(name, rows, p)
+    if kinds <= _NUMERIC and not saw_constant:
+        try:
+            values = np.array(rows, dtype=np.float64)  # None -> NaN
+        except (ValueError, OverflowError, TypeError):
+            _raise_first_problem(name, rows, p)
+        if values.shape != (len(rows), p):
+            _raise_first_problem(name, rows, p)
+        check_finite(name, values, ~np.isnan(values))
+        return Parsed(Table(name, tuple(columns), values), rows)
+    return Parsed(_from_objects(name, columns, rows), rows)
+
+
+def _from_objects(name: str, columns: list[str], rows: list[Any]) -> Table:
+    p = len(columns)
+    try:
+        obj = np.array(rows, dtype=object)
+    except ValueError:
+        _raise_first_problem(name, rows, p)
+    if obj.shape != (len(rows), p):
+        _raise_first_problem(name, rows, p)
+    kinds = np.frompyfunc(_kind, 1, 1)(obj).astype(np.int8)
+    if (kinds == _OTHER).any():
+        _raise_first_problem(name, rows, p)
+    is_num = kinds == _NUMBER
+    is_text = kinds == _TEXT
+    try:
+        values = np.where(is_num, obj, np.nan).astype(np.float64)
+    except OverflowError:
+        _raise_first_problem(name, rows, p)
+    check_finite(name, values, is_num)
+    labels = {int(j): obj[:, j] for j in np.flatnonzero(is_text.any(axis=0))}
+    return Table(name, tuple(columns), values, labels)
+
+
+def check_finite(name: str, values: np.ndarray, is_num: np.ndarray) -> None:
+    """Refuse any cell marked as a number whose value is not finite."""
+    bad = is_num & ~np.isfinite(values)
+    if bad.any():
+        i, j = (int(v[0]) for v in np.nonzero(bad))
+        not_finite(name, i, j)
+
+
+def not_finite(name: str, i: int, j: int) -> None:
+    """Raise the error for a NaN, an infinity or a number too large for a double."""
+    raise BadCell(
+        f"{name} row {i}, column {j} is not a finite number (NaN, Infinity or a number too "
+        "large for a double). Send null for a missing value.",
+        [Where((name, "rows", i, j), "not a finite number")],
+    )
+
+
+def _raise_first_problem(name: str, rows: list[Any], p: int) -> Any:
+    """Walk the rows cell by cell (only on the error path) and raise at the first fault."""
+    for i, row in enumerate(rows):
+        if not isinstance(row, list):
+            raise BadTable(
+                f"{name} row {i} must be an array of {p} cells; got {type(row).__name__}.",
+                [Where((name, "rows", i), "expected an array")],
+            )
+        if len(row) != p:
+            raise BadTable(
+                f"{name} row {i} has {len(row)} cells; the table has {p} columns.",
+                [Where((name, "rows", i), f"expected {p} cells, found {len(row)}")],
+            )
+        for j, cell in enumerate(row):
+            if isinstance(cell, bool) or not isinstance(cell, _CELL_TYPES):
+                found = "a boolean" if isinstance(cell, bool) else f"{type(cell).__name__}"
+                raise BadCell(
+                    f"{name} row {i}, column {j} holds {found}; cells are numbers, null or text.",
+                    [Where((name, "rows", i, j), f"expected a number, null or text; got {found}")],
+                )
+            if isinstance(cell, int | float) and not _finite(cell):
+                not_finite(name, i, j)
+    raise BadTable(f"The {name} table could not be read.", [Where((name, "rows"), "unreadable")])
+
+
+def _finite(cell: int | float) -> bool:
+    try:
+        return bool(np.isfinite(float(cell)))
+    except OverflowError:
+        return False
