@@ -2,6 +2,7 @@
 
 from flask import Blueprint, Response
 
+from nearwise.core import catalogue
 from nearwise.web.body import negotiate
 from nearwise.web.jsonio import jsonable
 from nearwise.web.openapi_parts import problems
@@ -24,7 +25,5 @@ bp = Blueprint("catalogue", __name__, url_prefix="/v1")
 )
 def methods() -> Response:
     """List the methods with their parameters, dimensions and interval kinds."""
-    from nearwise.core import catalogue
-
     negotiate(["application/json"])
     return json_response(jsonable(catalogue.describe()))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from flask import Blueprint, Response, current_app
 
+from nearwise.core import pipeline
 from nearwise.core.spec import IntervalSpec, Job, TuningSpec
 from nearwise.web import serialize
 from nearwise.web.body import negotiate
@@ -27,8 +28,6 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
 )
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
-    from nearwise.core import pipeline
-
     answer = negotiate(ANSWERS)
     intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
     result = pipeline.run(build_job(intake))
