@@ -58,7 +58,8 @@ def run(job: Job) -> PredictResult:
     grid = method.check_grid(job.grid, settings)
     data = prepare(job.train, job.target, job.features, job.query, job.tuning.group_by)
     X, y = data.X, data.y
-    folds = tuning.make_folds(X.shape[0], job.tuning, data.groups)
+    canon = np.lexsort((y, *X.T[::-1]))
+    folds = tuning.make_folds(X.shape[0], job.tuning, data.groups, canon)
     values = method.candidates(X, y, folds, settings, grid)
     path = method.path(X, y, folds, settings, values)
     scores = tuning.score(y, path.oof, folds, job.tuning.metric, path.gcv_scale)

@@ -157,7 +157,16 @@ class KNN(Method):
     schemes = ("kfold", "loo")
     tuned = "k"
     params = (
-        Param("k", "integer", None, "number of neighbors", low=1, tunable=True, simpler="larger"),
+        Param(
+            "k",
+            "integer",
+            None,
+            "number of neighbors",
+            low=1,
+            tunable=True,
+            simpler="larger",
+            data_range=True,
+        ),
         Param(
             "weights",
             "choice",
@@ -193,12 +202,12 @@ class KNN(Method):
 
     def _check_k(self, k: int, folds: Folds, path: tuple) -> None:
         hi = self.max_k(folds)
-        if k > hi:
+        if not 1 <= k <= hi:
             raise InvalidValue(
                 f"`k` must be an integer in [1, {hi}] for {folds.n} rows in "
                 f"{'leave-one-out' if folds.scheme == 'loo' else f'{folds.n_folds} folds'}; "
                 f"got {k}. The smallest training fold holds {folds.min_train} rows.",
-                [Where(path, f"larger than {hi}")],
+                [Where(path, f"outside [1, {hi}]")],
             )
 
     def candidates(self, X, y, folds, settings, grid):
