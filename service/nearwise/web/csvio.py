@@ -84,29 +84,33 @@ def read_csv(name: str, data: bytes, limits: Limits, parts: dict[str, CsvPart]) 
             [Where((name, "rows", i), f"expected {p} cells")],
         ) from None
     plain = text.isascii() and "_" not in text
-    values, labels = _convert(cells, plain)
-    check_finite(name, values, cells != "")
+    values, labels, is_num = _convert(cells, plain)
+    check_finite(name, values, is_num)
     return Parsed(Table(name, tuple(header), values, labels), rows)
 
 
-def _convert(cells: np.ndarray, plain: bool) -> tuple[np.ndarray, dict[int, np.ndarray]]:
-    empty = cells == ""
+def _convert(
+    cells: np.ndarray, plain: bool
+) -> tuple[np.ndarray, dict[int, np.ndarray], np.ndarray]:
+    """Numbers to floats (empty -> NaN) and text to labels; also the mask of number cells."""
+    is_num = cells != ""
     values = np.empty(cells.shape)
     labels: dict[int, np.ndarray] = {}
     for j in range(cells.shape[1]):
         col = cells[:, j]
         if plain:
             try:
-                values[:, j] = np.where(empty[:, j], "nan", col).astype(np.float64)
+                values[:, j] = np.where(is_num[:, j], col, "nan").astype(np.float64)
                 continue
             except ValueError:
                 pass
         objs = np.frompyfunc(_cell, 1, 1)(col)
         is_text = np.frompyfunc(lambda c: isinstance(c, str), 1, 1)(objs).astype(bool)
         values[:, j] = np.where(is_text, np.nan, objs).astype(np.float64)
+        is_num[:, j] &= ~is_text
         if is_text.any():
             labels[j] = objs
-    return values, labels
+    return values, labels, is_num
 
 
 def _cell(text: str) -> Any:

@@ -53,7 +53,7 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
     if mimetype == CSV:
         if not body:
             raise Problem(400, "The text/csv body is empty; it should hold the train table.")
-        return _csv({"train": [body]}, request.args, limits, fields_only)
+        return _csv({"train": [body]}, MultiDict(), limits, fields_only)
     files, form = _multipart(body, settings.max_body_bytes)
     return _csv(files, MultiDict([*form.items(multi=True)]), limits, fields_only)
 
@@ -97,9 +97,17 @@ def _multipart(body: bytes, limit: int) -> tuple[dict[str, list[bytes]], MultiDi
         )
     except ValueError as exc:
         raise Problem(400, f"The multipart body is not readable: {exc}.") from None
+    try:
+        return _split_parts([*files.items(multi=True), *form.items(multi=True)])
+    finally:
+        for item in files.values():
+            item.close()
+
+
+def _split_parts(items: list[tuple[str, Any]]) -> tuple[dict[str, list[bytes]], MultiDict]:
     parts: dict[str, list[bytes]] = {}
     rest = MultiDict()
-    for name, item in [*files.items(multi=True), *form.items(multi=True)]:
+    for name, item in items:
         if name in TABLES:
             data = item.read() if isinstance(item, FileStorage) else item.encode()
             parts.setdefault(name, []).append(data)
