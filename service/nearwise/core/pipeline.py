@@ -57,9 +57,11 @@ def run(job: Job) -> PredictResult:
     settings = method.settings(job.params)
     grid = method.check_grid(job.grid, settings)
     data = prepare(job.train, job.target, job.features, job.query, job.tuning.group_by)
-    X, y = data.X, data.y
-    canon = np.lexsort((y, *X.T[::-1]))
-    folds = tuning.make_folds(X.shape[0], job.tuning, data.groups, canon)
+    # Work on the rows sorted by content, so that no answer depends on the order they came in.
+    canon = np.lexsort((data.y, *data.X.T[::-1]))
+    X, y = data.X[canon], data.y[canon]
+    groups = None if data.groups is None else data.groups[canon]
+    folds = tuning.make_folds(X.shape[0], job.tuning, groups)
     values = method.candidates(X, y, folds, settings, grid)
     path = method.path(X, y, folds, settings, values)
     scores = tuning.score(y, path.oof, folds, job.tuning.metric, path.gcv_scale)

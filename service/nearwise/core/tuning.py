@@ -90,14 +90,11 @@ def check_spec(spec: TuningSpec) -> None:
         )
 
 
-def make_folds(
-    n: int, spec: TuningSpec, groups: np.ndarray | None = None, canon: np.ndarray | None = None
-) -> Folds:
+def make_folds(n: int, spec: TuningSpec, groups: np.ndarray | None = None) -> Folds:
     """Assign rows to folds.
 
     K-fold: a seeded permutation split into ``folds`` parts whose sizes differ by at most one,
-    drawn afresh for each repeat. The permutation is applied to ``canon``, the rows sorted by
-    their content, so that fold membership does not depend on the order the rows came in. With groups, whole groups are dealt to folds: groups are
+    drawn afresh for each repeat. With groups, whole groups are dealt to folds: groups are
     shuffled, then each (largest first) goes to the fold holding the fewest rows so far.
     """
     if spec.scheme == "gcv":
@@ -124,8 +121,7 @@ def make_folds(
     for r in range(spec.repeats):
         if groups is None:
             perm = rng.permutation(n)
-            rows = perm if canon is None else canon[perm]
-            fold_id[r, rows] = np.arange(n) % k
+            fold_id[r, perm] = np.arange(n) % k
         else:
             sizes = np.bincount(groups, minlength=units)
             order = rng.permutation(units)

@@ -1,0 +1,118 @@
+"""Every fast cross-validation path equals refitting each candidate on the same folds.
+
+The slow way here is the method's own ``fit`` on each training fold (or with each row left
+out), whose agreement with outside references is checked in tests/reference.
+"""
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from nearwise.core import tuning
+from nearwise.core.data import Scaler
+from nearwise.core.methods.knn import KNN
+from nearwise.core.methods.linear import Linear
+from nearwise.core.methods.spline import Spline
+from nearwise.core.spec import TuningSpec
+
+CASES = [
+    (KNN(), {"weights": "uniform", "scale": "standard"}, [1, 2, 5, 9, 20]),
+    (KNN(), {"weights": "distance", "scale": "range"}, [1, 3, 8]),
+    (Linear(), {}, [1, 2, 3]),
+    (Linear(), {"interactions": False}, [1, 4]),
+    (Spline(), {}, [0.0, 1e-4, 1e-2, 1.0]),
+]
+
+
+def _data(method, n=60, seed=0, ties=False):
+    rng = np.random.default_rng(seed)
+    p = 1 if isinstance(method, Spline) else 2
+    X = rng.uniform(0, 4, size=(n, p))
+    if ties:
+        X = np.round(X * 2) / 2  # repeated x values and exact distance ties
+    y = np.sin(X[:, 0]) + 0.3 * X[:, -1] + rng.normal(0, 0.2, n)
+    return X, y
+
+
+def _refit(method, settings, X, y, value, train, test):
+    return method.fit(X[train], y[train], settings, value).predict(X[test])
+
+
+@pytest.mark.parametrize("ties", [False, True])
+@pytest.mark.parametrize(("method", "settings", "values"), CASES)
+def test_kfold_path_equals_refits(method, settings, values, ties):
+    X, y = _data(method, ties=ties)
+    folds = tuning.make_folds(60, TuningSpec(folds=4, repeats=2, seed=3))
+    path = method.path(X, y, folds, settings, values)
+    for r, _f, train, test in folds.splits():
+        for c, v in enumerate(values):
+            expect = _refit(method, settings, X, y, v, train, test)
+            # Same arithmetic in a different order (shared factorizations): 1e-8 relative.
+            assert_allclose(path.oof[c, r, test], expect, rtol=1e-8, atol=1e-8)
+
+
+@pytest.mark.parametrize("ties", [False, True])
+@pytest.mark.parametrize(("method", "settings", "values"), CASES)
+def test_loo_path_equals_refits(method, settings, values, ties):
+    if isinstance(method, Spline) and ties:
+        values = [v for v in values if v > 0]  # interpolation has no leave-one-out value
+    X, y = _data(method, n=30, ties=ties)
+    folds = tuning.make_folds(30, TuningSpec(scheme="loo"))
+    path = method.path(X, y, folds, settings, values)
+    if isinstance(method, KNN):
+        # kNN leave-one-out keeps the scaling learned from all rows (documented), so the
+        # refits see the same scaled features.
+        X = Scaler.fit(X, settings["scale"]).transform(X)
+        settings = {**settings, "scale": "none"}
+    for i in range(30):
+        keep = np.arange(30) != i
+        for c, v in enumerate(values):
+            if isinstance(method, Spline) and v == 0:
+                continue  # leaving out a knot of an interpolant: checked with lam > 0
+            expect = _refit(method, settings, X, y, v, keep, np.array([i]))
+            # The leave-one-out identity is exact; conditioning of the update costs digits.
+            assert_allclose(path.oof[c, 0, i], expect[0], rtol=1e-7, atol=1e-7)
+
+
+def test_thin_plate_paths_equal_refits():
+    rng = np.random.default_rng(8)
+    X = rng.uniform(size=(50, 2))
+    y = np.cos(3 * X[:, 0]) * X[:, 1] + rng.normal(0, 0.05, 50)
+    values = [1.0, 1e-2, 1e-4]
+    # Leave-one-out keeps the scaling learned from all rows, so it is checked unscaled.
+    for spec, settings in (
+        (TuningSpec(folds=5, seed=1), {}),
+        (TuningSpec(scheme="loo"), {"scale": "none"}),
+    ):
+        folds = tuning.make_folds(50, spec)
+        path = Spline().path(X, y, folds, settings, values)
+        if spec.scheme == "kfold":
+            pairs = [(r, tr, te) for r, _f, tr, te in folds.splits()]
+        else:
+            pairs = [(0, np.arange(50) != i, np.array([i])) for i in range(50)]
+        for r, train, test in pairs:
+            for c, v in enumerate(values):
+                expect = Spline().fit(X[train], y[train], settings, v).predict(X[test])
+                # Eigendecomposition path vs a direct dense solve.
+                assert_allclose(path.oof[c, r, test], expect, rtol=1e-7, atol=1e-7)
+
+
+@pytest.mark.parametrize(
+    ("method", "values"), [(Linear(), [1, 2, 3]), (Spline(), [1e-3, 0.1, 10.0])]
+)
+@pytest.mark.parametrize("p", [1, 2])
+def test_gcv_equals_its_definition(method, values, p):
+    """GCV(v) = n RSS / (n - tr A)^2 (Craven & Wahba 1979), with A built column by column."""
+    rng = np.random.default_rng(4)
+    n = 40
+    X = rng.uniform(0, 3, size=(n, p))
+    y = np.sin(X.sum(axis=1)) + rng.normal(0, 0.1, n)
+    folds = tuning.make_folds(n, TuningSpec(scheme="gcv"))
+    path = method.path(X, y, folds, {}, values)
+    scores = tuning.score(y, path.oof, folds, "rmse", path.gcv_scale)
+    for c, v in enumerate(values):
+        A = np.column_stack([method.fit(X, e, {}, v).fitted for e in np.eye(n)])
+        rss = np.sum((y - A @ y) ** 2)
+        gcv = n * rss / (n - np.trace(A)) ** 2
+        assert_allclose(path.df[c], np.trace(A), rtol=1e-7)
+        assert_allclose(scores.error[c] ** 2, gcv, rtol=1e-7)
