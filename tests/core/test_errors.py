@@ -128,7 +128,7 @@ def test_too_few_rows():
 
 def test_spline_with_four_features_names_the_methods_that_apply():
     with pytest.raises(
-        UnsupportedDimension, match="got 4. With more features use `knn` or `linear`"
+        UnsupportedDimension, match=r"got 4\. With more features use `knn` or `linear`"
     ):
         run(job("spline"))
 

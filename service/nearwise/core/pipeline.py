@@ -62,12 +62,13 @@ def run(job: Job) -> PredictResult:
     X, y = data.X[canon], data.y[canon]
     groups = None if data.groups is None else data.groups[canon]
     folds = tuning.make_folds(X.shape[0], job.tuning, groups)
-    values = method.candidates(X, y, folds, settings, grid)
-    path = method.path(X, y, folds, settings, values)
+    work: dict[str, Any] = {}
+    values = method.candidates(X, y, folds, settings, grid, work)
+    path = method.path(X, y, folds, settings, values, work)
     scores = tuning.score(y, path.oof, folds, job.tuning.metric, path.gcv_scale)
     best, chosen = tuning.choose(scores.error, scores.error_se, job.tuning.rule)
     value = values[chosen]
-    model = method.fit(X, y, settings, value)
+    model = method.fit(X, y, settings, value, work)
 
     notices: list[Notice] = []
     if data.rows_dropped:

@@ -107,6 +107,8 @@ class Method:
     """Base class: parameter handling shared by every method.
 
     Subclasses set the class attributes and implement ``candidates``, ``path`` and ``fit``.
+    The pipeline calls them in that order on the same data; ``work`` is a scratch dict for
+    that one run, where a method may keep a factorization that a later step can reuse.
     """
 
     name: str = ""
@@ -195,11 +197,11 @@ class Method:
     def order(self, values: Sequence[Any]) -> list[Any]:  # simplest first
         raise NotImplementedError
 
-    def candidates(self, X, y, folds: Folds, settings, grid) -> list[Any]:
+    def candidates(self, X, y, folds: Folds, settings, grid, work=None) -> list[Any]:
         raise NotImplementedError
 
-    def path(self, X, y, folds: Folds, settings, values) -> PathResult:
+    def path(self, X, y, folds: Folds, settings, values, work=None) -> PathResult:
         raise NotImplementedError
 
-    def fit(self, X, y, settings, value) -> Fitted:
+    def fit(self, X, y, settings, value, work=None) -> Fitted:
         raise NotImplementedError

@@ -210,7 +210,7 @@ class KNN(Method):
                 [Where(path, f"outside [1, {hi}]")],
             )
 
-    def candidates(self, X, y, folds, settings, grid):
+    def candidates(self, X, y, folds, settings, grid, work=None):
         if folds.scheme == "gcv":
             raise NotApplicable(
                 "knn is not scored by gcv here; use `tuning.scheme` kfold or loo "
@@ -226,7 +226,7 @@ class KNN(Method):
             return self.order(grid)
         return self.order(range(1, min(MAX_DEFAULT_K, self.max_k(folds)) + 1))
 
-    def path(self, X, y, folds, settings, values):
+    def path(self, X, y, folds, settings, values, work=None):
         kmax = max(values)
         cols = np.asarray(values) - 1
         weights, scale = settings["weights"], settings["scale"]
@@ -252,7 +252,7 @@ class KNN(Method):
         df = X.shape[0] / np.asarray(values, dtype=float)
         return PathResult(oof, df)
 
-    def fit(self, X, y, settings, value):
+    def fit(self, X, y, settings, value, work=None):
         k = int(value)
         sc = Scaler.fit(X, settings["scale"])
         Xs = sc.transform(X)

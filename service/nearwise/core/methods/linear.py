@@ -180,7 +180,7 @@ class Linear(Method):
         scale = X.std(axis=0)
         return shift, np.where(scale > 0, scale, 1.0)
 
-    def candidates(self, X, y, folds, settings, grid):
+    def candidates(self, X, y, folds, settings, grid, work=None):
         n, p = X.shape
         if "degree" in settings:
             values, source = [settings["degree"]], ("params", "degree")
@@ -222,7 +222,7 @@ class Linear(Method):
             )
         return ok
 
-    def path(self, X, y, folds, settings, values):
+    def path(self, X, y, folds, settings, values, work=None):
         n, p = X.shape
         shift, scale = self._standardise(X)
         top = self._terms(p, max(values), settings)
@@ -253,7 +253,7 @@ class Linear(Method):
         loo = np.where(h < 1 - 1e-10, loo, np.nan)
         return PathResult(loo[:, None, :], df)
 
-    def fit(self, X, y, settings, value):
+    def fit(self, X, y, settings, value, work=None):
         n, p = X.shape
         terms = self._terms(p, int(value), settings)
         shift, scale = self._standardise(X)

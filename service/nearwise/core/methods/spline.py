@@ -157,7 +157,7 @@ class Spline(Method):
     def _scale(self, settings):
         return settings.get("scale") or "standard"
 
-    def candidates(self, X, y, folds, settings, grid):
+    def candidates(self, X, y, folds, settings, grid, work=None):
         self._check_shape(X, folds, settings)
         if "smoothing" in settings:
             return [settings["smoothing"]]
@@ -169,19 +169,29 @@ class Spline(Method):
             top = max(t.size / 2, 4.0)
             targets = 2 + np.geomspace(0.25, top - 2, GRID_SIZE)
             return self.order(spline1d.lam_for_df(t, w, targets).tolist())
-        Xs = Scaler.fit(X, self._scale(settings)).transform(X)
-        eig = thinplate.Eigen.build(Xs, vectors=False)
+        eig = self._full_eigen(X, folds, settings, work)
         m = X.shape[1] + 1
         targets = m + np.geomspace(0.25, max(n / 2 - m, 1.0), GRID_SIZE)
         return self.order(thinplate.lam_for_df(eig.ev, m, targets).tolist())
 
+    def _full_eigen(self, X, folds, settings, work) -> thinplate.Eigen:
+        """The thin-plate decomposition of all rows, built once per run (with eigenvectors
+        only where leave-one-out or GCV need them)."""
+        work = {} if work is None else work
+        if "eigen" not in work:
+            Xs = Scaler.fit(X, self._scale(settings)).transform(X)
+            work["eigen"] = thinplate.Eigen.build(Xs, vectors=folds.scheme != "kfold")
+        return work["eigen"]
+
     # -- one feature ------------------------------------------------------------------
-    def _path_1d(self, x, y, folds, lams):
+    def _path_1d(self, x, y, folds, lams, work):
         n = x.size
         t, ybar, w = spline1d.average_ties(x, y)
         full = spline1d.Knots.build(t, w)
         diags = [full.diag_smoother(lam) for lam in lams]
         df = np.array([d.sum() for d in diags])
+        if work is not None:
+            work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
         if folds.scheme == "kfold":
             oof = np.empty((lams.size, folds.repeats, n))
             for r, _f, train, test in folds.splits():
@@ -205,11 +215,13 @@ class Spline(Method):
         return PathResult(loo[:, None, :], df)
 
     # -- two or three features ----------------------------------------------------------
-    def _path_tps(self, X, y, folds, lams, scale):
+    def _path_tps(self, X, y, folds, lams, scale, work):
         n = X.shape[0]
+        full = self._full_eigen(X, folds, {"scale": scale}, work)
+        df = full.df(lams)
+        if work is not None:
+            work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
         if folds.scheme == "kfold":
-            Xs = Scaler.fit(X, scale).transform(X)
-            df = thinplate.Eigen.build(Xs, vectors=False).df(lams)
             oof = np.empty((lams.size, folds.repeats, n))
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
@@ -217,8 +229,7 @@ class Spline(Method):
                 C, B = eig.coefficients(y[train], lams)
                 oof[:, r, test] = eig.predict(C, B, sc.transform(X[test])).T
             return PathResult(oof, df)
-        eig = thinplate.Eigen.build(Scaler.fit(X, scale).transform(X))
-        df = eig.df(lams)
+        eig = full
         C, _ = eig.coefficients(y, lams)
         if folds.scheme == "gcv":
             fitted = (y[:, None] - lams[None, :] * C).T
@@ -226,19 +237,25 @@ class Spline(Method):
         loo = (y[:, None] - eig.loo_residuals(C, lams)).T
         return PathResult(loo[:, None, :], df)
 
-    def path(self, X, y, folds, settings, values):
+    def path(self, X, y, folds, settings, values, work=None):
         lams = np.asarray(values, dtype=float)
         if X.shape[1] == 1:
-            return self._path_1d(X[:, 0], y, folds, lams)
-        return self._path_tps(X, y, folds, lams, self._scale(settings))
+            return self._path_1d(X[:, 0], y, folds, lams, work)
+        return self._path_tps(X, y, folds, lams, self._scale(settings), work)
 
-    def fit(self, X, y, settings, value):
+    @staticmethod
+    def _df(work, lam: float) -> float | None:
+        return None if work is None else work.get("df", {}).get(lam)
+
+    def fit(self, X, y, settings, value, work=None):
         lam = float(value)
         if X.shape[1] == 1:
             t, ybar, w = spline1d.average_ties(X[:, 0], y)
             kn = spline1d.Knots.build(t, w)
             g, gam = kn.solve(ybar, lam)
-            df = float(kn.diag_smoother(lam).sum())
+            df = self._df(work, lam)
+            if df is None:
+                df = float(kn.diag_smoother(lam).sum())
             fitted = g[np.searchsorted(t, X[:, 0])]
             return FittedSpline1D(kn, g, gam, lam, fitted, df if np.isfinite(df) else None)
         sc = Scaler.fit(X, self._scale(settings))
@@ -251,6 +268,8 @@ class Spline(Method):
                 "rows coincide. Use a positive smoothing.",
                 [Where(("params", "smoothing"), "interpolation of repeated rows")],
             ) from None
-        df = float(thinplate.Eigen.build(Xs, vectors=False).df(np.array([lam]))[0])
+        df = self._df(work, lam)
+        if df is None:
+            df = float(thinplate.Eigen.build(Xs, vectors=False).df(np.array([lam]))[0])
         fitted = thinplate.kernel(Xs, Xs) @ c + thinplate.poly(Xs) @ b
         return FittedThinPlate(sc, Xs, c, b, lam, fitted, df)
