@@ -1,0 +1,158 @@
+"""The ``nearwise`` command: ``openapi`` writes the document, ``serve`` runs gunicorn."""
+
+from __future__ import annotations
+
+import http.client
+import json
+import os
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from nearwise import cli
+from nearwise.web.app import create_app
+from nearwise.web.openapi import render
+from nearwise.web.settings import Settings
+
+
+def test_openapi_writes_the_document(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    target = tmp_path / "doc.json"
+    assert cli.main(["openapi", str(target)]) == 0
+    assert target.read_text(encoding="utf-8") == render(create_app(Settings()))
+    assert "wrote" in capsys.readouterr().out
+
+
+def test_openapi_to_stdout(capsys: pytest.CaptureFixture) -> None:
+    assert cli.main(["openapi", "-"]) == 0
+    assert json.loads(capsys.readouterr().out)["openapi"] == "3.1.0"
+
+
+def test_bad_settings_stop_the_command(monkeypatch, capsys) -> None:
+    monkeypatch.setenv("NEARWISE_WORKERS", "none")
+    assert cli.main(["serve"]) == 2
+    assert "NEARWISE_WORKERS" in capsys.readouterr().err
+
+
+def test_bad_flag_is_named(capsys) -> None:
+    assert cli.main(["serve", "--threads", "0"]) == 2
+    assert "--threads" in capsys.readouterr().err
+
+
+def test_serve_sets_one_blas_thread_and_gunicorn_defaults(monkeypatch) -> None:
+    seen: dict[str, object] = {}
+
+    def fake_run(self: cli.Server) -> None:
+        seen.update({k: os.environ.get(k) for k in cli.BLAS_THREADS})
+        seen.update(
+            bind=self.cfg.bind,
+            workers=self.cfg.workers,
+            threads=self.cfg.threads,
+            worker_class=self.cfg.worker_class_str,
+        )
+
+    for var in cli.BLAS_THREADS:
+        monkeypatch.setenv(var, "8")
+    monkeypatch.setattr(cli.Server, "run", fake_run)
+    assert cli.main(["serve", "--workers", "3"]) == 0
+    assert seen == {
+        "OMP_NUM_THREADS": "1",
+        "OPENBLAS_NUM_THREADS": "1",
+        "MKL_NUM_THREADS": "1",
+        "bind": ["127.0.0.1:8080"],
+        "workers": 3,
+        "threads": 4,
+        "worker_class": "gthread",
+    }
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def request(
+    port: int, method: str, path: str, body: bytes | None = None, chunked: bool = False
+) -> tuple[int, bytes]:
+    conn = http.client.HTTPConnection("127.0.0.1", port, timeout=10)
+    try:
+        headers = {"Content-Type": "application/json"} if body is not None else {}
+        payload = iter([body]) if chunked and body is not None else body
+        conn.request(method, path, body=payload, headers=headers, encode_chunked=chunked)
+        resp = conn.getresponse()
+        return resp.status, resp.read()
+    finally:
+        conn.close()
+
+
+@pytest.fixture
+def served(tmp_path: Path):
+    """``python -m nearwise serve`` on a free 127.0.0.1 port, stopped after the test."""
+    port = free_port()
+    env = {**os.environ, "NEARWISE_MAX_BODY_BYTES": "2000"}
+    log = (tmp_path / "serve.log").open("wb")
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "nearwise",
+            "serve",
+            "--bind",
+            f"127.0.0.1:{port}",
+            "--workers",
+            "1",
+            "--threads",
+            "2",
+        ],
+        stdout=log,
+        stderr=subprocess.STDOUT,
+        env=env,
+    )
+    try:
+        deadline = time.monotonic() + 60
+        while True:
+            try:
+                if request(port, "GET", "/healthz")[0] == 200:
+                    break
+            except OSError:
+                pass
+            assert proc.poll() is None, (tmp_path / "serve.log").read_text()
+            assert time.monotonic() < deadline, "the server did not answer within 60 s"
+            time.sleep(0.2)
+        yield port
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=30)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(timeout=30)
+        log.close()
+
+
+def test_serve_answers_and_refuses_oversized_chunked_bodies(served: int) -> None:
+    status, data = request(served, "GET", "/healthz")
+    assert (status, json.loads(data)) == (200, {"status": "ok"})
+    big = json.dumps(
+        {
+            "method": "knn",
+            "target": "y",
+            "train": {"columns": ["x", "y"], "rows": [[i, 2.0 * i] for i in range(300)]},
+        }
+    ).encode()
+    assert len(big) > 2000
+    status, data = request(served, "POST", "/v1/predict", big, chunked=True)
+    assert status == 413 and json.loads(data)["code"] == "body_too_large"
+    small = json.dumps(
+        {
+            "method": "knn",
+            "target": "y",
+            "train": {"columns": ["x", "y"], "rows": [[i, 2.0 * i] for i in range(30)]},
+        }
+    ).encode()
+    status, data = request(served, "POST", "/v1/predict", small, chunked=True)
+    assert status == 200, data
