@@ -153,14 +153,49 @@ def evaluate(t: np.ndarray, g: np.ndarray, gam: np.ndarray, x: np.ndarray) -> np
     return np.where(x > t[-1], g[-1] + (x - t[-1]) * slope1, out)
 
 
-def lam_for_df(t: np.ndarray, w: np.ndarray, df: np.ndarray) -> np.ndarray:
-    """Smoothing values expected to give roughly the effective df asked for.
+def _quartic_integral(u: np.ndarray) -> np.ndarray:
+    """Antiderivative of 1 / (1 + u^4)."""
+    r2 = np.sqrt(2.0)
+    return (
+        np.log((u * u + r2 * u + 1) / (u * u - r2 * u + 1))
+        + 2 * np.arctan(r2 * u + 1)
+        + 2 * np.arctan(r2 * u - 1)
+    ) / (4 * r2)
 
-    A dimensionless rule: with x rescaled to [0, 1] and total weight n, a smoothing spline with
-    parameter lam_u keeps about 2 + (n / lam_u)^(1/4) / (2 sqrt 2) degrees of freedom (the
-    Demmler-Reinsch eigenvalues of a near-uniform design grow like (pi j)^4). The answer is
-    scaled back by range^3. The exact df of each candidate is computed separately.
+
+def approx_df(lam_u: np.ndarray, total_weight: float, m: int, exact_terms: int = 64) -> np.ndarray:
+    """Approximate effective df of a smoothing spline on a near-uniform design in [0, 1].
+
+    The Demmler-Reinsch eigenvalues of the penalty are close to ((j + 1/2) pi)^4 / W, j >= 1
+    (the free-free beam modes), so df = 2 + sum_j 1 / (1 + lam_u ((j + 1/2) pi)^4 / W). The
+    first terms are summed and the rest integrated in closed form.
+    """
+    j0 = (total_weight / lam_u) ** 0.25 / np.pi
+    last = m - 2
+    j = np.arange(1, min(exact_terms, last) + 1)
+    head = (1.0 / (1.0 + ((j[None, :] + 0.5) / j0[:, None]) ** 4)).sum(axis=1)
+    tail = np.zeros_like(j0)
+    if last > exact_terms:
+        a = (exact_terms + 1.0) / j0
+        b = (last + 1.0) / j0
+        tail = j0 * (_quartic_integral(b) - _quartic_integral(a))
+    return 2.0 + head + tail
+
+
+def lam_for_df(t: np.ndarray, w: np.ndarray, df: np.ndarray) -> np.ndarray:
+    """Smoothing values expected to give about the effective df asked for.
+
+    A dimensionless search: with x rescaled to [0, 1], lam_u is found by bisection on
+    :func:`approx_df`, then scaled back by range^3 (the penalty integral scales so). The exact
+    df of each candidate is computed separately from the smoother diagonal.
     """
     span = t[-1] - t[0]
-    lam_u = w.sum() / (2 * np.sqrt(2) * np.maximum(df - 2, 1e-3)) ** 4
-    return lam_u * span**3
+    W = float(w.sum())
+    lo = np.full(df.shape, -40.0)
+    hi = np.full(df.shape, 60.0)
+    for _ in range(60):
+        mid = (lo + hi) / 2
+        too_rough = approx_df(np.exp(mid), W, t.size) > df
+        lo = np.where(too_rough, mid, lo)
+        hi = np.where(too_rough, hi, mid)
+    return np.exp((lo + hi) / 2) * span**3
