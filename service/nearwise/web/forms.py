@@ -10,13 +10,13 @@ comma-separated items. Nothing else is converted; a field given twice is refused
 
 from __future__ import annotations
 
-import json
 from collections.abc import Iterable
 from typing import Any
 
 from marshmallow import Schema, fields
 
 from nearwise.core.errors import InvalidValue, Where
+from nearwise.web.jsonio import loads_lenient
 
 
 def collect(sources: Iterable[tuple[str, list[str]]], schema: Schema) -> dict[str, Any]:
@@ -74,7 +74,7 @@ def _decode(field: fields.Field | None, values: list[str]) -> Any:
 def _split(text: str) -> Any:
     if text.lstrip().startswith("["):
         try:
-            return json.loads(text)
+            return loads_lenient(text)
         except ValueError:
             return text
     return text.split(",")
@@ -84,7 +84,7 @@ def _scalar(field: fields.Field | None, value: Any) -> Any:
     if not isinstance(value, str) or field is None or isinstance(field, fields.String):
         return value
     try:
-        decoded = json.loads(value)
+        decoded = loads_lenient(value)
     except ValueError:
         return value
     return decoded if decoded is None or isinstance(decoded, bool | int | float) else value

@@ -21,7 +21,7 @@ from nearwise.core.errors import InvalidValue, Where
 from nearwise.web import forms
 from nearwise.web.body import read_body, unsupported_media_type
 from nearwise.web.csvio import CsvPart, read_csv
-from nearwise.web.jsonio import DuplicateKey, loads_strict
+from nearwise.web.jsonio import DuplicateKey, TooDeep, loads_strict
 from nearwise.web.problems import Problem
 from nearwise.web.settings import Settings
 from nearwise.web.tables import Limits, Parsed, from_json
@@ -63,6 +63,8 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
         parsed = loads_strict(body)
     except UnicodeDecodeError as exc:
         raise Problem(400, f"The body is not UTF-8: {exc.reason} at byte {exc.start}.") from None
+    except TooDeep as exc:
+        raise Problem(400, f"The body is not readable: {exc}.") from None
     except json.JSONDecodeError as exc:
         raise Problem(
             400, f"The body is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}."

@@ -18,6 +18,22 @@ class DuplicateKey(ValueError):
         self.path = path
 
 
+class TooDeep(ValueError):
+    """The body nests arrays or objects deeper than the parser can follow."""
+
+
+def _int(text: str) -> int | float:
+    return int(text) if len(text) <= 4000 else float("inf")
+
+
+def loads_lenient(text: str) -> Any:
+    """``json.loads`` for small form values; anything unreadable raises ValueError."""
+    try:
+        return json.loads(text)
+    except RecursionError:
+        raise TooDeep("the value nests arrays too deeply") from None
+
+
 class _Dup(dict):
     """An object that held a duplicate key, kept so its place can be found after parsing."""
 
@@ -62,7 +78,16 @@ def loads_strict(body: bytes) -> Parsed:
             seen.add(key)
         return marked
 
-    doc = json.loads(body.decode("utf-8"), parse_constant=constant, object_pairs_hook=pairs)
+    text = body.decode("utf-8")
+    try:
+        doc = json.loads(text, parse_constant=constant, object_pairs_hook=pairs)
+    except RecursionError:
+        raise TooDeep("the body nests arrays or objects too deeply") from None
+    except ValueError as exc:
+        if isinstance(exc, json.JSONDecodeError):
+            raise
+        # an integer too long to convert: read it as a number too large for a double
+        doc = json.loads(text, parse_constant=constant, object_pairs_hook=pairs, parse_int=_int)
     if flags["dup"]:
         raise DuplicateKey(next(_find_dup(doc, ())))
     return Parsed(doc, flags["constant"])
