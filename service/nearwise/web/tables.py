@@ -20,6 +20,7 @@ from nearwise.web.problems import Problem
 
 _NUMERIC = {float, int, type(None)}
 _CELL_TYPES = (float, int, type(None), str)
+_CELL_SET = set(_CELL_TYPES)
 _NUMBER, _NULL, _TEXT, _OTHER = 0, 1, 2, 3
 _KINDS = {float: _NUMBER, int: _NUMBER, type(None): _NULL, str: _TEXT}
 
@@ -91,10 +92,12 @@ def from_json(
             _raise_first_problem(name, rows, p)
         check_finite(name, values, ~np.isnan(values))
         return Parsed(Table(name, tuple(columns), values), rows)
-    return Parsed(_from_objects(name, columns, rows), rows)
+    return Parsed(_from_objects(name, columns, rows, saw_constant), rows)
 
 
-def _from_objects(name: str, columns: list[str], rows: list[Any]) -> Table:
+def _from_objects(name: str, columns: list[str], rows: list[Any], saw_constant: bool) -> Table:
+    """The slower path: some cell is text or not a plain number; columns are typed one by one,
+    and only columns holding text (or a NaN/Infinity literal somewhere) go cell by cell."""
     p = len(columns)
     try:
         obj = np.array(rows, dtype=object)
@@ -102,17 +105,27 @@ def _from_objects(name: str, columns: list[str], rows: list[Any]) -> Table:
         _raise_first_problem(name, rows, p)
     if obj.shape != (len(rows), p):
         _raise_first_problem(name, rows, p)
-    kinds = np.frompyfunc(_kind, 1, 1)(obj).astype(np.int8)
-    if (kinds == _OTHER).any():
-        _raise_first_problem(name, rows, p)
-    is_num = kinds == _NUMBER
-    is_text = kinds == _TEXT
-    try:
-        values = np.where(is_num, obj, np.nan).astype(np.float64)
-    except OverflowError:
-        _raise_first_problem(name, rows, p)
+    values = np.empty(obj.shape)
+    is_num = np.empty(obj.shape, dtype=bool)
+    labels: dict[int, np.ndarray] = {}
+    for j in range(p):
+        col = obj[:, j]
+        kinds = set(map(type, col))
+        if not kinds <= _CELL_SET:
+            _raise_first_problem(name, rows, p)
+        try:
+            if kinds <= _NUMERIC and not saw_constant:
+                values[:, j] = col.astype(np.float64)  # None -> NaN
+                is_num[:, j] = ~np.isnan(values[:, j])
+            else:
+                codes = np.frompyfunc(_kind, 1, 1)(col).astype(np.int8)
+                is_num[:, j] = codes == _NUMBER
+                values[:, j] = np.where(is_num[:, j], col, np.nan).astype(np.float64)
+                if (codes == _TEXT).any():
+                    labels[j] = col
+        except OverflowError:
+            _raise_first_problem(name, rows, p)
     check_finite(name, values, is_num)
-    labels = {int(j): obj[:, j] for j in np.flatnonzero(is_text.any(axis=0))}
     return Table(name, tuple(columns), values, labels)
 
 
