@@ -201,3 +201,10 @@ def test_missing_train_part_is_422(client) -> None:
 def test_urlencoded_forms_are_415(client) -> None:
     resp = client.post("/v1/predict?method=knn&target=y", data={"train": "x,y\n1,2\n"})
     assert problem(resp, 415)["detail"].endswith("got application/x-www-form-urlencoded.")
+
+
+def test_csv_without_a_header_line_is_415(client) -> None:
+    resp = client.post(
+        "/v1/predict?method=knn&target=y", data=b"1,2\n", content_type="text/csv; header=absent"
+    )
+    problem(resp, 415)

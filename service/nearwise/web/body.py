@@ -53,7 +53,6 @@ def _too_large(limit: int, found: str) -> Problem:
         f"The body is larger than the limit of {limit} bytes set by NEARWISE_MAX_BODY_BYTES "
         f"({found}). Send fewer rows per request.",
         code="body_too_large",
-        headers={"Connection": "close"},
     )
 
 

@@ -51,6 +51,12 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
     if mimetype == JSON:
         return _json(body, limits, full)
     if mimetype == CSV:
+        if request.mimetype_params.get("header", "present").lower() != "present":
+            raise Problem(
+                415,
+                "A text/csv body must start with a header line naming the "
+                "columns (header=present).",
+            )
         if not body:
             raise Problem(400, "The text/csv body is empty; it should hold the train table.")
         return _csv({"train": [body]}, MultiDict(), limits, fields_only)
