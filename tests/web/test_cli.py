@@ -19,6 +19,13 @@ from nearwise.web.openapi import render
 from nearwise.web.settings import Settings
 
 
+@pytest.fixture(autouse=True)
+def no_nearwise_variables(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Each test sees the embedded defaults, whatever the machine's environment holds."""
+    for name in [k for k in os.environ if k.startswith("NEARWISE_")]:
+        monkeypatch.delenv(name)
+
+
 def test_openapi_writes_the_document(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
     target = tmp_path / "doc.json"
     assert cli.main(["openapi", str(target)]) == 0
