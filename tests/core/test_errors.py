@@ -151,3 +151,15 @@ def test_not_applicable(kw, path):
 def test_scale_does_not_apply_to_a_one_feature_spline():
     with pytest.raises(NotApplicable, match="`scale` applies to thin-plate splines"):
         run(job("spline", features=["x0"], params={"scale": "range"}))
+
+
+def test_huge_values_are_refused_and_overflowing_predictions_named():
+    y = Y40.copy()
+    y[4] = 1e120
+    with pytest.raises(BadCell, match="values beyond 1e\\+100 in magnitude") as e:
+        run(job(train=table(y=y)))
+    assert e.value.where[0].path == ("train", "rows", 4, 4)
+    query = Table("query", ("x0",), np.array([[1.0], [1e99]]))
+    with pytest.raises(BadCell, match="prediction at query row 1 is too large") as e:
+        run(job("linear", features=["x0"], params={"degree": 5}, query=query))
+    assert e.value.where[0].path == ("query", "rows", 1)

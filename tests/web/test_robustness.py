@@ -133,10 +133,6 @@ def test_mutated_requests_never_500(client, seed: int) -> None:
     assert resp.status_code < 500, (doc, resp.get_data(as_text=True))
 
 
-@pytest.mark.xfail(
-    reason="core: magnitudes near 1e308 overflow inside the fits (numpy warnings "
-    "fail under filterwarnings=error); to be refused or scaled by the core"
-)
 @pytest.mark.parametrize("method", ["knn", "linear", "spline"])
 def test_extreme_magnitudes_never_500(client, method: str) -> None:
     rows = [[x / 3.0, float(x % 5)] for x in range(24)]
@@ -144,7 +140,8 @@ def test_extreme_magnitudes_never_500(client, method: str) -> None:
     resp = client.post(
         "/v1/predict", json=body(method, train={"columns": ["x", "y"], "rows": rows})
     )
-    assert resp.status_code < 500, resp.get_data(as_text=True)
+    assert resp.status_code == 422, resp.get_data(as_text=True)
+    assert resp.get_json()["errors"][0]["pointer"] == "/train/rows/3/1"
 
 
 @pytest.mark.parametrize("seed", range(100))

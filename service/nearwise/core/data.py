@@ -15,6 +15,10 @@ from nearwise.core.errors import BadCell, BadTable, InvalidValue, UnknownName, W
 
 SCALES = ("standard", "range", "none")
 
+# Largest magnitude accepted in a used cell. Fits square and raise values to powers (up to the
+# fifth for degree-5 polynomials, in standardised units); beyond this they could overflow.
+MAX_MAGNITUDE = 1e100
+
 
 @dataclass(frozen=True)
 class Table:
@@ -86,7 +90,21 @@ def _first_text_cell(table: Table, j: int) -> None:
         )
 
 
+def _check_magnitude(table: Table, cols: Sequence[int], block: np.ndarray, what: str) -> None:
+    with np.errstate(invalid="ignore"):
+        big = np.abs(block) > MAX_MAGNITUDE
+    if big.any():
+        r, c = (int(v[0]) for v in np.nonzero(big))
+        raise BadCell(
+            f"{what} `{table.columns[cols[c]]}` in {table.name} row {r} is {block[r, c]:g}; "
+            f"values beyond {MAX_MAGNITUDE:g} in magnitude cannot be fitted reliably. Rescale "
+            "the column (for example, change its units).",
+            [Where((table.name, "rows", r, int(cols[c])), f"magnitude above {MAX_MAGNITUDE:g}")],
+        )
+
+
 def _check_finite(table: Table, cols: Sequence[int], block: np.ndarray, what: str) -> None:
+    _check_magnitude(table, cols, block, what)
     bad = ~np.isfinite(block)
     if bad.any():
         rows, cs = np.nonzero(bad)
@@ -166,6 +184,7 @@ def prepare(
             f"target `{target}` is not finite in train row {i}.",
             [Where(("train", "rows", i, t), "not finite")],
         )
+    _check_magnitude(train, [t], y_all[:, None], "target")
     kept = np.flatnonzero(~np.isnan(y_all))
     groups = None
     if g is not None:

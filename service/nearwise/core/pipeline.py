@@ -8,7 +8,7 @@ import numpy as np
 
 from nearwise.core import tuning
 from nearwise.core.data import prepare
-from nearwise.core.errors import NotApplicable, UnknownName, Where
+from nearwise.core.errors import BadCell, NotApplicable, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
 from nearwise.core.results import (
     FitReport,
@@ -98,12 +98,12 @@ def run(job: Job) -> PredictResult:
             )
         )
 
-    if data.X_query is not None:
-        value_at = model.predict(data.X_query)
-        residual = None
-    else:
-        value_at = model.predict(data.X_all)
-        residual = data.y_all - value_at
+    where = data.X_query if data.X_query is not None else data.X_all
+    with np.errstate(over="ignore", invalid="ignore"):
+        value_at = model.predict(where)
+        summary = model.summary(data.features)
+    _check_predictions(value_at, "query" if data.X_query is not None else "train")
+    residual = None if data.X_query is not None else data.y_all - value_at
     params: dict[str, Any] = {
         **{k: v for k, v in settings.items() if v is not None},
         method.tuned: value,
@@ -146,12 +146,22 @@ def run(job: Job) -> PredictResult:
         params=params,
         tuning=report,
         fit=fit,
-        model=model.summary(data.features),
+        model=summary,
         predictions=Predictions(
             value=value_at, residual=residual, flags=tuple(() for _ in range(value_at.shape[0]))
         ),
         warnings=tuple(notices),
     )
+
+
+def _check_predictions(value: np.ndarray, table: str) -> None:
+    bad = np.flatnonzero(~np.isfinite(value))
+    if bad.size:
+        raise BadCell(
+            f"the prediction at {table} row {bad[0]} is too large to represent: the row lies "
+            "extremely far outside the training data. Rescale the features or remove the row.",
+            [Where((table, "rows", int(i)), "prediction overflows") for i in bad[:20]],
+        )
 
 
 def method_extra_params(method: Method, settings, value, n_features: int) -> dict[str, Any]:
