@@ -163,3 +163,11 @@ def test_huge_values_are_refused_and_overflowing_predictions_named():
     with pytest.raises(BadCell, match="prediction at query row 1 is too large") as e:
         run(job("linear", features=["x0"], params={"degree": 5}, query=query))
     assert e.value.where[0].path == ("query", "rows", 1)
+
+
+def test_time_budget_is_checked_between_folds():
+    from nearwise.core.errors import OverBudget
+
+    with pytest.raises(OverBudget, match="past its time budget of 1e-09 s"):
+        run(job(time_budget_s=1e-9))
+    assert run(job(time_budget_s=60.0)).fit.n_train == 40

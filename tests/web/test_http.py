@@ -193,3 +193,17 @@ def test_cors_headers_for_allowed_origins_only() -> None:
 def test_health_endpoints(client) -> None:
     assert client.get("/healthz").get_json() == {"status": "ok"}
     assert client.get("/readyz").get_json() == {"status": "ready"}
+
+
+def test_time_budget_overrun_is_503_with_retry_after() -> None:
+    from nearwise.web.app import create_app
+    from nearwise.web.settings import Settings
+
+    app = create_app(Settings(time_budget_s=1e-9))
+    rows = [[x / 3.0, float(x % 5)] for x in range(24)]
+    doc = {"method": "knn", "target": "y", "train": {"columns": ["x", "y"], "rows": rows}}
+    resp = app.test_client().post("/v1/predict", json=doc)
+    assert resp.status_code == 503
+    assert resp.headers["Retry-After"] == "10"
+    assert resp.mimetype == "application/problem+json"
+    assert resp.get_json()["code"] == "time_budget_exceeded"

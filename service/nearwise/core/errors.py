@@ -84,3 +84,10 @@ class NotApplicable(NearwiseError):
 
     code = "not_applicable"
     title = "Option does not apply"
+
+
+class OverBudget(NearwiseError):
+    """The fit ran past the time budget it was given."""
+
+    code = "time_budget_exceeded"
+    title = "Time budget exceeded"

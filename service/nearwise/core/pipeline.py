@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 
 from nearwise.core import tuning
+from nearwise.core.budget import Deadline
 from nearwise.core.data import prepare
 from nearwise.core.errors import BadCell, NotApplicable, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
@@ -40,6 +41,7 @@ def _error(resid: np.ndarray, metric: str) -> float:
 
 def run(job: Job) -> PredictResult:
     """Fit ``job.method`` to the training table, tune it by cross-validation, and predict."""
+    deadline = Deadline(job.time_budget_s)
     method = get_method(job.method)
     tuning.check_spec(job.tuning)
     if job.interval is not None:
@@ -61,10 +63,12 @@ def run(job: Job) -> PredictResult:
     canon = np.lexsort((data.y, *data.X.T[::-1]))
     X, y = data.X[canon], data.y[canon]
     groups = None if data.groups is None else data.groups[canon]
-    folds = tuning.make_folds(X.shape[0], job.tuning, groups)
+    folds = tuning.make_folds(X.shape[0], job.tuning, groups, deadline.check)
     work: dict[str, Any] = {}
     values = method.candidates(X, y, folds, settings, grid, work)
+    deadline.check()
     path = method.path(X, y, folds, settings, values, work)
+    deadline.check()
     scores = tuning.score(y, path.oof, folds, job.tuning.metric, path.gcv_scale)
     best, chosen = tuning.choose(scores.error, scores.error_se, job.tuning.rule)
     value = values[chosen]

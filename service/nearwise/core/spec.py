@@ -40,7 +40,7 @@ class Job:
     """One predict request, after the envelope was checked and the tables parsed.
 
     ``params`` and ``grid`` hold the caller's values as sent (JSON scalars and lists); the
-    core checks them against the method's constraints.
+    core checks them against the method's constraints. ``time_budget_s`` bounds the run.
     """
 
     method: str
@@ -52,3 +52,4 @@ class Job:
     grid: Mapping[str, Sequence[Any]] = field(default_factory=dict)
     tuning: TuningSpec = field(default_factory=TuningSpec)
     interval: IntervalSpec | None = None
+    time_budget_s: float | None = None

@@ -15,7 +15,8 @@ Mathematik* 31, 377-403 (generalised cross-validation).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -38,13 +39,16 @@ class Folds:
     repeats: int
     fold_id: np.ndarray | None
     min_train: int
+    check: Callable[[], None] = field(default=lambda: None, compare=False, repr=False)
 
     def splits(self):
-        """Yield ``(repeat, fold, train_index, test_index)`` for the K-fold scheme."""
+        """Yield ``(repeat, fold, train_index, test_index)`` for the K-fold scheme; the time
+        budget is checked before each fold."""
         assert self.fold_id is not None
         for r in range(self.repeats):
             ids = self.fold_id[r]
             for f in range(self.n_folds):
+                self.check()
                 test = np.flatnonzero(ids == f)
                 train = np.flatnonzero(ids != f)
                 yield r, f, train, test
@@ -90,22 +94,28 @@ def check_spec(spec: TuningSpec) -> None:
         )
 
 
-def make_folds(n: int, spec: TuningSpec, groups: np.ndarray | None = None) -> Folds:
+def make_folds(
+    n: int,
+    spec: TuningSpec,
+    groups: np.ndarray | None = None,
+    check: Callable[[], None] | None = None,
+) -> Folds:
     """Assign rows to folds.
 
     K-fold: a seeded permutation split into ``folds`` parts whose sizes differ by at most one,
     drawn afresh for each repeat. With groups, whole groups are dealt to folds: groups are
     shuffled, then each (largest first) goes to the fold holding the fewest rows so far.
     """
+    extra = () if check is None else (check,)
     if spec.scheme == "gcv":
-        return Folds("gcv", n, 1, 1, None, n)
+        return Folds("gcv", n, 1, 1, None, n, *extra)
     if spec.scheme == "loo":
         if n < 3:
             raise TooFewRows(
                 f"leave-one-out needs at least 3 usable rows; got {n}.",
                 [Where(("train", "rows"), f"{n} usable rows")],
             )
-        return Folds("loo", n, n, 1, np.arange(n)[None, :], n - 1)
+        return Folds("loo", n, n, 1, np.arange(n)[None, :], n - 1, *extra)
     k = spec.folds
     units = n if groups is None else int(groups.max()) + 1
     if units < k:
@@ -140,7 +150,7 @@ def make_folds(n: int, spec: TuningSpec, groups: np.ndarray | None = None) -> Fo
             f"a training fold would hold {min_train} row(s); use fewer folds or more groups.",
             [Where(("tuning", "folds"), "training fold too small")],
         )
-    return Folds("kfold", n, k, spec.repeats, fold_id, min_train)
+    return Folds("kfold", n, k, spec.repeats, fold_id, min_train, *extra)
 
 
 @dataclass(frozen=True)

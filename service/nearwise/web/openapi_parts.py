@@ -17,6 +17,8 @@ PROBLEM_WHEN = {
     415: "The body's media type is not one this endpoint reads.",
     422: "Readable but invalid: unknown field, method or parameter, a bad cell (pointer to "
     "its row and column), too few rows for the folds, an unsupported dimension, ...",
+    503: "The fit ran past NEARWISE_TIME_BUDGET_S (code `time_budget_exceeded`); the "
+    "`Retry-After` header gives the seconds to wait.",
 }
 
 

@@ -15,10 +15,12 @@ from typing import Any, Protocol
 from flask import Flask, Response, g
 from werkzeug.exceptions import HTTPException
 
-from nearwise.core.errors import NearwiseError, Where
+from nearwise.core.errors import NearwiseError, OverBudget, Where
 from nearwise.web.jsonio import dumps
 
 PROBLEM_JSON = "application/problem+json"
+#: Seconds a client is asked to wait after a 503.
+RETRY_AFTER_S = 10
 log = logging.getLogger("nearwise.web")
 
 #: Stable codes for HTTP-level problems, by status.
@@ -120,6 +122,9 @@ def handle(exc: Exception) -> Response:
         return problem_response(exc.status, title, exc.detail, code, errors, exc.headers)
     if isinstance(exc, NearwiseError):
         errors = [error_entry(w, _csv_parts()) for w in exc.where]
+        if isinstance(exc, OverBudget):
+            headers = {"Retry-After": str(RETRY_AFTER_S)}
+            return problem_response(503, exc.title, exc.detail, exc.code, errors, headers)
         return problem_response(422, exc.title, exc.detail, exc.code, errors)
     if isinstance(exc, HTTPException) and exc.code is not None and exc.code < 500:
         headers = {k: v for k, v in exc.get_headers() if k.lower() not in ("content-type",)}

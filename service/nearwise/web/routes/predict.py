@@ -24,13 +24,14 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
     tags=["predict"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422, 503)},
 )
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
     answer = negotiate(ANSWERS)
     intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
-    result = pipeline.run(build_job(intake))
+    budget = current_app.extensions["nearwise"].time_budget_s
+    result = pipeline.run(build_job(intake, budget))
     if answer == "text/csv":
         rows = intake.tables.get("query") or intake.tables["train"]
         resp = Response(serialize.predict_csv(result, rows), content_type=CSV_ANSWER)
@@ -43,7 +44,7 @@ def predict() -> Response:
     return resp
 
 
-def build_job(intake: Intake) -> Job:
+def build_job(intake: Intake, time_budget_s: float | None = None) -> Job:
     """The core's job from the checked fields and parsed tables."""
     f = intake.fields
     query = intake.tables.get("query")
@@ -57,4 +58,5 @@ def build_job(intake: Intake) -> Job:
         grid=f.get("grid", {}),
         tuning=TuningSpec(**f.get("tuning", {})),
         interval=IntervalSpec(**f["interval"]) if "interval" in f else None,
+        time_budget_s=time_budget_s,
     )
