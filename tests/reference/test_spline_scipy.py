@@ -16,9 +16,11 @@ from nearwise.core.methods.spline import Spline
 @pytest.mark.parametrize("lam", [0.0, 1e-4, 0.05, 3.0, 300.0])
 def test_one_feature_equals_make_smoothing_spline(lam):
     rng = np.random.default_rng(21)
-    x = np.sort(rng.uniform(0, 10, 150))
+    # A jittered grid: no two x closer than 1/10,000 of the range, so no knot is merged.
+    x = np.linspace(0, 10, 150) + rng.uniform(-0.02, 0.02, 150)
     y = np.sin(x) + rng.normal(0, 0.3, 150)
     fitted = Spline().fit(x[:, None], y, {}, lam)
+    assert fitted.summary(("x",))["knot_placement"] == "exact"
     ref = make_smoothing_spline(x, y, lam=lam)
     xq = np.linspace(0, 10, 301).clip(x[0], x[-1])
     scale = np.abs(y).max()
@@ -42,7 +44,7 @@ def test_repeated_x_equals_weighted_spline_of_means():
 
 def test_outside_the_data_the_natural_spline_is_linear():
     rng = np.random.default_rng(23)
-    x = np.sort(rng.uniform(0, 1, 40))
+    x = np.linspace(0, 1, 40) + rng.uniform(-0.005, 0.005, 40)
     y = x**2 + rng.normal(0, 0.05, 40)
     fitted = Spline().fit(x[:, None], y, {}, 1e-3)
     ref = make_smoothing_spline(x, y, lam=1e-3)
@@ -67,7 +69,7 @@ def test_thin_plate_equals_rbfinterpolator(p, lam):
 def test_smoothing_zero_interpolates_every_training_row():
     """Smoothing 0 reproduces every training target: interpolation, the textbook over-fit."""
     rng = np.random.default_rng(30)
-    x = rng.uniform(0, 5, 50)
+    x = rng.permutation(np.linspace(0, 5, 50))
     y = rng.normal(size=50)
     one = Spline().fit(x[:, None], y, {}, 0.0)
     assert_allclose(one.predict(x[:, None]), y, atol=1e-9)

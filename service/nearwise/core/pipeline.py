@@ -93,6 +93,7 @@ def run(job: Job) -> PredictResult:
                 "best value may lie beyond it. Widen the grid in that direction.",
             )
         )
+    notices.extend(model.notices())
     if not np.all(np.isfinite(path.df)):
         notices.append(
             Notice(

@@ -89,6 +89,8 @@ class Fitted(Protocol):
 
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]: ...
 
+    def notices(self) -> list: ...
+
 
 @dataclass(frozen=True)
 class PathResult:

@@ -134,6 +134,9 @@ class FittedKNN:
         Xs = self.scaler.transform(Xq)
         return predict_all_k(self.index, self.y, Xs, self.k, self.weights)[:, -1]
 
+    def notices(self) -> list:
+        return []
+
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
         n = self.y.shape[0]
         return {

@@ -106,6 +106,9 @@ class FittedLinear:
                 T[index[a], b_i] += c
         return T
 
+    def notices(self) -> list:
+        return []
+
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
         T = self.raw_transform()
         est = T @ self.beta

@@ -16,6 +16,7 @@ from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import NotApplicable, TooFewRows, UnsupportedDimension, Where
 from nearwise.core.methods import spline1d, thinplate
 from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.results import Notice
 
 GRID_SIZE = 20
 MIN_DISTINCT = 5
@@ -30,6 +31,7 @@ class FittedSpline1D:
     smoothing: float
     fitted: np.ndarray
     df: float | None
+    snap: spline1d.Snap
 
     def predict(self, Xq):
         return spline1d.evaluate(self.knots.t, self.g, self.gam, Xq[:, 0])
@@ -39,8 +41,27 @@ class FittedSpline1D:
             "smoothing": self.smoothing,
             "df": self.df,
             "kind": "cubic smoothing spline",
-            "distinct_x": int(self.knots.t.size),
+            "knots": int(self.knots.t.size),
+            "knot_placement": self.snap.how,
+            "largest_x_shift": self.snap.shift,
         }
+
+    def notices(self) -> list[Notice]:
+        if self.snap.how == "exact":
+            return []
+        how = (
+            "x values closer than 1/10,000 of the range were merged"
+            if self.snap.how == "merged"
+            else f"x was rounded to {spline1d.MAX_KNOTS} evenly spaced knots"
+        )
+        return [
+            Notice(
+                "x_rounded",
+                f"to keep the spline's arithmetic accurate, {how}; the largest shift of any x is "
+                f"{self.snap.shift:.3g}. The fit differs from the exact smoothing spline by about "
+                "the change of the curve over that distance.",
+            )
+        ]
 
 
 @dataclass
@@ -56,6 +77,9 @@ class FittedThinPlate:
     def predict(self, Xq):
         Z = self.scaler.transform(Xq)
         return thinplate.kernel(Z, self.Xs) @ self.c + thinplate.poly(Z) @ self.b
+
+    def notices(self) -> list[Notice]:
+        return []
 
     def summary(self, names):
         return {
@@ -165,7 +189,7 @@ class Spline(Method):
             return self.order(grid)
         n = X.shape[0]
         if X.shape[1] == 1:
-            t, _, w = spline1d.average_ties(X[:, 0], y)
+            t, _, w = spline1d.average_ties(self._snap(X[:, 0], work).x, y)
             top = max(t.size / 2, 4.0)
             targets = 2 + np.geomspace(0.25, top - 2, GRID_SIZE)
             return self.order(spline1d.lam_for_df(t, w, targets).tolist())
@@ -184,9 +208,22 @@ class Spline(Method):
         return work["eigen"]
 
     # -- one feature ------------------------------------------------------------------
+    @staticmethod
+    def _snap(x, work) -> spline1d.Snap:
+        """Knot placement for all rows, computed once per run."""
+        if work is None:
+            return spline1d.Snap.of(x)
+        if "snap" not in work:
+            work["snap"] = spline1d.Snap.of(x)
+        return work["snap"]
+
     def _path_1d(self, x, y, folds, lams, work):
+        """Every fold is fitted as the final fit is: its own knot placement, ties averaged;
+        held-out rows are evaluated at their own x. Leave-one-out and GCV use the exact
+        smoother diagonal of the fit to all rows."""
         n = x.size
-        t, ybar, w = spline1d.average_ties(x, y)
+        xs = self._snap(x, work).x
+        t, ybar, w = spline1d.average_ties(xs, y)
         full = spline1d.Knots.build(t, w)
         diags = [full.diag_smoother(lam) for lam in lams]
         df = np.array([d.sum() for d in diags])
@@ -195,13 +232,13 @@ class Spline(Method):
         if folds.scheme == "kfold":
             oof = np.empty((lams.size, folds.repeats, n))
             for r, _f, train, test in folds.splits():
-                tt, yy, ww = spline1d.average_ties(x[train], y[train])
+                tt, yy, ww = spline1d.average_ties(spline1d.Snap.of(x[train]).x, y[train])
                 kn = spline1d.Knots.build(tt, ww)
                 for c, lam in enumerate(lams):
                     g, gam = kn.solve(yy, lam)
                     oof[c, r, test] = spline1d.evaluate(tt, g, gam, x[test])
             return PathResult(oof, df)
-        inv = np.searchsorted(t, x)
+        inv = np.searchsorted(t, xs)
         fitted = np.empty((lams.size, n))
         for c, lam in enumerate(lams):
             g, _ = full.solve(ybar, lam)
@@ -250,14 +287,16 @@ class Spline(Method):
     def fit(self, X, y, settings, value, work=None):
         lam = float(value)
         if X.shape[1] == 1:
-            t, ybar, w = spline1d.average_ties(X[:, 0], y)
+            snap = self._snap(X[:, 0], work)
+            t, ybar, w = spline1d.average_ties(snap.x, y)
             kn = spline1d.Knots.build(t, w)
             g, gam = kn.solve(ybar, lam)
             df = self._df(work, lam)
             if df is None:
                 df = float(kn.diag_smoother(lam).sum())
-            fitted = g[np.searchsorted(t, X[:, 0])]
-            return FittedSpline1D(kn, g, gam, lam, fitted, df if np.isfinite(df) else None)
+            fitted = spline1d.evaluate(t, g, gam, X[:, 0])
+            df = df if np.isfinite(df) else None
+            return FittedSpline1D(kn, g, gam, lam, fitted, df, snap)
         sc = Scaler.fit(X, self._scale(settings))
         Xs = sc.transform(X)
         try:

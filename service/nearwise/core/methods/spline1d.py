@@ -22,6 +22,47 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg
 
+MAX_KNOTS = 1000
+
+
+@dataclass(frozen=True)
+class Snap:
+    """Where each x value sits as a knot.
+
+    The Reinsch system loses accuracy when two knots are very close compared with the range,
+    or when there are many knots: its condition number grows like (range / smallest gap)^2 and
+    like n^4. Measured against a 50-digit solve, random designs of 2,000 distinct x lost all
+    accuracy at large smoothing, while a grid of 1,000 evenly spaced knots kept errors below
+    1e-6 of the data scale. So distinct x values closer than range / (10 MAX_KNOTS) are merged
+    (at their mean, weighted by counts) when there are at most MAX_KNOTS distinct values and
+    no merged run is wider than half a grid cell; otherwise every x is rounded to the nearest
+    of MAX_KNOTS evenly spaced points spanning the data. Either way no x moves by more than
+    range / (2 (MAX_KNOTS - 1)). ``shift`` is the largest distance any x moved.
+    """
+
+    x: np.ndarray
+    knots: int
+    shift: float
+    how: str  # "exact", "merged" or "grid"
+
+    @classmethod
+    def of(cls, x: np.ndarray) -> Snap:
+        t, inv, counts = np.unique(x, return_inverse=True, return_counts=True)
+        span = t[-1] - t[0]
+        close = np.diff(t) < span / (10 * MAX_KNOTS)
+        if t.size <= MAX_KNOTS and not close.any():
+            return cls(x, t.size, 0.0, "exact")
+        step = span / (MAX_KNOTS - 1)
+        if t.size <= MAX_KNOTS:
+            grp = np.concatenate([[0], np.cumsum(~close)])
+            centre = np.bincount(grp, weights=t * counts) / np.bincount(grp, weights=counts)
+            snapped = centre[grp][inv]
+            shift = float(np.abs(snapped - x).max())
+            if shift <= step / 2:  # merged runs stay narrower than a grid cell
+                return cls(snapped, int(grp[-1] + 1), shift, "merged")
+        snapped = np.minimum(t[0] + np.rint((x - t[0]) / step) * step, t[-1])
+        return cls(snapped, int(np.unique(snapped).size), float(np.abs(snapped - x).max()), "grid")
+
 
 def average_ties(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Distinct sorted x, the mean y at each, and the counts as weights."""
