@@ -198,13 +198,14 @@ class Spline(Method):
         targets = m + np.geomspace(0.25, max(n / 2 - m, 1.0), GRID_SIZE)
         return self.order(thinplate.lam_for_df(eig.ev, m, targets).tolist())
 
-    def _full_eigen(self, X, folds, settings, work) -> thinplate.Eigen:
+    def _full_eigen(self, X, folds, settings, work) -> thinplate.Decomposition:
         """The thin-plate decomposition of all rows, built once per run (with eigenvectors
-        only where leave-one-out or GCV need them)."""
+        only where leave-one-out needs them)."""
         work = {} if work is None else work
         if "eigen" not in work:
             Xs = Scaler.fit(X, self._scale(settings)).transform(X)
-            work["eigen"] = thinplate.Eigen.build(Xs, vectors=folds.scheme != "kfold")
+            kind = thinplate.Eigen if folds.scheme == "loo" else thinplate.Tridiagonal
+            work["eigen"] = kind(Xs)
         return work["eigen"]
 
     # -- one feature ------------------------------------------------------------------
@@ -262,7 +263,7 @@ class Spline(Method):
             oof = np.empty((lams.size, folds.repeats, n))
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
-                eig = thinplate.Eigen.build(sc.transform(X[train]))
+                eig = thinplate.Tridiagonal(sc.transform(X[train]))
                 C, B = eig.coefficients(y[train], lams)
                 oof[:, r, test] = eig.predict(C, B, sc.transform(X[test])).T
             return PathResult(oof, df)
@@ -309,6 +310,6 @@ class Spline(Method):
             ) from None
         df = self._df(work, lam)
         if df is None:
-            df = float(thinplate.Eigen.build(Xs, vectors=False).df(np.array([lam]))[0])
+            df = float(thinplate.Tridiagonal(Xs).df(np.array([lam]))[0])
         fitted = thinplate.kernel(Xs, Xs) @ c + thinplate.poly(Xs) @ b
         return FittedThinPlate(sc, Xs, c, b, lam, fitted, df)
