@@ -47,8 +47,31 @@ def _all_k(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.ndarray
     """Predictions for k = 1..kmax from sorted neighbor distances ``d`` and targets ``yn``.
 
     Every run of tied distances must be complete within the window, except a run that
-    starts after column kmax - 1.
+    starts after column kmax - 1. Rows without any tie among their first kmax + 1 distances
+    (the usual case with continuous features) take a shortcut: plain running means.
     """
+    w = d.shape[1]
+    plain = (d[:, 1 : min(kmax + 1, w)] != d[:, : min(kmax, w - 1)]).all(axis=1)
+    plain &= d[:, 0] > 0
+    if plain.all():
+        return _no_ties(d, yn, kmax, weights)
+    out = np.empty((d.shape[0], kmax))
+    if plain.any():
+        out[plain] = _no_ties(d[plain], yn[plain], kmax, weights)
+    tied = ~plain
+    out[tied] = _with_ties(d[tied], yn[tied], kmax, weights)
+    return out
+
+
+def _no_ties(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.ndarray:
+    ks = np.arange(1, kmax + 1)[None, :]
+    if weights == "uniform":
+        return np.cumsum(yn[:, :kmax], axis=1) / ks
+    wgt = 1.0 / d[:, :kmax]
+    return np.cumsum(wgt * yn[:, :kmax], axis=1) / np.cumsum(wgt, axis=1)
+
+
+def _with_ties(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.ndarray:
     m, w = d.shape
     cols = np.arange(w)
     new = np.ones((m, w), dtype=bool)
