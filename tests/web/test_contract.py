@@ -16,9 +16,9 @@ KEPT = Path(__file__).resolve().parents[2] / "openapi" / "openapi.json"
 METHODS = ["knn", "linear", "spline"]
 
 
-def response_validator() -> Draft202012Validator:
+def response_validator(name: str = "PredictResponse") -> Draft202012Validator:
     doc = json.loads(KEPT.read_text(encoding="utf-8"))
-    schema = {"$ref": "#/components/schemas/PredictResponse", **{"components": doc["components"]}}
+    schema = {"$ref": f"#/components/schemas/{name}", **{"components": doc["components"]}}
     return Draft202012Validator(schema)
 
 
@@ -61,5 +61,12 @@ def test_fitted_values_carry_residuals(client, method: str) -> None:
 def test_methods_catalogue(client) -> None:
     resp = client.get("/v1/methods")
     assert resp.status_code == 200
-    names = [m["name"] for m in resp.get_json()["methods"]]
+    doc = resp.get_json()
+    errors = sorted(response_validator("Methods").iter_errors(doc), key=str)
+    assert not errors, errors[0]
+    names = [m["name"] for m in doc["methods"]]
     assert set(METHODS) <= set(names)
+    for m in doc["methods"]:
+        assert m["default_grid"] and m["std_error"] and m["references"]
+        tuned = [p for p in m["parameters"] if p["tunable"]]
+        assert [p["name"] for p in tuned] == [m["tuned"]] and tuned[0]["simpler"]

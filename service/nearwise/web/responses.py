@@ -87,12 +87,46 @@ class PredictResponse(Strict):
     warnings = fields.List(fields.Nested(WarningSchema))
 
 
+class ParameterSchema(Strict):
+    name = fields.String(metadata=_doc("Parameter name, as used in `params` and `grid`."))
+    type = fields.String(metadata=_doc("`integer`, `number`, `choice` or `boolean`."))
+    doc = fields.String(metadata=_doc("What the parameter does."))
+    tunable = fields.Boolean(metadata=_doc("True for the parameter tuned by cross-validation."))
+    default = Scalar(metadata=_doc("Value used when the parameter is neither given nor tuned."))
+    minimum = fields.Float(metadata=_doc("Smallest accepted value."))
+    maximum = fields.Float(metadata=_doc("Largest accepted value."))
+    choices = fields.List(fields.String(), metadata=_doc("Accepted values of a choice."))
+    simpler = fields.String(
+        metadata=_doc("`larger` or `smaller`: the direction that gives the simpler model.")
+    )
+
+
+class FeatureRangeSchema(Strict):
+    min = fields.Integer(metadata=_doc("Fewest features the method accepts."))
+    max = fields.Integer(allow_none=True, metadata=_doc("Most features; null for no limit."))
+
+
+class MethodSchema(Strict):
+    name = fields.String(metadata=_doc("Method name, as used in `method`."))
+    summary = fields.String(metadata=_doc("What the method fits."))
+    features = fields.Nested(FeatureRangeSchema, metadata=_doc("Supported dimensions."))
+    parameters = fields.List(fields.Nested(ParameterSchema))
+    tuned = fields.String(metadata=_doc("The parameter tuned by cross-validation."))
+    default_grid = fields.String(metadata=_doc("The candidates tried when no grid is given."))
+    schemes = fields.List(fields.String(), metadata=_doc("Tuning schemes the method supports."))
+    interval_kinds = fields.List(
+        fields.String(), metadata=_doc("Prediction interval kinds offered (none yet).")
+    )
+    std_error = fields.String(metadata=_doc("How `std_error` is computed."))
+    references = fields.List(fields.String(), metadata=_doc("Published sources of the method."))
+
+
 class MethodsResponse(Strict):
     methods = fields.List(
-        fields.Dict(),
+        fields.Nested(MethodSchema),
         metadata=_doc(
-            "Per method: summary, dimensions, parameters (type, range, default grid, simpler "
-            "direction), interval kinds and how `std_error` is computed."
+            "Per method: summary, dimensions, parameters (type, range, simpler direction), "
+            "default grid, interval kinds and how `std_error` is computed."
         ),
     )
     tuning = fields.Dict(metadata=_doc("The tuning schemes, rules and metrics, with defaults."))

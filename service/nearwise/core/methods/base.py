@@ -120,6 +120,7 @@ class Method:
     schemes: tuple[str, ...] = ("kfold", "loo", "gcv")
     params: tuple[Param, ...] = ()
     tuned: str = ""
+    default_grid: str = ""
     std_error_doc: str = ""
     references: tuple[str, ...] = ()
 
@@ -190,7 +191,9 @@ class Method:
             "features": {"min": self.min_features, "max": self.max_features},
             "parameters": [p.describe() for p in self.params],
             "tuned": self.tuned,
+            "default_grid": self.default_grid,
             "schemes": list(self.schemes),
+            "interval_kinds": [],
             "std_error": self.std_error_doc,
             "references": list(self.references),
         }

@@ -182,6 +182,7 @@ class KNN(Method):
     max_features = None
     schemes = ("kfold", "loo")
     tuned = "k"
+    default_grid = "k = 1, 2, ..., min(50, rows in the smallest training fold - 1)"
     params = (
         Param(
             "k",

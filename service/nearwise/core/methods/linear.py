@@ -142,6 +142,7 @@ class Linear(Method):
         "degree is more flexible."
     )
     tuned = "degree"
+    default_grid = "degree = 1, 2, 3 (degrees the data cannot determine are left out)"
     params = (
         Param(
             "degree",

@@ -103,6 +103,10 @@ class Spline(Method):
     min_features = 1
     max_features = 3
     tuned = "smoothing"
+    default_grid = (
+        "20 values spaced evenly on a log scale, from about 2 (one feature) or p + 1.25 effective "
+        "degrees of freedom to about half the distinct rows"
+    )
     params = (
         Param(
             "smoothing",
