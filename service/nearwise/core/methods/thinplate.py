@@ -27,17 +27,15 @@ import warnings
 
 import numpy as np
 from scipy import linalg
-from scipy.linalg import lapack
+from scipy.linalg import blas, lapack
 from scipy.spatial.distance import cdist
+from scipy.special import xlogy
 
 
 def kernel(A: np.ndarray, B: np.ndarray) -> np.ndarray:
-    """phi(|a - b|) = r^2 log r, with phi(0) = 0."""
-    r = cdist(A, B)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        k = r**2 * np.log(r)
-    k[r == 0] = 0.0
-    return k
+    """phi(|a - b|) = r^2 log r = (1/2) r^2 log r^2, with phi(0) = 0."""
+    d2 = cdist(A, B, "sqeuclidean")
+    return 0.5 * xlogy(d2, d2)
 
 
 def poly(X: np.ndarray) -> np.ndarray:
@@ -67,8 +65,8 @@ class Decomposition:
         self.V, self.T, self.R = V, T, np.triu(R[:k, :k])
         Y = self.K @ V
         Z = Y @ T - 0.5 * V @ (T.T @ (V.T @ Y) @ T)
-        M = self.K[k:, k:] - Z[k:] @ V[k:].T - V[k:] @ Z[k:].T
-        self.M = (M + M.T) / 2
+        # Only the lower triangle of M is formed and read (dsytrd and eigh use lower=True).
+        self.M = blas.dsyr2k(-1.0, Z[k:], V[k:], beta=1.0, c=self.K[k:, k:], lower=1)
         self.n_poly = k
 
     def q2t(self, Y: np.ndarray) -> np.ndarray:
@@ -138,18 +136,23 @@ class Tridiagonal(Decomposition):
         self.ev = lapack.dsterf(self.d, self.e)[0]
 
     def _apply(self, Y: np.ndarray, transpose: bool) -> np.ndarray:
-        """H' Y (transpose) or H Y, with H = H(1) ... H(m-1) from dsytrd's lower storage."""
-        Y = Y.copy()
+        """H' Y (transpose) or H Y, with H = H(1) ... H(m-1) from dsytrd's lower storage.
+
+        H = diag(1, Q~), where Q~ holds the same reflectors in the layout of a QR
+        factorization of the trailing block, so LAPACK's blocked dormqr applies it.
+        """
         m = Y.shape[0]
-        order = range(m - 1) if transpose else range(m - 2, -1, -1)
-        for i in order:
-            t = self.tau[i]
-            if t == 0.0:
-                continue
-            v = self.refl[i + 1 :, i].copy()
-            v[0] = 1.0
-            Y[i + 1 :] -= t * np.outer(v, v @ Y[i + 1 :])
-        return Y
+        out = Y.copy()
+        if m < 2:
+            return out
+        a = self.refl[1:, : m - 1]
+        c = np.asfortranarray(Y[1:])
+        lwork = max(1, c.shape[1]) * 64
+        res, _, info = lapack.dormqr("L", "T" if transpose else "N", a, self.tau, c, lwork)
+        if info != 0:  # pragma: no cover - LAPACK argument errors only
+            raise linalg.LinAlgError(f"dormqr failed ({info})")
+        out[1:] = res
+        return out
 
     def solve(self, z, lams):
         w = self._apply(z[:, None], transpose=True)[:, 0]
