@@ -138,7 +138,7 @@ def test_spline_with_four_features_names_the_methods_that_apply():
     [
         ({"tuning": TuningSpec(scheme="gcv")}, ("tuning", "scheme")),
         ({"tuning": TuningSpec(scheme="loo", repeats=2)}, ("tuning", "repeats")),
-        ({"interval": IntervalSpec()}, ("interval",)),
+        ({"interval": IntervalSpec(kind="model")}, ("interval", "kind")),
         ({"grid": {"weights": ["uniform"]}}, ("grid", "weights")),
     ],
 )

@@ -116,3 +116,20 @@ def test_gcv_equals_its_definition(method, values, p):
         gcv = n * rss / (n - np.trace(A)) ** 2
         assert_allclose(path.df[c], np.trace(A), rtol=1e-7)
         assert_allclose(scores.error[c] ** 2, gcv, rtol=1e-7)
+
+
+@pytest.mark.parametrize(("method", "settings", "values"), [*CASES, (Spline(), {}, [1e-3, 1.0])])
+@pytest.mark.parametrize("p", [1, 2])
+def test_fold_models_reproduce_the_out_of_fold_predictions(method, settings, values, p):
+    """The models kept from the path (for intervals) are the ones that scored the path."""
+    rng = np.random.default_rng(9)
+    X = rng.uniform(0, 4, size=(60, p))
+    y = np.sin(X[:, 0]) + rng.normal(0, 0.2, 60)
+    folds = tuning.make_folds(60, TuningSpec(folds=4, repeats=2, seed=3))
+    path = method.path(X, y, folds, settings, values)
+    assert len(path.fold_models) == 4
+    for f, model in enumerate(path.fold_models):
+        test = np.flatnonzero(folds.fold_id[0] == f)
+        for c in range(len(values)):
+            # Same arrays, same arithmetic: equal to rounding.
+            assert_allclose(model.predict(X[test], c), path.oof[c, 0, test], rtol=1e-10, atol=1e-12)

@@ -43,6 +43,9 @@ def test_predict_contract(client, method: str) -> None:
     assert doc["fit"]["n_train"] == 40 and doc["fit"]["rows_dropped"] == 0
     assert set(doc["params"]) >= set(doc["tuning"]["best"])
     assert "NaN" not in first.get_data(as_text=True)
+    for p in doc["predictions"]:
+        assert p["lower"] <= p["value"] <= p["upper"] and p["std_error"] >= 0
+    assert doc["interval"]["level"] == 0.9 and doc["interval"]["construction"] == "cv_plus"
 
     as_csv = client.post("/v1/predict", json=request, headers={"Accept": "text/csv"})
     rows = list(csv.reader(io.StringIO(as_csv.get_data(as_text=True))))

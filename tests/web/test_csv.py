@@ -98,8 +98,11 @@ def test_csv_answer_has_the_query_columns_then_the_predictions(client) -> None:
 def test_csv_answer_without_query_carries_residuals(client) -> None:
     resp = post_csv(client, table_csv(curve()), "method=knn&target=y", Accept="text/csv")
     rows = read(resp.get_data(as_text=True))
-    assert rows[0] == ["x", "y", "prediction", "residual", "std_error", "lower", "upper", "flags"]
+    head = ["x", "y", "prediction", "residual", "cv_residual", "std_error", "lower", "upper"]
+    assert rows[0] == [*head, "flags"]
     assert len(rows) == 41
+    for r in rows[1:]:  # every row carries finite error figures with lower <= value <= upper
+        assert float(r[6]) <= float(r[2]) <= float(r[7]) and float(r[5]) > 0
 
 
 def test_dataset_warnings_go_in_a_header(client) -> None:

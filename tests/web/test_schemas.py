@@ -73,7 +73,7 @@ def test_all_faults_are_listed(client) -> None:
         ({"params": {"kk": 3}}, "/params/kk"),
         ({"target": "z"}, "/target"),
         ({"features": ["w"]}, "/features/0"),
-        ({"interval": {"level": 0.8}}, "/interval"),
+        ({"interval": {"kind": "model"}}, "/interval/kind"),
     ],
 )
 def test_core_faults_are_422_with_the_core_pointer(client, changes: dict, pointer: str) -> None:

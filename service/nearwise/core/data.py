@@ -266,3 +266,6 @@ class Scaler:
 
     def transform(self, X: np.ndarray) -> np.ndarray:
         return (X - self.shift) / self.scale
+
+    def inverse(self, Z: np.ndarray) -> np.ndarray:
+        return Z * self.scale + self.shift

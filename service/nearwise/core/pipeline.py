@@ -6,7 +6,7 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import tuning
+from nearwise.core import tuning, uncertainty
 from nearwise.core.budget import Deadline
 from nearwise.core.data import prepare
 from nearwise.core.errors import BadCell, NotApplicable, UnknownName, Where
@@ -44,12 +44,7 @@ def run(job: Job) -> PredictResult:
     deadline = Deadline(job.time_budget_s)
     method = get_method(job.method)
     tuning.check_spec(job.tuning)
-    if job.interval is not None:
-        raise NotApplicable(
-            "prediction intervals are not offered by this version of the service; leave out "
-            "`interval`.",
-            [Where(("interval",), "not offered yet")],
-        )
+    uncertainty.check(job.interval, method)
     if job.tuning.scheme not in method.schemes:
         raise NotApplicable(
             f"`tuning.scheme` {job.tuning.scheme} does not apply to {method.name}; use one of "
@@ -73,48 +68,66 @@ def run(job: Job) -> PredictResult:
     best, chosen = tuning.choose(scores.error, scores.error_se, job.tuning.rule)
     value = values[chosen]
     model = method.fit(X, y, settings, value, work)
+    deadline.check()
 
-    notices: list[Notice] = []
-    if data.rows_dropped:
-        notices.append(
-            Notice(
-                "target_missing",
-                f"{data.rows_dropped} training row(s) have no value for `{data.target}` and were "
-                "left out of the fit; they still get predictions.",
-                tuple(int(i) for i in np.flatnonzero(np.isnan(data.y_all))),
-            )
-        )
-    if len(values) > 1 and chosen in (0, len(values) - 1) and not method.is_bound(value, folds):
-        end = "simplest" if chosen == 0 else "most flexible"
-        notices.append(
-            Notice(
-                "tuning_at_edge",
-                f"the chosen `{method.tuned}` = {value} is the {end} candidate in the grid; the "
-                "best value may lie beyond it. Widen the grid in that direction.",
-            )
-        )
-    notices.extend(model.notices())
-    if not np.all(np.isfinite(path.df)):
-        notices.append(
-            Notice(
-                "df_unavailable",
-                "the effective degrees of freedom could not be computed stably for some "
-                "candidates (nearly coincident x values); they are reported as null.",
-            )
-        )
-
-    where = data.X_query if data.X_query is not None else data.X_all
+    at_query = data.X_query is not None
+    where = data.X_query if at_query else data.X_all
     with np.errstate(over="ignore", invalid="ignore"):
         value_at = model.predict(where)
         summary = model.summary(data.features)
-    _check_predictions(value_at, "query" if data.X_query is not None else "train")
-    residual = None if data.X_query is not None else data.y_all - value_at
+    _check_predictions(value_at, "query" if at_query else "train")
+    sigma_cv = float(np.sqrt(np.mean(scores.residual[chosen] ** 2)))
+    bars = uncertainty.compute(
+        job.interval, model, path, folds, chosen, X, y, where, value_at, sigma_cv
+    )
+    notices = [
+        *_fit_notices(data, method, values, chosen, folds, path, model, at_query),
+        *bars.notices,
+    ]
+    cv_residual = None
+    if not at_query:
+        cv_residual = _cv_residual(data, canon, path, folds, chosen, model)
+        notices.extend(_unusual(cv_residual))
     params: dict[str, Any] = {
         **{k: v for k, v in settings.items() if v is not None},
         method.tuned: value,
     }
     params.update(method_extra_params(method, settings, value, X.shape[1]))
-    report = TuningReport(
+    resid = scores.residual[chosen]
+    tss = float(np.sum((y - y.mean()) ** 2)) * resid.shape[0]
+    fit = FitReport(
+        n_train=int(X.shape[0]),
+        rows_dropped=data.rows_dropped,
+        cv_error=float(scores.error[chosen]),
+        cv_error_se=float(scores.error_se[chosen]),
+        cv_r2=(1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None,
+        train_error=_error(y - model.fitted, job.tuning.metric),
+        df=model.df,
+    )
+    return PredictResult(
+        method=method.name,
+        target=data.target,
+        features=data.features,
+        params=params,
+        tuning=_report(job, method, folds, values, best, scores, path),
+        fit=fit,
+        model=summary,
+        predictions=Predictions(
+            value=value_at,
+            residual=None if at_query else data.y_all - value_at,
+            std_error=bars.std_error,
+            lower=bars.lower,
+            upper=bars.upper,
+            flags=_row_flags(notices, value_at.shape[0]),
+            cv_residual=cv_residual,
+        ),
+        warnings=tuple(notices),
+        interval=bars.report,
+    )
+
+
+def _report(job, method, folds, values, best, scores, path) -> TuningReport:
+    return TuningReport(
         scheme=job.tuning.scheme,
         folds=folds.n_folds if folds.scheme != "gcv" else None,
         repeats=folds.repeats,
@@ -133,30 +146,96 @@ def run(job: Job) -> PredictResult:
             for c, v in enumerate(values)
         ),
     )
-    resid = scores.residual[chosen]
-    tss = float(np.sum((y - y.mean()) ** 2)) * resid.shape[0]
-    fit = FitReport(
-        n_train=int(X.shape[0]),
-        rows_dropped=data.rows_dropped,
-        cv_error=float(scores.error[chosen]),
-        cv_error_se=float(scores.error_se[chosen]),
-        cv_r2=(1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None,
-        train_error=_error(y - model.fitted, job.tuning.metric),
-        df=model.df,
-    )
-    return PredictResult(
-        method=method.name,
-        target=data.target,
-        features=data.features,
-        params=params,
-        tuning=report,
-        fit=fit,
-        model=summary,
-        predictions=Predictions(
-            value=value_at, residual=residual, flags=tuple(() for _ in range(value_at.shape[0]))
-        ),
-        warnings=tuple(notices),
-    )
+
+
+def _fit_notices(data, method, values, chosen, folds, path, model, at_query) -> list[Notice]:
+    notices: list[Notice] = []
+    if data.rows_dropped:
+        missing = tuple(int(i) for i in np.flatnonzero(np.isnan(data.y_all)))
+        notices.append(
+            Notice(
+                "target_missing",
+                f"{data.rows_dropped} training row(s) have no value for `{data.target}` and were "
+                "left out of the fit; they still get predictions"
+                + (
+                    f" (training rows {', '.join(map(str, missing[:10]))}"
+                    f"{', ...' if len(missing) > 10 else ''})."
+                    if at_query
+                    else "."
+                ),
+                () if at_query else missing,
+            )
+        )
+    value = values[chosen]
+    if len(values) > 1 and chosen in (0, len(values) - 1) and not method.is_bound(value, folds):
+        end = "simplest" if chosen == 0 else "most flexible"
+        notices.append(
+            Notice(
+                "tuning_at_edge",
+                f"the chosen `{method.tuned}` = {value} is the {end} candidate in the grid; the "
+                "best value may lie beyond it. Widen the grid in that direction.",
+            )
+        )
+    notices.extend(model.notices())
+    if not np.all(np.isfinite(path.df)):
+        notices.append(
+            Notice(
+                "df_unavailable",
+                "the effective degrees of freedom could not be computed stably for some "
+                "candidates (nearly coincident x values); they are reported as null.",
+            )
+        )
+    return notices
+
+
+def _cv_residual(data, canon, path, folds, chosen, model) -> np.ndarray:
+    """Out-of-fold residual of every training row (averaged over repeats), NaN where the
+    target is missing; for GCV the exact leave-one-out residual."""
+    if folds.scheme == "gcv":
+        r = model.loo_residuals()
+    else:
+        r = data.y[canon] - path.oof[chosen].mean(axis=0)
+    out = np.full(data.y_all.shape, np.nan)
+    out[data.kept[canon]] = r
+    return out
+
+
+UNUSUAL_Z = 3.5
+
+
+def _unusual(cv_residual: np.ndarray) -> list[Notice]:
+    """Rows whose out-of-fold residual has a modified z-score above 3.5: 0.6745 |r - median|
+    / MAD (Iglewicz & Hoaglin 1993, "How to Detect and Handle Outliers", a common rule)."""
+    r = cv_residual[np.isfinite(cv_residual)]
+    if r.size < 3:
+        return []
+    med = np.median(r)
+    mad = np.median(np.abs(r - med))
+    if mad <= 0:
+        return []
+    with np.errstate(invalid="ignore"):
+        z = 0.6745 * np.abs(cv_residual - med) / mad
+    rows = np.flatnonzero(z > UNUSUAL_Z)
+    if not rows.size:
+        return []
+    return [
+        Notice(
+            "unusual_response",
+            f"{rows.size} training row(s) lie far from what the other rows predict: their "
+            f"out-of-fold residual has a modified z-score above {UNUSUAL_Z} (0.6745 |r - "
+            "median| / MAD). Check them for recording errors.",
+            tuple(int(i) for i in rows),
+        )
+    ]
+
+
+def _row_flags(notices: list[Notice], m: int) -> tuple[tuple[str, ...], ...]:
+    flags: list[list[str]] = [[] for _ in range(m)]
+    for notice in notices:
+        for r in notice.rows:
+            if 0 <= r < m and notice.code not in flags[r]:
+                flags[r].append(notice.code)
+    return tuple(tuple(f) for f in flags)
 
 
 def _check_predictions(value: np.ndarray, table: str) -> None:

@@ -59,8 +59,8 @@ class FitReport:
 class Predictions:
     """Per-row answers as arrays (one entry per query row, or per training row if no query).
 
-    ``residual`` is set only for fitted values at the training rows. ``flags`` holds, for each
-    row, the notice codes that concern it.
+    ``residual`` and ``cv_residual`` (out of fold) are set only for fitted values at the
+    training rows. ``flags`` holds, for each row, the notice codes that concern it.
     """
 
     value: np.ndarray
@@ -69,6 +69,7 @@ class Predictions:
     lower: np.ndarray | None = None
     upper: np.ndarray | None = None
     flags: tuple[tuple[str, ...], ...] = ()
+    cv_residual: np.ndarray | None = None
 
 
 @dataclass(frozen=True)

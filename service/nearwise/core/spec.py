@@ -29,10 +29,12 @@ class TuningSpec:
 
 @dataclass(frozen=True)
 class IntervalSpec:
-    """Prediction interval settings."""
+    """Prediction interval settings. ``adaptive`` scales the intervals by the local spread of
+    the residuals."""
 
     level: float = 0.9
     kind: str = "cv_plus"
+    adaptive: bool = False
 
 
 @dataclass(frozen=True)
@@ -51,5 +53,5 @@ class Job:
     params: Mapping[str, Any] = field(default_factory=dict)
     grid: Mapping[str, Sequence[Any]] = field(default_factory=dict)
     tuning: TuningSpec = field(default_factory=TuningSpec)
-    interval: IntervalSpec | None = None
+    interval: IntervalSpec = field(default_factory=IntervalSpec)
     time_budget_s: float | None = None

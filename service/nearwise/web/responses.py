@@ -46,8 +46,13 @@ class FitReportSchema(Strict):
 
 
 class IntervalReportSchema(Strict):
-    level = fields.Float()
-    kind = fields.String()
+    level = fields.Float(metadata=_doc("Coverage asked for."))
+    kind = fields.String(metadata=_doc("`cv_plus` or `model`."))
+    adaptive = fields.Boolean(metadata=_doc("Scaled by the local spread of the residuals."))
+    construction = fields.String(
+        metadata=_doc("`cv_plus` (K-fold), `jackknife_plus` (loo and gcv) or `model`.")
+    )
+    guarantee = fields.String(metadata=_doc("The finite-sample coverage guarantee."))
 
 
 class PredictionSchema(Strict):
@@ -56,9 +61,18 @@ class PredictionSchema(Strict):
         "Target minus fitted value; only without a query, null where the target is missing.",
         nullable=True,
     )
-    std_error = _num("Standard error of the prediction, where computed.", nullable=True)
-    lower = _num("Lower interval bound, where computed.", nullable=True)
-    upper = _num("Upper interval bound, where computed.", nullable=True)
+    cv_residual = _num(
+        "Out-of-fold residual (target minus the prediction of the model that did not see the "
+        "row); only without a query, null where the target is missing.",
+        nullable=True,
+    )
+    std_error = _num(
+        "Standard error of the prediction (see GET /v1/methods for each method's formula); "
+        "null where it is undefined.",
+        nullable=True,
+    )
+    lower = _num("Lower interval bound; null where unbounded.", nullable=True)
+    upper = _num("Upper interval bound; null where unbounded.", nullable=True)
     flags = fields.List(fields.String(), metadata=_doc("Warning codes concerning this row."))
 
 
@@ -80,7 +94,7 @@ class PredictResponse(Strict):
     tuning = fields.Nested(TuningReportSchema)
     fit = fields.Nested(FitReportSchema)
     model = fields.Dict(metadata=_doc("Method-specific summary; see GET /v1/methods."))
-    interval = fields.Nested(IntervalReportSchema, allow_none=True)
+    interval = fields.Nested(IntervalReportSchema)
     predictions = fields.List(
         fields.Nested(PredictionSchema), metadata=_doc("One per query row (or training row).")
     )

@@ -92,6 +92,13 @@ class IntervalSchema(Strict):
         validate=validate.OneOf(INTERVAL_KINDS),
         metadata=_doc("`cv_plus`, or `model` where the method has one.", default="cv_plus"),
     )
+    adaptive = fields.Boolean(
+        metadata=_doc(
+            "Scale `cv_plus` intervals by the local spread of the residuals, for noise that "
+            "varies with the features.",
+            default=False,
+        )
+    )
 
 
 class PredictFields(Strict):

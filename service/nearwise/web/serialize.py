@@ -12,7 +12,7 @@ from nearwise.web.csvio import write_predictions
 from nearwise.web.jsonio import jsonable
 from nearwise.web.tables import Parsed
 
-_OPTIONAL = ("residual", "std_error", "lower", "upper")
+_OPTIONAL = ("residual", "cv_residual", "std_error", "lower", "upper")
 
 
 def predict_document(result: PredictResult) -> dict[str, Any]:
@@ -70,13 +70,15 @@ def predict_csv(result: PredictResult, rows: Parsed) -> str:
     """The CSV answer: the rows' own columns as sent, then the prediction columns.
 
     ``rows`` is the query table, or the training table when there is no query; in that case
-    a ``residual`` column follows ``prediction``.
+    ``residual`` and ``cv_residual`` columns follow ``prediction``.
     """
     preds = result.predictions
     n = len(preds.value)
     extra: dict[str, list[Any]] = {"prediction": _texts(preds.value, n)}
     if preds.residual is not None:
         extra["residual"] = _texts(preds.residual, n)
+    if preds.cv_residual is not None:
+        extra["cv_residual"] = _texts(preds.cv_residual, n)
     for k in ("std_error", "lower", "upper"):
         extra[k] = _texts(getattr(preds, k), n)
     extra["flags"] = [" ".join(f) for f in _flags(preds, n)]

@@ -97,12 +97,21 @@ class PathResult:
     """Out-of-fold predictions for every candidate, and their effective degrees of freedom.
 
     ``oof`` has shape (candidates, repeats, n). For ``gcv`` it holds fitted values (one
-    repeat) and ``gcv_scale`` holds 1 - df/n per candidate.
+    repeat) and ``gcv_scale`` holds 1 - df/n per candidate. For K-fold, ``fold_models`` holds
+    the models of the first repeat's folds, in fold order, kept from the path so that
+    intervals need no refit: each has ``predict(Xq, c)`` for candidate index c.
     """
 
     oof: np.ndarray
     df: np.ndarray
     gcv_scale: np.ndarray | None = None
+    fold_models: tuple[FoldModel, ...] = ()
+
+
+class FoldModel(Protocol):
+    """A model fitted to one training fold, for every candidate of the path."""
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray: ...
 
 
 class Method:
@@ -121,6 +130,7 @@ class Method:
     params: tuple[Param, ...] = ()
     tuned: str = ""
     default_grid: str = ""
+    interval_kinds: tuple[str, ...] = ("cv_plus",)
     std_error_doc: str = ""
     references: tuple[str, ...] = ()
 
@@ -193,7 +203,7 @@ class Method:
             "tuned": self.tuned,
             "default_grid": self.default_grid,
             "schemes": list(self.schemes),
-            "interval_kinds": [],
+            "interval_kinds": list(self.interval_kinds),
             "std_error": self.std_error_doc,
             "references": list(self.references),
         }

@@ -136,8 +136,41 @@ def predict_all_k(
     return out
 
 
+def _complete_windows(index: NearestNeighbors, Xq: np.ndarray, need: int, n_index: int):
+    """Yield ``(rows, d, ind)`` groups whose windows hold the ``need`` nearest neighbors and
+    every row tied with the last of them (widening the query where a tie run is cut off)."""
+    rows = np.arange(Xq.shape[0])
+    width = min(need + 8, n_index)
+    while rows.size:
+        d, ind = index.kneighbors(Xq[rows], n_neighbors=width)
+        if width < n_index:
+            open_run = d[:, min(need, width) - 1] == d[:, -1]
+        else:
+            open_run = np.zeros(rows.size, dtype=bool)
+        done = ~open_run
+        if done.any():
+            yield rows[done], d[done], ind[done]
+        rows = rows[open_run]
+        width = min(2 * width, n_index)
+
+
 def _index(Xs: np.ndarray) -> NearestNeighbors:
     return NearestNeighbors().fit(Xs)
+
+
+@dataclass(frozen=True)
+class FoldKNN:
+    """The neighbor index of one training fold."""
+
+    scaler: Scaler
+    index: NearestNeighbors
+    y: np.ndarray
+    weights: str
+    values: tuple[int, ...]
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        k = self.values[c]
+        return predict_all_k(self.index, self.y, self.scaler.transform(Xq), k, self.weights)[:, -1]
 
 
 @dataclass
@@ -159,6 +192,32 @@ class FittedKNN:
 
     def notices(self) -> list:
         return []
+
+    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
+        """sigma / sqrt(k): the noise in an average of k targets; the bias of the local
+        average is not included."""
+        return np.full(Xq.shape[0], sigma_cv / np.sqrt(self.k))
+
+    def loo_predictions(self, Xq: np.ndarray):
+        """mu_{-i}(x0) for every training row i, by blocks of query rows.
+
+        Leaving out a row changes a prediction only if the row is among its k nearest
+        neighbors (or tied with the k-th); those few are recomputed from one wider query.
+        """
+        Xs = self.scaler.transform(Xq)
+        base = self.predict(Xq)
+        n = self.y.shape[0]
+
+        def block(rows: np.ndarray) -> np.ndarray:
+            out = np.repeat(base[rows, None], n, axis=1)
+            for sub, d, ind in _complete_windows(self.index, Xs[rows], self.k + 1, n):
+                for j in range(d.shape[1]):
+                    keep = np.delete(np.arange(d.shape[1]), j)
+                    pred = _all_k(d[:, keep], self.y[ind[:, keep]], self.k, self.weights)
+                    out[sub, ind[:, j]] = pred[:, -1]
+            return out
+
+        return block
 
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
         n = self.y.shape[0]
@@ -268,16 +327,19 @@ class KNN(Method):
                 self_rows=np.arange(X.shape[0]),
             )
             oof = pred[:, cols].T[:, None, :]
+            models = ()
         else:
             oof = np.empty((len(values), folds.repeats, X.shape[0]))
+            models = []
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
-                pred = predict_all_k(
-                    _index(sc.transform(X[train])), y[train], sc.transform(X[test]), kmax, weights
-                )
+                index = _index(sc.transform(X[train]))
+                pred = predict_all_k(index, y[train], sc.transform(X[test]), kmax, weights)
                 oof[:, r, test] = pred[:, cols].T
+                if r == 0:
+                    models.append(FoldKNN(sc, index, y[train], weights, tuple(values)))
         df = X.shape[0] / np.asarray(values, dtype=float)
-        return PathResult(oof, df)
+        return PathResult(oof, df, fold_models=tuple(models))
 
     def fit(self, X, y, settings, value, work=None):
         k = int(value)

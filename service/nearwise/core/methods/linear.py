@@ -75,6 +75,20 @@ def qr_kept(D: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return Q, R, kept
 
 
+@dataclass(frozen=True)
+class FoldLinear:
+    """The coefficients of every degree on one training fold."""
+
+    shift: np.ndarray
+    scale: np.ndarray
+    terms: list[tuple[int, ...]]
+    betas: tuple[tuple[np.ndarray, np.ndarray], ...]  # (columns used, coefficients)
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        cols, beta = self.betas[c]
+        return design((Xq - self.shift) / self.scale, self.terms)[:, cols] @ beta
+
+
 @dataclass
 class FittedLinear:
     """A polynomial least-squares fit on all usable rows."""
@@ -89,9 +103,48 @@ class FittedLinear:
     n: int
     fitted: np.ndarray
     df: float
+    Q: np.ndarray
+    y: np.ndarray
 
     def predict(self, Xq: np.ndarray) -> np.ndarray:
         return design((Xq - self.shift) / self.scale, self.terms) @ self.beta
+
+    def _a(self, Xq: np.ndarray) -> np.ndarray:
+        """R^-T d0 for each query row: then x0'(X'X)^-1 x0 = |a0|^2 and x0'(X'X)^-1 xi = a0'qi."""
+        D0 = design((Xq - self.shift) / self.scale, self.terms)
+        return linalg.solve_triangular(self.R, D0.T, trans="T").T
+
+    def leverage(self, Xq: np.ndarray) -> np.ndarray:
+        """h0 = x0'(X'X)^-1 x0, by QR (never an inverse of X'X)."""
+        return np.sum(self._a(Xq) ** 2, axis=1)
+
+    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
+        """Standard error of the fitted mean: sigma sqrt(h0)."""
+        return self.sigma * np.sqrt(self.leverage(Xq))
+
+    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
+        """Classical t interval for a new observation: f +/- t sigma sqrt(1 + h0)."""
+        t = stats.t.ppf(0.5 + level / 2, self.n - len(self.terms))
+        half = t * self.sigma * np.sqrt(1.0 + self.leverage(Xq))
+        f = self.predict(Xq)
+        return f - half, f + half
+
+    def loo_residuals(self) -> np.ndarray:
+        h = np.sum(self.Q**2, axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (self.y - self.fitted) / (1.0 - h)
+
+    def loo_predictions(self, Xq: np.ndarray):
+        """mu_{-i}(x0) = mu(x0) - a0'q_i e_i / (1 - h_i): the deletion formula of least
+        squares (Belsley, Kuh & Welsch 1980), for every training row i."""
+        A = self._a(Xq)
+        base = A @ (self.Q.T @ self.y)  # equals predict(Xq)
+        step = self.loo_residuals()
+
+        def block(rows: np.ndarray) -> np.ndarray:
+            return base[rows, None] - (A[rows] @ self.Q.T) * step[None, :]
+
+        return block
 
     def raw_transform(self) -> np.ndarray:
         """T with raw coefficients = T @ standardised coefficients (same monomial set)."""
@@ -142,6 +195,7 @@ class Linear(Method):
         "degree is more flexible."
     )
     tuned = "degree"
+    interval_kinds = ("cv_plus", "model")
     default_grid = "degree = 1, 2, 3 (degrees the data cannot determine are left out)"
     params = (
         Param(
@@ -234,14 +288,19 @@ class Linear(Method):
         sizes = [len(self._terms(p, d, settings)) for d in values]
         if folds.scheme == "kfold":
             oof = np.empty((len(values), folds.repeats, n))
+            models = []
             for r, _f, train, test in folds.splits():
                 Q, R, kept = qr_kept(D[train])
                 qty = Q.T @ y[train]
+                betas = []
                 for c, size in enumerate(sizes):
                     q = int(np.count_nonzero(kept < size))
                     beta = linalg.solve_triangular(R[:q, :q], qty[:q])
                     oof[c, r, test] = D[np.ix_(test, kept[:q])] @ beta
-            return PathResult(oof, np.asarray(sizes, dtype=float))
+                    betas.append((kept[:q], beta))
+                if r == 0:
+                    models.append(FoldLinear(shift, scale, top, tuple(betas)))
+            return PathResult(oof, np.asarray(sizes, dtype=float), fold_models=tuple(models))
         Q, R, kept = qr_kept(D)
         qty = Q.T @ y
         fits = np.cumsum(Q * qty[None, :], axis=1)
@@ -274,4 +333,6 @@ class Linear(Method):
         tss = float(np.sum((y - y.mean()) ** 2))
         sigma = float(np.sqrt(rss / (n - len(terms))))
         r2 = 1.0 - rss / tss if tss > 0 else 1.0
-        return FittedLinear(terms, shift, scale, beta, R, sigma, r2, n, fitted, float(len(terms)))
+        return FittedLinear(
+            terms, shift, scale, beta, R, sigma, r2, n, fitted, float(len(terms)), Q, y
+        )

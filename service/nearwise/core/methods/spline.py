@@ -10,12 +10,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg
+from scipy import linalg, stats
 
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import NotApplicable, TooFewRows, UnsupportedDimension, Where
 from nearwise.core.methods import spline1d, thinplate
 from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.methods.posterior import Posterior, cubic_phi
 from nearwise.core.results import Notice
 
 GRID_SIZE = 20
@@ -23,8 +24,94 @@ MIN_DISTINCT = 5
 MAX_THIN_PLATE_ROWS = 3000
 
 
+@dataclass(frozen=True)
+class FoldSpline1D:
+    """Knot values and second derivatives of one training fold, for every candidate."""
+
+    t: np.ndarray
+    fits: tuple[tuple[np.ndarray, np.ndarray], ...]
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        g, gam = self.fits[c]
+        return spline1d.evaluate(self.t, g, gam, Xq[:, 0])
+
+
+@dataclass(frozen=True)
+class FoldThinPlate:
+    """Scaled training rows and coefficients of one training fold, for every candidate."""
+
+    scaler: Scaler
+    Xs: np.ndarray
+    C: np.ndarray
+    B: np.ndarray
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        Z = self.scaler.transform(Xq)
+        return thinplate.kernel(Z, self.Xs) @ self.C[:, c] + thinplate.poly(Z) @ self.B[:, c]
+
+
+class _Bayes:
+    """Error figures shared by both spline fits, from their posterior (Wahba 1983).
+
+    Subclasses set ``y`` (rows), ``fit_rows`` (the smoother's fit at the rows), ``column``
+    (each row's column in the smoother: its knot, or itself), ``count`` (rows per column),
+    ``df`` and ``smoothing``, and provide ``_posterior()``, ``_cross(Xq)`` and ``_diag()``.
+    """
+
+    _post: Posterior | None = None
+
+    def posterior(self) -> Posterior:
+        if self._post is None:
+            self._post = self._posterior()
+        return self._post
+
+    def sigma2(self) -> float:
+        """sigma^2 = RSS / (n - df), the residual variance of a linear smoother."""
+        n = self.y.size
+        if self.df is None or n - self.df <= 1e-9:
+            return float("nan")
+        return float(np.sum((self.y - self.fit_rows) ** 2) / (n - self.df))
+
+    def variance(self, Xq: np.ndarray) -> np.ndarray:
+        """Posterior variance of f(x0) in units of sigma^2."""
+        Phi0, P0 = self._cross(Xq)
+        return self.posterior().variance(Phi0, P0, np.zeros(Xq.shape[0]))
+
+    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
+        """Posterior standard deviation of f(x0)."""
+        with np.errstate(invalid="ignore"):
+            return np.sqrt(self.sigma2() * self.variance(Xq))
+
+    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
+        """The Bayesian band for a new observation: f +/- z sqrt(sigma^2 (1 + v(x0)))."""
+        z = stats.norm.ppf(0.5 + level / 2)
+        with np.errstate(invalid="ignore"):
+            half = z * np.sqrt(self.sigma2() * (1.0 + self.variance(Xq)))
+        f = self.predict(Xq)
+        return f - half, f + half
+
+    def loo_residuals(self) -> np.ndarray:
+        h = self._diag()[self.column] / self.count[self.column]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (self.y - self.fit_rows) / (1.0 - h)
+
+    def loo_predictions(self, Xq: np.ndarray):
+        """mu_{-i}(x0) = mu(x0) - s_i(x0) r_i with s_i the smoother weight of row i at x0 and
+        r_i the leave-one-out residual (the leave-one-out lemma of penalized least squares,
+        Green & Silverman 1994, section 3.2)."""
+        Phi0, P0 = self._cross(Xq)
+        base = self.predict(Xq)
+        step = self.loo_residuals() / self.count[self.column]
+
+        def block(rows: np.ndarray) -> np.ndarray:
+            omega, _ = self.posterior().weights(Phi0[rows], P0[rows])
+            return base[rows, None] - omega[:, self.column] * step[None, :]
+
+        return block
+
+
 @dataclass
-class FittedSpline1D:
+class FittedSpline1D(_Bayes):
     knots: spline1d.Knots
     g: np.ndarray
     gam: np.ndarray
@@ -32,6 +119,28 @@ class FittedSpline1D:
     fitted: np.ndarray
     df: float | None
     snap: spline1d.Snap
+    y: np.ndarray
+    column: np.ndarray
+
+    @property
+    def fit_rows(self) -> np.ndarray:
+        return self.g[self.column]
+
+    @property
+    def count(self) -> np.ndarray:
+        return self.knots.w
+
+    def _posterior(self) -> Posterior:
+        t, lam = self.knots.t, self.smoothing
+        P = np.column_stack([np.ones_like(t), t])
+        return Posterior(cubic_phi(t, t), P, lam / self.knots.w, lam)
+
+    def _cross(self, Xq):
+        x = Xq[:, 0]
+        return cubic_phi(x, self.knots.t), np.column_stack([np.ones_like(x), x])
+
+    def _diag(self) -> np.ndarray:
+        return self.knots.diag_smoother(self.smoothing)
 
     def predict(self, Xq):
         return spline1d.evaluate(self.knots.t, self.g, self.gam, Xq[:, 0])
@@ -65,7 +174,7 @@ class FittedSpline1D:
 
 
 @dataclass
-class FittedThinPlate:
+class FittedThinPlate(_Bayes):
     scaler: Scaler
     Xs: np.ndarray
     c: np.ndarray
@@ -73,6 +182,33 @@ class FittedThinPlate:
     smoothing: float
     fitted: np.ndarray
     df: float | None
+    y: np.ndarray
+
+    @property
+    def fit_rows(self) -> np.ndarray:
+        return self.fitted
+
+    @property
+    def column(self) -> np.ndarray:
+        return np.arange(self.y.size)
+
+    @property
+    def count(self) -> np.ndarray:
+        return np.ones(self.y.size)
+
+    def _posterior(self) -> Posterior:
+        n = self.y.size
+        K = thinplate.kernel(self.Xs, self.Xs)
+        lam = self.smoothing
+        return Posterior(K, thinplate.poly(self.Xs), np.full(n, lam), lam)
+
+    def _cross(self, Xq):
+        Z = self.scaler.transform(Xq)
+        return thinplate.kernel(Z, self.Xs), thinplate.poly(Z)
+
+    def _diag(self) -> np.ndarray:
+        omega, _ = self.posterior().weights(*self._cross(self.scaler.inverse(self.Xs)))
+        return np.diag(omega).copy()
 
     def predict(self, Xq):
         Z = self.scaler.transform(Xq)
@@ -103,6 +239,7 @@ class Spline(Method):
     min_features = 1
     max_features = 3
     tuned = "smoothing"
+    interval_kinds = ("cv_plus", "model")
     default_grid = (
         "20 values spaced evenly on a log scale, from about 2 (one feature) or p + 1.25 effective "
         "degrees of freedom to about half the distinct rows"
@@ -236,13 +373,16 @@ class Spline(Method):
             work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
         if folds.scheme == "kfold":
             oof = np.empty((lams.size, folds.repeats, n))
+            models = []
             for r, _f, train, test in folds.splits():
                 tt, yy, ww = spline1d.average_ties(spline1d.Snap.of(x[train]).x, y[train])
                 kn = spline1d.Knots.build(tt, ww)
-                for c, lam in enumerate(lams):
-                    g, gam = kn.solve(yy, lam)
+                fits = [kn.solve(yy, lam) for lam in lams]
+                for c, (g, gam) in enumerate(fits):
                     oof[c, r, test] = spline1d.evaluate(tt, g, gam, x[test])
-            return PathResult(oof, df)
+                if r == 0:
+                    models.append(FoldSpline1D(tt, tuple(fits)))
+            return PathResult(oof, df, fold_models=tuple(models))
         inv = np.searchsorted(t, xs)
         fitted = np.empty((lams.size, n))
         for c, lam in enumerate(lams):
@@ -265,12 +405,15 @@ class Spline(Method):
             work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
         if folds.scheme == "kfold":
             oof = np.empty((lams.size, folds.repeats, n))
+            models = []
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
                 eig = thinplate.Tridiagonal(sc.transform(X[train]))
                 C, B = eig.coefficients(y[train], lams)
                 oof[:, r, test] = eig.predict(C, B, sc.transform(X[test])).T
-            return PathResult(oof, df)
+                if r == 0:
+                    models.append(FoldThinPlate(sc, eig.X, C, B))
+            return PathResult(oof, df, fold_models=tuple(models))
         eig = full
         C, _ = eig.coefficients(y, lams)
         if folds.scheme == "gcv":
@@ -301,7 +444,8 @@ class Spline(Method):
                 df = float(kn.diag_smoother(lam).sum())
             fitted = spline1d.evaluate(t, g, gam, X[:, 0])
             df = df if np.isfinite(df) else None
-            return FittedSpline1D(kn, g, gam, lam, fitted, df, snap)
+            column = np.searchsorted(t, snap.x)
+            return FittedSpline1D(kn, g, gam, lam, fitted, df, snap, y, column)
         sc = Scaler.fit(X, self._scale(settings))
         Xs = sc.transform(X)
         try:
@@ -316,4 +460,4 @@ class Spline(Method):
         if df is None:
             df = float(thinplate.Tridiagonal(Xs).df(np.array([lam]))[0])
         fitted = thinplate.kernel(Xs, Xs) @ c + thinplate.poly(Xs) @ b
-        return FittedThinPlate(sc, Xs, c, b, lam, fitted, df)
+        return FittedThinPlate(sc, Xs, c, b, lam, fitted, df, y)

@@ -57,6 +57,6 @@ def build_job(intake: Intake, time_budget_s: float | None = None) -> Job:
         params=f.get("params", {}),
         grid=f.get("grid", {}),
         tuning=TuningSpec(**f.get("tuning", {})),
-        interval=IntervalSpec(**f["interval"]) if "interval" in f else None,
+        interval=IntervalSpec(**f.get("interval", {})),
         time_budget_s=time_budget_s,
     )

@@ -1,0 +1,129 @@
+"""Every prediction's error figures: std_error, and lower/upper at the asked level.
+
+``cv_plus`` (the default) reuses what tuning computed: K-fold CV+ from the fold models and
+out-of-fold residuals, or jackknife+ from leave-one-out updates (scheme ``loo``, and ``gcv``,
+whose linear smoothers give exact leave-one-out residuals). ``model`` is the method's own
+interval (linear: the t interval for a new observation; spline: the Bayesian band). The bounds
+are widened where needed so that lower <= value <= upper always holds (widening keeps the
+coverage guarantees).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from nearwise.core import intervals
+from nearwise.core.data import Scaler
+from nearwise.core.errors import InvalidValue, NotApplicable, Where
+from nearwise.core.methods.base import Fitted, Method, PathResult
+from nearwise.core.results import Notice
+from nearwise.core.spec import INTERVAL_KINDS, IntervalSpec
+from nearwise.core.tuning import Folds
+
+GUARANTEE = {
+    "kfold": "K-fold CV+: coverage at least 1 - 2 alpha - sqrt(2/n) for exchangeable rows "
+    "(Barber et al. 2021), usually close to 1 - alpha",
+    "loo": "jackknife+: coverage at least 1 - 2 alpha for exchangeable rows (Barber et al. "
+    "2021), usually close to 1 - alpha",
+}
+
+
+@dataclass(frozen=True)
+class ErrorBars:
+    std_error: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    report: dict
+    notices: tuple[Notice, ...]
+
+
+def check(spec: IntervalSpec, method: Method) -> None:
+    if not 0.0 < spec.level < 1.0:
+        raise InvalidValue(
+            f"`interval.level` must lie strictly between 0 and 1; got {spec.level}.",
+            [Where(("interval", "level"), "outside (0, 1)")],
+        )
+    if spec.kind not in INTERVAL_KINDS:
+        raise InvalidValue(
+            f"`interval.kind` must be one of {', '.join(INTERVAL_KINDS)}; got {spec.kind!r}.",
+            [Where(("interval", "kind"), "unknown kind")],
+        )
+    if spec.kind not in method.interval_kinds:
+        raise NotApplicable(
+            f"{method.name} has no interval of kind {spec.kind!r}; use "
+            f"{' or '.join(method.interval_kinds)}.",
+            [Where(("interval", "kind"), f"not offered by {method.name}")],
+        )
+    if spec.kind == "model" and spec.adaptive:
+        raise NotApplicable(
+            "`interval.adaptive` applies to `cv_plus` intervals; a model interval has its own "
+            "width. Leave out `adaptive` or use kind `cv_plus`.",
+            [Where(("interval", "adaptive"), "not used by model intervals")],
+        )
+
+
+def compute(
+    spec: IntervalSpec,
+    model: Fitted,
+    path: PathResult,
+    folds: Folds,
+    chosen: int,
+    X: np.ndarray,
+    y: np.ndarray,
+    Xq: np.ndarray,
+    value: np.ndarray,
+    sigma_cv: float,
+) -> ErrorBars:
+    """Standard errors and interval bounds at the rows ``Xq`` whose predictions are ``value``."""
+    std_error = model.std_error(Xq, sigma_cv)
+    report = {"level": spec.level, "kind": spec.kind, "adaptive": spec.adaptive}
+    if spec.kind == "model":
+        lower, upper = model.model_interval(Xq, spec.level)
+        report["construction"] = "model"
+    else:
+        if folds.scheme == "gcv":
+            resid = np.abs(model.loo_residuals())
+        else:
+            resid = np.abs(y - path.oof[chosen, 0])
+        spread_q = spread_train = None
+        if spec.adaptive:
+            sc = Scaler.fit(X, "standard")
+            spread_q, spread_train = intervals.local_spread(
+                sc.transform(X), resid, sc.transform(Xq)
+            )
+        if folds.scheme == "kfold":
+            mu = np.stack([fm.predict(Xq, chosen) for fm in path.fold_models])
+            lower, upper = intervals.cv_plus(
+                mu, folds.fold_id[0], resid, spec.level, spread_q, spread_train
+            )
+            report["construction"] = "cv_plus"
+            report["guarantee"] = GUARANTEE["kfold"]
+        else:
+            lower, upper = intervals.jackknife_plus(
+                model.loo_predictions(Xq),
+                Xq.shape[0],
+                resid,
+                spec.level,
+                spread_q,
+                spread_train,
+            )
+            report["construction"] = "jackknife_plus"
+            report["guarantee"] = GUARANTEE["loo"]
+    with np.errstate(invalid="ignore"):
+        lower = np.fmin(lower, value)
+        upper = np.fmax(upper, value)
+    notices = []
+    unbounded = np.flatnonzero(~np.isfinite(lower) | ~np.isfinite(upper))
+    if unbounded.size:
+        notices.append(
+            Notice(
+                "interval_unbounded",
+                f"with {y.size} rows a {spec.level:g} interval cannot be bounded on both sides "
+                "(it needs about 2 / (1 - level) rows, or a finite noise estimate); the missing "
+                "bounds are null.",
+                tuple(int(i) for i in unbounded),
+            )
+        )
+    return ErrorBars(std_error, lower, upper, report, tuple(notices))
