@@ -129,7 +129,12 @@ class MethodSchema(Strict):
     default_grid = fields.String(metadata=_doc("The candidates tried when no grid is given."))
     schemes = fields.List(fields.String(), metadata=_doc("Tuning schemes the method supports."))
     interval_kinds = fields.List(
-        fields.String(), metadata=_doc("Prediction interval kinds offered (none yet).")
+        fields.String(), metadata=_doc("Prediction interval kinds offered.")
+    )
+    intervals = fields.Dict(
+        keys=fields.String(),
+        values=fields.String(),
+        metadata=_doc("How each interval kind is built, and its coverage guarantee."),
     )
     std_error = fields.String(metadata=_doc("How `std_error` is computed."))
     references = fields.List(fields.String(), metadata=_doc("Published sources of the method."))

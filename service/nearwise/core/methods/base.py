@@ -114,6 +114,17 @@ class FoldModel(Protocol):
     def predict(self, Xq: np.ndarray, c: int) -> np.ndarray: ...
 
 
+CV_PLUS_DOC = (
+    "K-fold CV+ (jackknife+ with schemes loo and gcv), built from the tuning's own fold models "
+    "and out-of-fold residuals with no refit. For exchangeable rows its coverage is at least "
+    "1 - 2 alpha - sqrt(2/n) (jackknife+: 1 - 2 alpha), alpha = 1 - level, and in practice "
+    "close to 1 - alpha (Barber, Candes, Ramdas & Tibshirani 2021). With `adaptive`, residuals "
+    "are divided by the mean absolute out-of-fold residual of the max(10, sqrt(n)) nearest "
+    "rows and multiplied back at the query (Lei et al. 2018, section 5.2). Bounds are widened "
+    "where needed so that lower <= value <= upper."
+)
+
+
 class Method:
     """Base class: parameter handling shared by every method.
 
@@ -132,6 +143,7 @@ class Method:
     default_grid: str = ""
     interval_kinds: tuple[str, ...] = ("cv_plus",)
     std_error_doc: str = ""
+    model_interval_doc: str = ""
     references: tuple[str, ...] = ()
 
     def param(self, name: str) -> Param:
@@ -204,6 +216,10 @@ class Method:
             "default_grid": self.default_grid,
             "schemes": list(self.schemes),
             "interval_kinds": list(self.interval_kinds),
+            "intervals": {
+                k: (CV_PLUS_DOC if k == "cv_plus" else self.model_interval_doc)
+                for k in self.interval_kinds
+            },
             "std_error": self.std_error_doc,
             "references": list(self.references),
         }

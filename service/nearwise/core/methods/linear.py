@@ -219,6 +219,11 @@ class Linear(Method):
         "standard error of the fitted mean, sigma * sqrt(x0' (X'X)^-1 x0), "
         "computed from the QR factor R"
     )
+    model_interval_doc = (
+        "t interval for a new observation: f +/- t(n - p, (1 + level) / 2) sigma "
+        "sqrt(1 + x0' (X'X)^-1 x0); exact when the polynomial is the true mean and the noise "
+        "is normal with constant variance"
+    )
     references = (
         "Montgomery, Peck & Vining (2012), Introduction to Linear Regression Analysis, 5th ed.",
     )

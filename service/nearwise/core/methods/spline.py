@@ -264,7 +264,16 @@ class Spline(Method):
             choices=SCALES,
         ),
     )
-    std_error_doc = "posterior standard deviation of the smoother (with interval kind `model`)"
+    std_error_doc = (
+        "posterior standard deviation sqrt(sigma^2 v(x0)), with sigma^2 = RSS / (n - df) and "
+        "v(x0) the posterior variance of f in units of sigma^2 (A_ii at a data point; Wahba "
+        "1983); null at smoothing 0, where there is no noise estimate"
+    )
+    model_interval_doc = (
+        "Bayesian band f +/- z sqrt(sigma^2 (1 + v(x0))) (Wahba 1983). Its coverage holds on "
+        "average across the design points, not at every point (Nychka 1988): it can be too "
+        "narrow where the curve bends sharply."
+    )
     references = (
         "Green & Silverman (1994), Nonparametric Regression and Generalized Linear Models",
         "Wahba (1990), Spline Models for Observational Data",
