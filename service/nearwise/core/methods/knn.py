@@ -52,7 +52,8 @@ def _all_k(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.ndarray
     """
     w = d.shape[1]
     plain = (d[:, 1 : min(kmax + 1, w)] != d[:, : min(kmax, w - 1)]).all(axis=1)
-    plain &= d[:, 0] > 0
+    if weights == "distance":
+        plain &= d[:, 0] > 0
     if plain.all():
         return _no_ties(d, yn, kmax, weights)
     out = np.empty((d.shape[0], kmax))
@@ -343,14 +344,19 @@ class KNN(Method):
 
     def fit(self, X, y, settings, value, work=None):
         k = int(value)
+        n = X.shape[0]
         sc = Scaler.fit(X, settings["scale"])
         Xs = sc.transform(X)
         index = _index(Xs)
-        fitted = predict_all_k(index, y, Xs, k, settings["weights"])[:, -1]
-        if X.shape[0] > 1:
-            kk = min(k, X.shape[0] - 1)
-            d, _ = _query(index, Xs, kk, X.shape[0], np.arange(X.shape[0]))
-            radius = float(np.median(d[:, kk - 1]))
-        else:  # pragma: no cover - folds need more rows
-            radius = 0.0
-        return FittedKNN(k, settings["weights"], sc, index, y, fitted, X.shape[0] / k, radius)
+        # One query of the training rows serves both the fitted values (k nearest, the row
+        # itself included) and the typical radius (distance to the k-th other row).
+        fitted = np.empty(n)
+        radius = np.empty(n)
+        for rows, d, ind in _complete_windows(index, Xs, min(k + 1, n), n):
+            fitted[rows] = _all_k(d, y[ind], k, settings["weights"])[:, -1]
+            is_self = ind == rows[:, None]
+            order = np.argsort(is_self, axis=1, kind="stable")
+            radius[rows] = np.take_along_axis(d, order, axis=1)[:, min(k, n - 1) - 1]
+        return FittedKNN(
+            k, settings["weights"], sc, index, y, fitted, n / k, float(np.median(radius))
+        )
