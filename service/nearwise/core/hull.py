@@ -51,7 +51,7 @@ FACET_MAX_DIM = 3
 #: Largest affine dimension in which the hull test runs at all.
 HULL_MAX_DIM = 8
 #: Linear programs (one query row, one round) solved per call, at most.
-MAX_LP_SOLVES = 200
+MAX_LP_SOLVES = 250
 #: Programs solved together in one block-diagonal call to HiGHS.
 BATCH = 100
 #: Rounds of column generation per query row, at most.
@@ -168,27 +168,32 @@ def _by_lp(W: np.ndarray, Wq: np.ndarray, budget: int) -> tuple[np.ndarray, np.n
     done = np.zeros(m, dtype=bool)
     if m == 0:
         return outside, done
-    D = np.random.default_rng(0).standard_normal((dim, N_DIRECTIONS))
-    D /= np.linalg.norm(D, axis=0)
-    proj = W @ D
-    clear = (Wq @ D > proj.max(axis=0) + HULL_TOL).any(axis=1)
+    D = np.random.default_rng(0).standard_normal((N_DIRECTIONS, dim))
+    D /= np.linalg.norm(D, axis=1)[:, None]
+    proj = D @ W.T  # (directions, n)
+    clear = (Wq @ D.T > proj.max(axis=1) + HULL_TOL).any(axis=1)
     outside[clear] = done[clear] = True
     todo = np.flatnonzero(~clear)
     if todo.size == 0:
         return outside, done
-    seeds = np.unique(proj.argmax(axis=0))
+    seeds = np.unique(proj.argmax(axis=1))
     width = min(2 * (dim + 1), W.shape[0])
-    near = cKDTree(W).query(Wq[todo], k=width)[1].reshape(todo.size, -1)
-    sets = {int(i): np.union1d(seeds, nb) for i, nb in zip(todo, near, strict=True)}
-    rounds = dict.fromkeys(sets, 0)
-    while sets and budget > 0:
+    tree = cKDTree(W)
+    sets: dict[int, np.ndarray] = {}
+    rounds: dict[int, int] = {}
+    queue = list(todo[::-1])  # rows in order of index, the first at the end
+    while (sets or queue) and budget > 0:
+        while queue and len(sets) < min(budget, BATCH):
+            i = int(queue.pop())
+            sets[i] = np.union1d(seeds, tree.query(Wq[i], k=width)[1])
+            rounds[i] = 0
         batch = sorted(sets)[: min(budget, BATCH)]
         budget -= len(batch)
         values, duals = _solve_block(W, Wq[batch], [sets[i] for i in batch])
-        gain = W @ duals[:, :dim].T + duals[:, dim]  # (n, batch)
+        gain = duals[:, :dim] @ W.T + duals[:, dim:]  # (batch, n)
         for j, i in enumerate(batch):
             rounds[i] += 1
-            verdict, grown = _step(values[j], gain[:, j], sets.pop(i), width)
+            verdict, grown = _step(values[j], gain[j], sets.pop(i), width)
             if verdict is not None:
                 outside[i], done[i] = verdict, True
             elif rounds[i] < MAX_ROUNDS:
@@ -220,23 +225,30 @@ def _solve_block(
     >= 0. Its dual (u, t) is a hyperplane u'w + t <= 0 holding every row of S; when the
     distance is positive, the query is beyond it, and a row with u'w + t > 0 could lower it.
     """
-    dim = W.shape[1]
-    eye = sparse.vstack([sparse.eye(dim), sparse.csr_matrix((1, dim))])
-    blocks = [
-        sparse.hstack([sparse.csr_matrix(np.vstack([W[S].T, np.ones((1, S.size))])), eye, -eye])
-        for S in sets
-    ]
-    cost = [np.concatenate([np.zeros(S.size), np.ones(2 * dim)]) for S in sets]
-    rhs = np.column_stack([Wq, np.ones(len(sets))]).ravel()
-    res = linprog(
-        np.concatenate(cost),
-        A_eq=sparse.block_diag(blocks, format="csc"),
-        b_eq=rhs,
-        bounds=(0, None),
-        method="highs",
+    B, dim = len(sets), W.shape[1]
+    idx = np.concatenate(sets)
+    block = np.repeat(np.arange(B), [S.size for S in sets])
+    K, r = idx.size, dim + 1
+    # weight columns first (one per row of each set), then 2 dim slack columns per block
+    lam_rows = (block[:, None] * r + np.arange(r)).ravel()
+    lam_cols = np.repeat(np.arange(K), r)
+    lam_vals = np.column_stack([W[idx], np.ones(K)]).ravel()
+    slack_rows = np.tile((np.arange(B)[:, None] * r + np.arange(dim)).ravel(), 2)
+    slack_cols = K + np.concatenate(
+        [(np.arange(B)[:, None] * 2 * dim + np.arange(dim) + h * dim).ravel() for h in (0, 1)]
     )
+    slack_vals = np.repeat([1.0, -1.0], B * dim)
+    A = sparse.csc_matrix(
+        (
+            np.concatenate([lam_vals, slack_vals]),
+            (np.concatenate([lam_rows, slack_rows]), np.concatenate([lam_cols, slack_cols])),
+        ),
+        shape=(B * r, K + 2 * dim * B),
+    )
+    cost = np.concatenate([np.zeros(K), np.ones(2 * dim * B)])
+    rhs = np.column_stack([Wq, np.ones(B)]).ravel()
+    res = linprog(cost, A_eq=A, b_eq=rhs, bounds=(0, None), method="highs")
     if res.status != 0:  # pragma: no cover - every block is feasible and bounded
         raise RuntimeError(f"hull program failed: {res.message}")
-    ends = np.cumsum([c.size for c in cost])
-    values = np.array([res.x[e - 2 * dim : e].sum() for e in ends])
-    return values, res.eqlin.marginals.reshape(len(sets), dim + 1)
+    values = res.x[K:].reshape(B, 2 * dim).sum(axis=1)
+    return values, res.eqlin.marginals.reshape(B, r)

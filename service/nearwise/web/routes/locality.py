@@ -1,0 +1,48 @@
+"""Locality diagnostics without fitting."""
+
+from __future__ import annotations
+
+from flask import Blueprint, Response, current_app
+
+from nearwise.core import locality as core
+from nearwise.web.body import negotiate
+from nearwise.web.intake import read_request
+from nearwise.web.jsonio import jsonable
+from nearwise.web.locality_doc import (
+    REQUEST_BODY,
+    RESPONSE_200,
+    LocalityFields,
+    LocalityRequest,
+    query_parameters,
+)
+from nearwise.web.openapi_parts import problems
+from nearwise.web.routes import json_response, operation
+
+bp = Blueprint("locality", __name__, url_prefix="/v1")
+
+
+@bp.post("/locality")
+@operation(
+    tags=["locality"],
+    parameters=query_parameters(),
+    requestBody=REQUEST_BODY,
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422)},
+)
+def locality() -> Response:
+    """Measure how well the training rows cover their space and where query rows fall."""
+    negotiate(["application/json"])
+    intake = read_request(current_app.extensions["nearwise"], LocalityRequest(), LocalityFields())
+    f = intake.fields
+    query = intake.tables.get("query")
+    names, X, Xq = core.arrays(
+        intake.tables["train"].table, f.get("features"), query.table if query else None
+    )
+    doc = core.summary(
+        X,
+        names,
+        k=f.get("k"),
+        fraction=f.get("fraction"),
+        Xq=Xq,
+        scale=f.get("scale", "standard"),
+    )
+    return json_response(jsonable(doc))
