@@ -6,7 +6,7 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import tuning, uncertainty
+from nearwise.core import locality, tuning, uncertainty
 from nearwise.core.budget import Deadline
 from nearwise.core.data import prepare
 from nearwise.core.errors import BadCell, NotApplicable, UnknownName, Where
@@ -82,8 +82,13 @@ def run(job: Job) -> PredictResult:
     )
     notices = [
         *_fit_notices(data, method, values, chosen, folds, path, model, at_query),
+        *work.get("notices", ()),
         *bars.notices,
+        *model.query_notices(where),
     ]
+    if at_query:
+        scale = settings.get("scale") or "standard"
+        notices.extend(locality.query_flags(X, where, scale).notices)
     cv_residual = None
     if not at_query:
         cv_residual = _cv_residual(data, canon, path, folds, chosen, model)
@@ -177,6 +182,15 @@ def _fit_notices(data, method, values, chosen, folds, path, model, at_query) -> 
             )
         )
     notices.extend(model.notices())
+    if data.X.shape[0] < FEW_ROWS:
+        notices.append(
+            Notice(
+                "few_rows",
+                f"only {data.X.shape[0]} usable training rows: the cross-validated error, the "
+                f"choice of `{method.tuned}` and the intervals are rough (a common rule of "
+                f"thumb asks for at least {FEW_ROWS}).",
+            )
+        )
     if not np.all(np.isfinite(path.df)):
         notices.append(
             Notice(
@@ -201,6 +215,7 @@ def _cv_residual(data, canon, path, folds, chosen, model) -> np.ndarray:
 
 
 UNUSUAL_Z = 3.5
+FEW_ROWS = 30
 
 
 def _unusual(cv_residual: np.ndarray) -> list[Notice]:

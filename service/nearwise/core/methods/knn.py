@@ -20,10 +20,13 @@ from sklearn.neighbors import NearestNeighbors
 
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
+from nearwise.core.locality import not_local_notice
 from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.results import Notice
 from nearwise.core.tuning import Folds
 
 MAX_DEFAULT_K = 50
+WIDE_FRACTION = 0.5  # wide_neighborhood: neighbors spanning more than this share of a range
 
 
 def _query(
@@ -192,7 +195,43 @@ class FittedKNN:
         return predict_all_k(self.index, self.y, Xs, self.k, self.weights)[:, -1]
 
     def notices(self) -> list:
-        return []
+        n, p = self.index.n_samples_fit_, self.index.n_features_in_
+        out = []
+        if self.k == 1:
+            out.append(
+                Notice(
+                    "interpolating",
+                    "k = 1: every training row is predicted by itself, so the fit reproduces the "
+                    "noise; prefer the tuned k or a larger one.",
+                )
+            )
+        local = not_local_notice(self.k, n, p)
+        if local is not None:
+            out.append(local)
+        return out
+
+    def query_notices(self, Xq: np.ndarray) -> list:
+        """``wide_neighborhood``: the k neighbors of a query spread over more than half of a
+        feature's training range."""
+        Xs = self.scaler.transform(Xq)
+        train = self.index._fit_X
+        span = train.max(axis=0) - train.min(axis=0)
+        _, ind = self.index.kneighbors(Xs, n_neighbors=self.k)
+        nb = train[ind]  # (m, k, p)
+        spread = nb.max(axis=1) - nb.min(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            wide = np.flatnonzero((spread > WIDE_FRACTION * span).any(axis=1))
+        if not wide.size:
+            return []
+        return [
+            Notice(
+                "wide_neighborhood",
+                f"for {wide.size} row(s) the {self.k} nearest training rows spread over more than "
+                f"{WIDE_FRACTION:.0%} of some feature's training range, so the average is not "
+                "local there.",
+                tuple(int(i) for i in wide),
+            )
+        ]
 
     def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
         """sigma / sqrt(k): the noise in an average of k targets; the bias of the local

@@ -25,6 +25,7 @@ from scipy import linalg, stats
 
 from nearwise.core.errors import InvalidValue, TooFewRows, Where
 from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.results import Notice
 
 ALIAS_TOL = 1e-9
 
@@ -113,6 +114,23 @@ class FittedLinear:
         """R^-T d0 for each query row: then x0'(X'X)^-1 x0 = |a0|^2 and x0'(X'X)^-1 xi = a0'qi."""
         D0 = design((Xq - self.shift) / self.scale, self.terms)
         return linalg.solve_triangular(self.R, D0.T, trans="T").T
+
+    def query_notices(self, Xq: np.ndarray) -> list[Notice]:
+        """``high_leverage``: h0 = x0'(X'X)^-1 x0 above the largest training leverage, the
+        hidden extrapolation of Montgomery, Peck & Vining (2012, section 3.8)."""
+        h_max = float(np.max(np.sum(self.Q**2, axis=1)))
+        rows = np.flatnonzero(self.leverage(Xq) > h_max * (1 + 1e-9))
+        if not rows.size:
+            return []
+        return [
+            Notice(
+                "high_leverage",
+                f"{rows.size} row(s) have leverage x0'(X'X)^-1 x0 above the largest among the "
+                f"training rows ({h_max:.3g}): the polynomial extrapolates there, even if each "
+                "feature lies inside its range.",
+                tuple(int(i) for i in rows),
+            )
+        ]
 
     def leverage(self, Xq: np.ndarray) -> np.ndarray:
         """h0 = x0'(X'X)^-1 x0, by QR (never an inverse of X'X)."""
@@ -277,6 +295,16 @@ class Linear(Method):
                         )
                     ],
                 )
+        dropped = [d for d in values if d not in ok]
+        if dropped and work is not None:
+            work.setdefault("notices", []).append(
+                Notice(
+                    "rank_deficient",
+                    f"degree(s) {', '.join(map(str, dropped))} left out of the grid: the data "
+                    "determine fewer terms than such a polynomial has (too few distinct values or "
+                    "rows per fold).",
+                )
+            )
         if not ok:
             raise TooFewRows(
                 f"even a straight line needs more rows: {n} usable rows with "

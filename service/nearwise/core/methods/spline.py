@@ -50,6 +50,22 @@ class FoldThinPlate:
         return thinplate.kernel(Z, self.Xs) @ self.C[:, c] + thinplate.poly(Z) @ self.B[:, c]
 
 
+INTERPOLATING_SHARE = 0.9  # df above this share of the distinct rows: noise is being fitted
+
+
+def _interpolating(df: float | None, distinct: int, smoothing: float) -> list[Notice]:
+    if smoothing > 0 and (df is None or df < INTERPOLATING_SHARE * distinct):
+        return []
+    return [
+        Notice(
+            "interpolating",
+            f"the fit uses {'all' if smoothing == 0 else f'{df:.0f} of the'} {distinct} degrees of "
+            "freedom the distinct rows allow: it reproduces the training targets almost exactly, "
+            "noise included. Prefer a larger smoothing.",
+        )
+    ]
+
+
 class _Bayes:
     """Error figures shared by both spline fits, from their posterior (Wahba 1983).
 
@@ -155,21 +171,26 @@ class FittedSpline1D(_Bayes):
             "largest_x_shift": self.snap.shift,
         }
 
+    def query_notices(self, Xq: np.ndarray) -> list[Notice]:
+        return []
+
     def notices(self) -> list[Notice]:
+        out = _interpolating(self.df, self.knots.t.size, self.smoothing)
         if self.snap.how == "exact":
-            return []
+            return out
         how = (
             "x values closer than 1/10,000 of the range were merged"
             if self.snap.how == "merged"
             else f"x was rounded to {spline1d.MAX_KNOTS} evenly spaced knots"
         )
         return [
+            *out,
             Notice(
                 "x_rounded",
                 f"to keep the spline's arithmetic accurate, {how}; the largest shift of any x is "
                 f"{self.snap.shift:.3g}. The fit differs from the exact smoothing spline by about "
                 "the change of the curve over that distance.",
-            )
+            ),
         ]
 
 
@@ -214,8 +235,11 @@ class FittedThinPlate(_Bayes):
         Z = self.scaler.transform(Xq)
         return thinplate.kernel(Z, self.Xs) @ self.c + thinplate.poly(Z) @ self.b
 
-    def notices(self) -> list[Notice]:
+    def query_notices(self, Xq: np.ndarray) -> list[Notice]:
         return []
+
+    def notices(self) -> list[Notice]:
+        return _interpolating(self.df, np.unique(self.Xs, axis=0).shape[0], self.smoothing)
 
     def summary(self, names):
         return {
