@@ -300,7 +300,7 @@ def neighborhood_radii(Z: np.ndarray, orders: Sequence[int]) -> np.ndarray:
         np.partition(cdist(centres[i : i + block], Z, "sqeuclidean"), np.unique(ks), axis=1)[:, ks]
         for i in range(0, centres.shape[0], block)
     ]
-    return np.sqrt(np.median(np.vstack(out), axis=0))
+    return np.median(np.sqrt(np.vstack(out)), axis=0)
 
 
 def summary(
