@@ -2,6 +2,7 @@
 
     .venv/bin/python tests/benchmarks/bench_tuning.py            # everything, a few minutes
     .venv/bin/python tests/benchmarks/bench_tuning.py knn json   # some benchmarks only
+    .venv/bin/python tests/benchmarks/bench_tuning.py locality   # locality flags vs a predict
 
 Not a test: pytest does not collect this file (its name does not start with ``test_``), and no
 timing belongs in the test suite. Every figure is the best of a few runs (time.perf_counter)
@@ -37,6 +38,7 @@ from threadpoolctl import threadpool_limits
 
 from nearwise.core import pipeline
 from nearwise.core.data import Table
+from nearwise.core.locality import query_flags
 from nearwise.core.methods.knn import KNN
 from nearwise.core.methods.spline import Spline
 from nearwise.core.spec import Job, TuningSpec
@@ -277,12 +279,42 @@ def bench_json(rng: np.random.Generator, repeats: int) -> list[Row]:
     return [Row("JSON 100k-row table vs json.loads+asarray", t_ours, t_base, False, 1.5)]
 
 
+# -- locality -----------------------------------------------------------------------------
+def bench_locality(rng: np.random.Generator, repeats: int) -> list[Row]:
+    n, p, m = 20_000, 3, 1_000
+    units = np.array([1.0, 10.0, 100.0])
+    X = rng.uniform(0.0, 1.0, size=(n, p)) * units
+    y = np.sin(6 * X[:, 0] / units[0]) + rng.normal(0, 0.3, n)
+    Xq = rng.uniform(-0.05, 1.05, size=(m, p)) * units  # some rows beyond the ranges
+    cols = ("x0", "x1", "x2")
+    job = Job(
+        method="knn",
+        train=Table("train", (*cols, "y"), np.column_stack([X, y])),
+        target="y",
+        query=Table("query", cols, Xq),
+        tuning=TuningSpec(folds=5, seed=0),
+    )
+    print(f"locality: n={n}, p={p}, {m} query rows, vs one kNN predict, 5 folds", flush=True)
+
+    t_ours, loc = best_of(lambda: query_flags(X, Xq), repeats)
+    t_base, result = best_of(lambda: pipeline.run(job), repeats)
+    scaler = StandardScaler().fit(X)
+    d = NearestNeighbors(n_neighbors=1).fit(scaler.transform(X)).kneighbors(scaler.transform(Xq))
+    note(f"max |nearest ours - NearestNeighbors| = {np.max(np.abs(loc.nearest - d[0][:, 0])):.1e}")
+    counts = ", ".join(f"{w.code} {len(w.rows)}" for w in loc.notices)
+    note(f"flags: {counts or 'none'}; kNN chose k = {result.params['k']}")
+    # pipeline.run computes the same flags itself: the request without them took base - ours.
+    note(f"flags add {t_ours / (t_base - t_ours):.1%} to the request without them")
+    return [Row("locality flags vs whole kNN predict", t_ours, t_base, False, 0.1)]
+
+
 # -- driver -------------------------------------------------------------------------------
 BENCHES: dict[str, Callable[[np.random.Generator, int], list[Row]]] = {
     "knn": bench_knn,
     "thinplate": bench_thinplate,
     "spline1d": lambda rng, r: [*bench_spline1d(rng, r, True), *bench_spline1d(rng, r, False)],
     "json": bench_json,
+    "locality": bench_locality,
 }
 
 

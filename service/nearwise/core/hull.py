@@ -22,8 +22,9 @@ X'lambda = x0: a linear program. This module answers it for many query rows at o
 
 Cost bound: at most :data:`MAX_LP_SOLVES` programs per call, each with at most dim + 1
 equality rows and at most 128 + 2 (dim + 1) (:data:`MAX_ROUNDS` + 1) columns, plus one
-O(n dim) pricing pass per program. Rows left undecided when that budget is spent are
-reported as not tested, never guessed.
+O(n dim) pricing pass per program; up to :data:`BATCH` programs go to HiGHS together as one
+block-diagonal program. Rows left undecided when that budget is spent are reported as not
+tested, never guessed.
 
 References
 ----------

@@ -261,7 +261,7 @@ def typical_spacing(Z: np.ndarray, tree: cKDTree | None = None) -> float:
     rows = Z[_sample(Z, SPACING_SAMPLE)]
     first = np.full(rows.shape[0], np.inf)
     todo = np.arange(rows.shape[0])
-    k = min(8, n)
+    k = min(2, n)
     while todo.size:
         d = tree.query(rows[todo], k=max(k, 2))[0]
         pos = np.where((d > 0) & np.isfinite(d), d, np.inf).min(axis=1)
