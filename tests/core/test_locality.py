@@ -11,6 +11,7 @@ from nearwise.core import hull, locality
 from nearwise.core.data import Table
 from nearwise.core.errors import BadCell, InvalidValue, TooFewRows, UnknownName
 from nearwise.core.locality import CODES, query_flags, summary
+from nearwise.core.neighbors import Nearest
 
 RNG = np.random.default_rng(0)
 X3 = RNG.uniform(size=(300, 3))
@@ -196,3 +197,23 @@ def test_arrays_default_to_every_column_and_check_cells() -> None:
     with pytest.raises(BadCell, match="holds text 'x'") as err:
         locality.arrays(text, None, None)
     assert err.value.where[0].path == ("train", "rows", 1, 0)
+
+
+@pytest.mark.parametrize("p", [3, 15])  # k-d tree, then brute force
+def test_nearest_distances_are_exact_and_see_duplicates(p: int) -> None:
+    rng = np.random.default_rng(p)
+    Z = rng.normal(size=(500, p)) * 100 + 1000  # large norms: the expansion alone would blur 0
+    Q = np.vstack([Z[:5], rng.normal(size=(5, p)) * 100 + 1000])
+    d = Nearest(Z).distances(Q, 12)
+    ref = np.sort(cdist(Q, Z), axis=1)[:, :12]
+    assert_allclose(d, ref, rtol=1e-12)  # one summation order against another
+    assert (d[:5, 0] == 0).all()
+    few = Nearest(Z[:3]).distances(Q[:2], 5)
+    assert np.isinf(few[:, 3:]).all() and np.isfinite(few[:, :3]).all()
+
+
+def test_typical_spacing_skips_duplicates_in_many_dimensions() -> None:
+    X = np.random.default_rng(7).normal(size=(200, 15))
+    d = cdist(X, X)
+    once = np.median(np.sort(d, axis=1)[:, 1])
+    assert_allclose(locality.typical_spacing(np.vstack([X, X])), once, rtol=1e-12)

@@ -12,8 +12,8 @@ X'lambda = x0: a linear program. This module answers it for many query rows at o
    linear program, so this is the same test. In one to three dimensions qhull takes
    O(n log n) time and the hull has O(n) facets.
 3. **4 <= dim <= 8** (:data:`HULL_MAX_DIM`): one linear program per row (scipy ``linprog``,
-   HiGHS), by column generation: the program uses a small set of rows (the extremes along
-   128 fixed directions and the query's nearest rows) and is priced against every row with
+   HiGHS), by column generation: the program uses a small set of rows (at first the extremes
+   along 128 fixed directions) and is priced against every row with
    its dual solution; it stops when a subset holds the query (inside) or when no row can
    improve it (outside, certified by the dual's separating hyperplane). Rows already shown
    outside by one of the 128 directions need no program.
@@ -21,7 +21,7 @@ X'lambda = x0: a linear program. This module answers it for many query rows at o
    would flag almost everything; the graded distance measures are the guide.
 
 Cost bound: at most :data:`MAX_LP_SOLVES` programs per call, each with at most dim + 1
-equality rows and at most 128 + 2 (dim + 1) (:data:`MAX_ROUNDS` + 1) columns, plus one
+equality rows and at most 128 + 2 (dim + 1) :data:`MAX_ROUNDS` columns, plus one
 O(n dim) pricing pass per program; up to :data:`BATCH` programs go to HiGHS together as one
 block-diagonal program. Rows left undecided when that budget is spent are reported as not
 tested, never guessed.
@@ -43,7 +43,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import sparse
 from scipy.optimize import linprog
-from scipy.spatial import ConvexHull, QhullError, cKDTree
+from scipy.spatial import ConvexHull, QhullError
 
 #: Distance from the hull, in units of the largest feature range, still counted as inside.
 HULL_TOL = 1e-7
@@ -171,35 +171,43 @@ def _by_lp(W: np.ndarray, Wq: np.ndarray, budget: int) -> tuple[np.ndarray, np.n
         return outside, done
     D = np.random.default_rng(0).standard_normal((N_DIRECTIONS, dim))
     D /= np.linalg.norm(D, axis=1)[:, None]
-    proj = D @ W.T  # (directions, n)
-    clear = (Wq @ D.T > proj.max(axis=1) + HULL_TOL).any(axis=1)
+    top, seeds = _extremes(W, D)
+    clear = (Wq @ D.T > top + HULL_TOL).any(axis=1)
     outside[clear] = done[clear] = True
-    todo = np.flatnonzero(~clear)
-    if todo.size == 0:
-        return outside, done
-    seeds = np.unique(proj.argmax(axis=1))
     width = min(2 * (dim + 1), W.shape[0])
-    tree = cKDTree(W)
     sets: dict[int, np.ndarray] = {}
     rounds: dict[int, int] = {}
-    queue = list(todo[::-1])  # rows in order of index, the first at the end
+    queue = list(np.flatnonzero(~clear)[::-1])  # in order of index, the first at the end
     while (sets or queue) and budget > 0:
         while queue and len(sets) < min(budget, BATCH):
             i = int(queue.pop())
-            sets[i] = np.union1d(seeds, tree.query(Wq[i], k=width)[1])
-            rounds[i] = 0
+            sets[i], rounds[i] = seeds, 0
         batch = sorted(sets)[: min(budget, BATCH)]
         budget -= len(batch)
         values, duals = _solve_block(W, Wq[batch], [sets[i] for i in batch])
-        gain = duals[:, :dim] @ W.T + duals[:, dim:]  # (batch, n)
         for j, i in enumerate(batch):
             rounds[i] += 1
-            verdict, grown = _step(values[j], gain[j], sets.pop(i), width)
+            gain = W @ duals[j, :dim] + duals[j, dim]
+            verdict, grown = _step(values[j], gain, sets.pop(i), width)
             if verdict is not None:
                 outside[i], done[i] = verdict, True
             elif rounds[i] < MAX_ROUNDS:
                 sets[i] = grown
     return outside, done
+
+
+def _extremes(W: np.ndarray, D: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Largest projection of the rows on each direction, and the rows that reach it."""
+    top = np.full(D.shape[0], -np.inf)
+    arg = np.zeros(D.shape[0], dtype=int)
+    chunk = 8192
+    for start in range(0, W.shape[0], chunk):
+        proj = D @ W[start : start + chunk].T  # (directions, chunk)
+        j = proj.argmax(axis=1)
+        best = proj[np.arange(D.shape[0]), j]
+        better = best > top
+        top[better], arg[better] = best[better], start + j[better]
+    return top, np.unique(arg)
 
 
 def _step(

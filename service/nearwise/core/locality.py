@@ -29,12 +29,12 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy.spatial import cKDTree
 from scipy.spatial.distance import cdist
 
 from nearwise.core import hull
 from nearwise.core.data import SCALES, Scaler, Table, _check_finite
 from nearwise.core.errors import BadCell, BadTable, InvalidValue, TooFewRows, UnknownName, Where
+from nearwise.core.neighbors import Nearest
 from nearwise.core.results import Notice
 
 CODES = ("outside_range", "outside_hull", "far_from_data", "hull_not_tested")
@@ -47,7 +47,7 @@ NOT_LOCAL_EDGE = 0.5
 #: Fractions of the rows in the neighborhood table, besides the one asked for.
 FRACTIONS = (0.01, 0.05, 0.10)
 #: Training rows over which the medians of the typical spacing and the radii are taken.
-SPACING_SAMPLE = 2000
+SPACING_SAMPLE = 1000
 RADIUS_SAMPLE = 500
 
 
@@ -149,7 +149,8 @@ def query_flags(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> Query
 
     Notes
     -----
-    Cost: one k-d tree over the training rows, one nearest-row query per query row, and the
+    Cost: one nearest-row search per query row (:class:`nearwise.core.neighbors.Nearest`),
+    the same for up to :data:`SPACING_SAMPLE` training rows, and the
     hull test of :func:`nearwise.core.hull.hull_test` for rows inside every range (facets
     up to 3 dimensions; at most :data:`nearwise.core.hull.MAX_LP_SOLVES` linear programs
     from 4 to 8; none above).
@@ -160,15 +161,15 @@ def query_flags(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> Query
     """
     scaler = Scaler.fit(X, scale)
     Z = scaler.transform(X)
-    tree = cKDTree(Z)
-    return _locality(X, Xq, Z, scaler.transform(Xq), tree, typical_spacing(Z, tree))
+    near = Nearest(Z)
+    return _locality(X, Xq, Z, scaler.transform(Xq), near, typical_spacing(Z, near))
 
 
 def _locality(
-    X: np.ndarray, Xq: np.ndarray, Z: np.ndarray, Zq: np.ndarray, tree: cKDTree, spacing: float
+    X: np.ndarray, Xq: np.ndarray, Z: np.ndarray, Zq: np.ndarray, near: Nearest, spacing: float
 ) -> QueryLocality:
     m, p = Xq.shape
-    nearest = tree.query(Zq, k=1)[0] if m else np.zeros(0)
+    nearest = near.distances(Zq, 1)[:, 0]
     ratio = _ratio(nearest, spacing)
     out_range = ((Xq < X.min(axis=0)) | (Xq > X.max(axis=0))).any(axis=1)
     test = hull.hull_test(Z, Zq, np.flatnonzero(~out_range))
@@ -236,16 +237,16 @@ def _skipped_message(dim: int) -> str:
 
 
 def _sample(Z: np.ndarray, size: int) -> np.ndarray:
-    """Up to ``size`` row numbers, chosen by a fixed seed among rows sorted by content, so
-    the choice does not depend on the order of the rows."""
+    """Up to ``size`` row numbers, chosen by a fixed seed among the rows sorted by a fixed
+    random projection of their content, so the choice does not depend on the row order."""
     n = Z.shape[0]
-    order = np.lexsort(Z.T[::-1]) if Z.shape[1] else np.arange(n)
     if n <= size:
-        return order
+        return np.arange(n)
+    order = np.argsort(Z @ np.random.default_rng(1).standard_normal(Z.shape[1]), kind="stable")
     return order[np.sort(np.random.default_rng(0).choice(n, size, replace=False))]
 
 
-def typical_spacing(Z: np.ndarray, tree: cKDTree | None = None) -> float:
+def typical_spacing(Z: np.ndarray, near: Nearest | None = None) -> float:
     """Median distance from a training row to its nearest row at a different location.
 
     Duplicated rows are skipped over, so the spacing is not 0 unless all rows coincide. For
@@ -257,13 +258,13 @@ def typical_spacing(Z: np.ndarray, tree: cKDTree | None = None) -> float:
     Clark & Evans (1954), Ecology 35(4), 445-453 (mean nearest-neighbor distance).
     """
     n = Z.shape[0]
-    tree = cKDTree(Z) if tree is None else tree
+    near = Nearest(Z) if near is None else near
     rows = Z[_sample(Z, SPACING_SAMPLE)]
     first = np.full(rows.shape[0], np.inf)
     todo = np.arange(rows.shape[0])
     k = min(2, n)
     while todo.size:
-        d = tree.query(rows[todo], k=max(k, 2))[0]
+        d = near.distances(rows[todo], max(k, 2))
         pos = np.where((d > 0) & np.isfinite(d), d, np.inf).min(axis=1)
         first[todo] = pos
         if k >= n:
@@ -346,15 +347,15 @@ def summary(
     _check_options(n, k, fraction, scale)
     scaler = Scaler.fit(X, scale)
     Z = scaler.transform(X)
-    tree = cKDTree(Z)
-    spacing = typical_spacing(Z, tree)
+    near = Nearest(Z)
+    spacing = typical_spacing(Z, near)
     asked = k if fraction is None else max(1, math.ceil(round(fraction * n, 9)))
     notices = []
     if asked is not None:
         notices.append(not_local_notice(asked, n, p))
     query: list[dict[str, Any]] = []
     if Xq is not None:
-        loc = _locality(X, Xq, Z, scaler.transform(Xq), tree, spacing)
+        loc = _locality(X, Xq, Z, scaler.transform(Xq), near, spacing)
         query = [
             {"nearest": float(d), "ratio": float(r), "flags": list(f)}
             for d, r, f in zip(loc.nearest, loc.ratio, loc.flags, strict=True)
