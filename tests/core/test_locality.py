@@ -8,6 +8,7 @@ from scipy.optimize import linprog
 from scipy.spatial.distance import cdist
 
 from nearwise.core import hull, locality
+from nearwise.core.columns import feature_arrays
 from nearwise.core.data import Table
 from nearwise.core.errors import BadCell, InvalidValue, TooFewRows, UnknownName
 from nearwise.core.locality import CODES, query_flags, summary
@@ -178,24 +179,24 @@ def test_summary_needs_two_rows() -> None:
 def test_arrays_default_to_every_column_and_check_cells() -> None:
     train = Table("train", ("a", "b"), np.array([[1.0, 2.0], [3.0, 4.0]]))
     query = Table("query", ("b", "a", "c"), np.array([[5.0, 6.0, np.nan]]))
-    names, X, Xq = locality.arrays(train, None, query)
+    names, X, Xq = feature_arrays(train, None, query)
     assert names == ("a", "b") and X.tolist() == [[1.0, 2.0], [3.0, 4.0]]
     assert Xq.tolist() == [[6.0, 5.0]]  # extra query column ignored
     with pytest.raises(UnknownName) as err:
-        locality.arrays(train, ["a", "z"], None)
+        feature_arrays(train, ["a", "z"], None)
     assert err.value.where[0].path == ("features", 1)
     with pytest.raises(UnknownName) as err:
-        locality.arrays(train, ["a"], Table("query", ("b",), np.ones((1, 1))))
+        feature_arrays(train, ["a"], Table("query", ("b",), np.ones((1, 1))))
     assert err.value.where[0].path == ("query", "columns")
     holes = Table("train", ("a", "b"), np.array([[1.0, np.nan], [3.0, 4.0]]))
     with pytest.raises(BadCell) as err:
-        locality.arrays(holes, None, None)
+        feature_arrays(holes, None, None)
     assert err.value.where[0].path == ("train", "rows", 0, 1)
     text = Table(
         "train", ("a",), np.array([[1.0], [np.nan]]), {0: np.array([1.0, "x"], dtype=object)}
     )
     with pytest.raises(BadCell, match="holds text 'x'") as err:
-        locality.arrays(text, None, None)
+        feature_arrays(text, None, None)
     assert err.value.where[0].path == ("train", "rows", 1, 0)
 
 

@@ -32,8 +32,8 @@ import numpy as np
 from scipy.spatial.distance import cdist
 
 from nearwise.core import hull
-from nearwise.core.data import SCALES, Scaler, Table, _check_finite
-from nearwise.core.errors import BadCell, BadTable, InvalidValue, TooFewRows, UnknownName, Where
+from nearwise.core.data import SCALES, Scaler
+from nearwise.core.errors import InvalidValue, TooFewRows, Where
 from nearwise.core.neighbors import Nearest
 from nearwise.core.results import Notice
 
@@ -434,53 +434,3 @@ def _neighborhoods(Z: np.ndarray, k: int | None, fraction: float | None) -> list
         }
         for r, radius in zip(order, radii, strict=True)
     ]
-
-
-def arrays(
-    train: Table, features: Sequence[str] | None, query: Table | None
-) -> tuple[tuple[str, ...], np.ndarray, np.ndarray | None]:
-    """Feature names, training features and query features, checked: every cell used must be
-    a finite number. ``features`` defaults to every column of ``train``."""
-    if len(set(train.columns)) != len(train.columns):
-        dup = next(c for c in train.columns if train.columns.count(c) > 1)
-        raise BadTable(
-            f"column names must be unique; `{dup}` appears more than once in train.",
-            [Where(("train", "columns"), f"duplicate column `{dup}`")],
-        )
-    if features is not None and len(set(features)) != len(features):
-        raise InvalidValue("`features` names a column twice.", [Where(("features",), "twice")])
-    names = tuple(train.columns) if features is None else tuple(features)
-    if not names:
-        raise InvalidValue(
-            "`features` must name at least one column.", [Where(("features",), "empty")]
-        )
-    idx = [_index(train, f, ("features", i)) for i, f in enumerate(names)]
-    X = _numbers(train, idx)
-    Xq = None
-    if query is not None:
-        Xq = _numbers(query, [_index(query, f, ("query", "columns")) for f in names])
-    return names, X, Xq
-
-
-def _index(table: Table, name: str, path: tuple) -> int:
-    if name in table.columns:
-        return table.columns.index(name)
-    raise UnknownName(
-        f"column `{name}` is not in the {table.name} table; its columns are "
-        f"{', '.join(table.columns)}.",
-        [Where(path, f"no column `{name}` in {table.name}")],
-    )
-
-
-def _numbers(table: Table, idx: list[int]) -> np.ndarray:
-    for j in idx:
-        if j in table.labels:
-            i = next(r for r, c in enumerate(table.labels[j]) if isinstance(c, str))
-            raise BadCell(
-                f"{table.name} column `{table.columns[j]}` must hold numbers; row {i} holds "
-                f"text {table.labels[j][i]!r}.",
-                [Where((table.name, "rows", i, j), "expected a number, found text")],
-            )
-    block = table.values[:, idx]
-    _check_finite(table, idx, block, "feature")
-    return block

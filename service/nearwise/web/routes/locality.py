@@ -4,7 +4,8 @@ from __future__ import annotations
 
 from flask import Blueprint, Response, current_app
 
-from nearwise.core import locality as core
+from nearwise.core import columns
+from nearwise.core.locality import summary
 from nearwise.web.body import negotiate
 from nearwise.web.intake import read_request
 from nearwise.web.jsonio import jsonable
@@ -34,10 +35,10 @@ def locality() -> Response:
     intake = read_request(current_app.extensions["nearwise"], LocalityRequest(), LocalityFields())
     f = intake.fields
     query = intake.tables.get("query")
-    names, X, Xq = core.arrays(
+    names, X, Xq = columns.feature_arrays(
         intake.tables["train"].table, f.get("features"), query.table if query else None
     )
-    doc = core.summary(
+    doc = summary(
         X,
         names,
         k=f.get("k"),
