@@ -84,3 +84,18 @@ def test_a_query_beyond_the_range_is_flagged(method):
     result = run(_job(method, X, y, np.array([[0.5, 0.5], [1.5, 0.5]])))
     assert "outside_range" not in result.predictions.flags[0]
     assert "outside_range" in result.predictions.flags[1]
+
+
+def test_every_warning_code_is_documented_in_the_catalogue():
+    import re
+    from pathlib import Path
+
+    from nearwise.core import catalogue, locality
+
+    core = Path(catalogue.__file__).parent
+    emitted = set(locality.CODES)
+    for path in core.rglob("*.py"):
+        emitted |= set(re.findall(r'Notice\(\s*"([a-z_]+)"', path.read_text()))
+    documented = {w["code"] for w in catalogue.describe()["warnings"]}
+    assert emitted <= documented, emitted - documented
+    assert len(emitted) >= 15

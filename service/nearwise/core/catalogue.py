@@ -1,15 +1,120 @@
-"""The method catalogue served at /v1/methods."""
+"""The method catalogue served at /v1/methods: methods, tuning options and warning codes."""
 
 from __future__ import annotations
 
 from typing import Any
 
+from nearwise.core import hull, locality, pipeline
 from nearwise.core.methods import METHODS
+from nearwise.core.methods.knn import WIDE_FRACTION
+from nearwise.core.methods.spline import INTERPOLATING_SHARE
 from nearwise.core.spec import METRICS, RULES, SCHEMES
 
 
+def _warnings() -> list[dict[str, Any]]:
+    """Every warning code: whether it concerns rows or the data set, and its rule."""
+    far = ", ".join(f"p = {p}: {locality.far_threshold(p):.3g}" for p in (1, 2, 3))
+    rows, data = "rows", "data set"
+    return [
+        {
+            "code": "outside_range",
+            "concerns": rows,
+            "rule": "a feature of the row lies beyond its training minimum or maximum",
+        },
+        {
+            "code": "outside_hull",
+            "concerns": rows,
+            "rule": f"inside every range but outside the convex hull of the training rows "
+            f"(scaled features; qhull facets up to {hull.FACET_MAX_DIM} dimensions, "
+            f"linear programs up to {hull.HULL_MAX_DIM}, tolerance {hull.HULL_TOL:g} of "
+            "the largest range)",
+        },
+        {
+            "code": "hull_not_tested",
+            "concerns": "rows or data set",
+            "rule": f"the hull test was not run: more than {hull.HULL_MAX_DIM} features (where "
+            f"nearly every new point is outside the hull; rely on far_from_data), or the "
+            f"request's {hull.MAX_LP_SOLVES} linear programs were used up",
+        },
+        {
+            "code": "far_from_data",
+            "concerns": rows,
+            "rule": f"distance to the nearest training row over the typical spacing (median "
+            f"nearest-row distance of the training rows) above max({locality.FAR_RATIO:g},"
+            f" {locality.FAR_TAIL:g}^(1/p)) ({far}); a rule of thumb",
+        },
+        {
+            "code": "high_leverage",
+            "concerns": rows,
+            "rule": "linear: leverage x0'(X'X)^-1 x0 above the largest training leverage "
+            "(hidden extrapolation; Montgomery, Peck & Vining 2012, section 3.8)",
+        },
+        {
+            "code": "wide_neighborhood",
+            "concerns": rows,
+            "rule": f"knn: the k neighbors spread over more than {WIDE_FRACTION:.0%} of some "
+            "feature's training range",
+        },
+        {
+            "code": "not_local",
+            "concerns": data,
+            "rule": f"knn: e_p(k/n) = (k/n)^(1/p) above {locality.NOT_LOCAL_EDGE:g} (Hastie, "
+            "Tibshirani & Friedman 2009, section 2.5)",
+        },
+        {
+            "code": "interpolating",
+            "concerns": data,
+            "rule": f"spline df at least {INTERPOLATING_SHARE:.0%} of the distinct rows, smoothing "
+            "0, or knn with k = 1: the fit reproduces the noise",
+        },
+        {
+            "code": "few_rows",
+            "concerns": data,
+            "rule": f"fewer than {pipeline.FEW_ROWS} usable training rows (a rule of thumb)",
+        },
+        {
+            "code": "rank_deficient",
+            "concerns": data,
+            "rule": "linear: degrees whose terms the data cannot determine were left out",
+        },
+        {
+            "code": "tuning_at_edge",
+            "concerns": data,
+            "rule": "the chosen value is at an end of the grid that is not the parameter's own "
+            "limit; widen the grid",
+        },
+        {
+            "code": "unusual_response",
+            "concerns": rows,
+            "rule": f"without a query: modified z-score 0.6745 |r - median| / MAD of the "
+            f"out-of-fold residual above {pipeline.UNUSUAL_Z:g} (Iglewicz & Hoaglin 1993)",
+        },
+        {
+            "code": "interval_unbounded",
+            "concerns": rows,
+            "rule": "too few rows for the level (about 2 / (1 - level) are needed), or no noise "
+            "estimate: the missing bound is null",
+        },
+        {
+            "code": "target_missing",
+            "concerns": "rows or data set",
+            "rule": "training rows without a target were left out of the fit",
+        },
+        {
+            "code": "x_rounded",
+            "concerns": data,
+            "rule": "one-feature spline: x merged or rounded onto at most 1,000 knots",
+        },
+        {
+            "code": "df_unavailable",
+            "concerns": data,
+            "rule": "some candidates' effective degrees of freedom could not be computed stably",
+        },
+    ]
+
+
 def describe() -> dict[str, Any]:
-    """Every method with its parameters, plus the tuning options they share."""
+    """Every method with its parameters, the tuning options they share, and the warnings."""
     return {
         "methods": [m.describe() for m in METHODS.values()],
         "tuning": {
@@ -25,4 +130,5 @@ def describe() -> dict[str, Any]:
                 "metric": "rmse",
             },
         },
+        "warnings": _warnings(),
     }

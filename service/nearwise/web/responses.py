@@ -140,6 +140,12 @@ class MethodSchema(Strict):
     references = fields.List(fields.String(), metadata=_doc("Published sources of the method."))
 
 
+class WarningCodeSchema(Strict):
+    code = fields.String(metadata=_doc("The warning code."))
+    concerns = fields.String(metadata=_doc("`rows`, `data set`, or either."))
+    rule = fields.String(metadata=_doc("When it is raised, with its threshold and source."))
+
+
 class MethodsResponse(Strict):
     methods = fields.List(
         fields.Nested(MethodSchema),
@@ -149,6 +155,9 @@ class MethodsResponse(Strict):
         ),
     )
     tuning = fields.Dict(metadata=_doc("The tuning schemes, rules and metrics, with defaults."))
+    warnings = fields.List(
+        fields.Nested(WarningCodeSchema), metadata=_doc("Every warning code and its rule.")
+    )
 
 
 class StatusSchema(Strict):
