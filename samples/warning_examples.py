@@ -300,8 +300,8 @@ def unusual_response() -> Body:
 
 
 def interval_unbounded() -> Body:
-    """Building, 40 daily readings and a 99 % interval: CV+ needs about 2 / (1 - 0.99) = 200
-    rows to bound it on both sides, so every bound is null."""
+    """Building, 40 hourly readings and a 99 % interval: CV+ needs at least
+    1 / (1 - 0.99) - 1 = 99 rows to bound it on both sides, so every bound is null."""
     rng = _rng(10)
     temp = _temps(rng, 40)
     kwh = energy_kwh(temp, np.full(40, 150.0), rng)
@@ -318,16 +318,17 @@ MISSING_ROWS = (5, 40, 123)
 
 
 def target_missing() -> Body:
-    """Turbine, no query: the power logger dropped out at three readings (null power_kw).
-    Those rows are left out of the fit, still get a fitted value, and are listed."""
-    train = turbine("turbine_train")
-    for r in MISSING_ROWS:
-        train["rows"][r][2] = None
+    """Building, 150 hours, no query: the meter's logger dropped out at three hours (rows 5, 40
+    and 123 have a null kwh). Those rows are left out of the fit, still get a fitted value,
+    and are listed."""
+    rng = _rng(12)
+    temp = _temps(rng, 150)
+    kwh = energy_kwh(temp, np.full(150, 150.0), rng)
+    kwh[list(MISSING_ROWS)] = np.nan
     return {
         "method": "spline",
-        "target": "power_kw",
-        "features": ["wind_ms"],
-        "train": train,
+        "target": "kwh",
+        "train": table(["temp_c", "kwh"], temp, kwh),
     }
 
 
