@@ -3,6 +3,7 @@
     .venv/bin/python tests/benchmarks/bench_tuning.py            # everything, a few minutes
     .venv/bin/python tests/benchmarks/bench_tuning.py knn json   # some benchmarks only
     .venv/bin/python tests/benchmarks/bench_tuning.py locality   # locality flags vs a predict
+    .venv/bin/python tests/benchmarks/bench_tuning.py overhead   # intervals + locality in a predict
 
 Not a test: pytest does not collect this file (its name does not start with ``test_``), and no
 timing belongs in the test suite. Every figure is the best of a few runs (time.perf_counter)
@@ -36,10 +37,10 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 from threadpoolctl import threadpool_limits
 
-from nearwise.core import pipeline
+from nearwise.core import locality, pipeline, uncertainty
 from nearwise.core.data import Table
 from nearwise.core.locality import query_flags
-from nearwise.core.methods.knn import KNN
+from nearwise.core.methods.knn import KNN, FittedKNN
 from nearwise.core.methods.spline import Spline
 from nearwise.core.spec import Job, TuningSpec
 from nearwise.core.tuning import Folds, make_folds
@@ -280,7 +281,9 @@ def bench_json(rng: np.random.Generator, repeats: int) -> list[Row]:
 
 
 # -- locality -----------------------------------------------------------------------------
-def bench_locality(rng: np.random.Generator, repeats: int) -> list[Row]:
+def knn_predict_job(rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, Job]:
+    """n = 20,000 training rows in p = 3 features of different units, 1,000 query rows (some
+    beyond the ranges), and the kNN predict job over them (5 folds, default grid)."""
     n, p, m = 20_000, 3, 1_000
     units = np.array([1.0, 10.0, 100.0])
     X = rng.uniform(0.0, 1.0, size=(n, p)) * units
@@ -294,6 +297,12 @@ def bench_locality(rng: np.random.Generator, repeats: int) -> list[Row]:
         query=Table("query", cols, Xq),
         tuning=TuningSpec(folds=5, seed=0),
     )
+    return X, Xq, job
+
+
+def bench_locality(rng: np.random.Generator, repeats: int) -> list[Row]:
+    X, Xq, job = knn_predict_job(rng)
+    (n, p), m = X.shape, Xq.shape[0]
     print(f"locality: n={n}, p={p}, {m} query rows, vs one kNN predict, 5 folds", flush=True)
 
     t_ours, loc = best_of(lambda: query_flags(X, Xq), repeats)
@@ -308,6 +317,85 @@ def bench_locality(rng: np.random.Generator, repeats: int) -> list[Row]:
     return [Row("locality flags vs whole kNN predict", t_ours, t_base, False, 0.1)]
 
 
+# -- overhead of the error figures and the flags --------------------------------------------
+class Stopwatch:
+    """Wraps functions, as a profiler would, and adds up the wall time spent inside them."""
+
+    def __init__(self) -> None:
+        self.spent: dict[str, float] = {}
+        self._undo: list[tuple[Any, str, Any]] = []
+
+    def wrap(self, owner: Any, name: str, label: str) -> None:
+        original = getattr(owner, name)
+        self.spent[label] = 0.0
+
+        def timed(*args: Any, **kwargs: Any) -> Any:
+            t0 = time.perf_counter()
+            try:
+                return original(*args, **kwargs)
+            finally:
+                self.spent[label] += time.perf_counter() - t0
+
+        self._undo.append((owner, name, original))
+        setattr(owner, name, timed)
+
+    def reset(self) -> None:
+        self.spent = dict.fromkeys(self.spent, 0.0)
+
+    def restore(self) -> None:
+        for owner, name, original in reversed(self._undo):
+            setattr(owner, name, original)
+        self._undo.clear()
+
+
+def bench_overhead(rng: np.random.Generator, repeats: int) -> list[Row]:
+    """Intervals plus locality within one kNN predict request: the time spent in
+    uncertainty.compute (std_error and CV+ bounds), locality.query_flags (outside_range,
+    outside_hull, far_from_data) and the model's query_notices (wide_neighborhood), against
+    the rest of the same request."""
+    X, Xq, job = knn_predict_job(rng)
+    (n, p), m = X.shape, Xq.shape[0]
+    print(
+        f"overhead: n={n}, p={p}, {m} query rows, kNN predict, 5 folds; intervals and "
+        "locality timed inside the same run",
+        flush=True,
+    )
+    plain = pipeline.run(job)  # unwrapped, to check the wrappers change nothing
+    watch = Stopwatch()
+    # pipeline.run calls these through their modules and through the fitted model's class,
+    # so replacing the attributes there times exactly the calls the request makes.
+    watch.wrap(uncertainty, "compute", "uncertainty.compute")
+    watch.wrap(locality, "query_flags", "locality.query_flags")
+    watch.wrap(FittedKNN, "query_notices", "FittedKNN.query_notices")
+    runs = []
+    try:
+        for _ in range(repeats):
+            watch.reset()
+            gc.collect()
+            t0 = time.perf_counter()
+            result = pipeline.run(job)
+            runs.append((time.perf_counter() - t0, dict(watch.spent)))
+    finally:
+        watch.restore()
+    same = (
+        all(
+            np.array_equal(getattr(plain.predictions, k), getattr(result.predictions, k))
+            for k in ("value", "std_error", "lower", "upper")
+        )
+        and plain.predictions.flags == result.predictions.flags
+    )
+    note(f"same predictions, bounds and flags as an unwrapped run: {same}")
+    total, spent = min(runs, key=lambda r: r[0])  # the fastest run, with its own parts
+    extra = sum(spent.values())
+    parts = ", ".join(f"{k} {v:.3f} s" for k, v in spent.items())
+    note(f"fastest request {total:.3f} s; inside it: {parts}")
+    note(f"kNN chose k = {result.params['k']}; intervals: {result.interval['construction']}")
+    note(f"intervals + locality add {extra / (total - extra):.1%} to the request without them")
+    if not same:
+        raise SystemExit("overhead: the wrapped run gave different numbers")
+    return [Row("intervals + locality inside a kNN predict", extra, total - extra, False, 0.30)]
+
+
 # -- driver -------------------------------------------------------------------------------
 BENCHES: dict[str, Callable[[np.random.Generator, int], list[Row]]] = {
     "knn": bench_knn,
@@ -315,6 +403,7 @@ BENCHES: dict[str, Callable[[np.random.Generator, int], list[Row]]] = {
     "spline1d": lambda rng, r: [*bench_spline1d(rng, r, True), *bench_spline1d(rng, r, False)],
     "json": bench_json,
     "locality": bench_locality,
+    "overhead": bench_overhead,
 }
 
 
