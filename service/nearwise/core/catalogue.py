@@ -92,8 +92,8 @@ def _warnings() -> list[dict[str, Any]]:
         {
             "code": "interval_unbounded",
             "concerns": rows,
-            "rule": "too few rows for the level (about 2 / (1 - level) are needed), or no noise "
-            "estimate: the missing bound is null",
+            "rule": "too few rows for the level (both ends need at least 1 / (1 - level) - 1 "
+            "rows: 9 at 0.9, 99 at 0.99), or no noise estimate: the missing bound is null",
         },
         {
             "code": "target_missing",

@@ -59,7 +59,7 @@ def run(job: Job) -> PredictResult:
     X, y = data.X[canon], data.y[canon]
     groups = None if data.groups is None else data.groups[canon]
     folds = tuning.make_folds(X.shape[0], job.tuning, groups, deadline.check)
-    work: dict[str, Any] = {}
+    work: dict[str, Any] = {"features": data.features}
     values = method.candidates(X, y, folds, settings, grid, work)
     deadline.check()
     path = method.path(X, y, folds, settings, values, work)

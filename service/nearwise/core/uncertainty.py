@@ -121,9 +121,9 @@ def compute(
             Notice(
                 "interval_unbounded",
                 f"with {y.size} rows a {spec.level:g} interval cannot be bounded on both sides "
-                "(it needs about 2 / (1 - level) rows, or a finite noise estimate); the missing "
-                "bounds are null.",
-                tuple(int(i) for i in unbounded),
+            f"(that takes at least 1 / (1 - level) - 1 = {1 / (1 - spec.level) - 1:.0f} rows), "
+            "or there is no finite noise estimate; the missing bounds are null.",
+            tuple(int(i) for i in unbounded),
             )
         )
     return ErrorBars(std_error, lower, upper, report, tuple(notices))

@@ -270,8 +270,14 @@ class Linear(Method):
         else:
             values, source = [1, 2, 3], None
         shift, scale = self._standardise(X)
-        D = design((X - shift) / scale, self._terms(p, max(values), settings))
-        _, _, kept = qr_kept(D)
+        top = self._terms(p, max(values), settings)
+        _, _, kept = qr_kept(design((X - shift) / scale, top))
+        names = tuple((work or {}).get("features") or (f"x{j}" for j in range(p)))
+        aliased = [j for j in range(len(top)) if j not in set(kept.tolist())]
+
+        def undetermined(size: int) -> str:
+            return ", ".join(term_name(top[j], names) for j in aliased if j < size)
+
         ok = []
         for d in values:
             size = len(self._terms(p, d, settings))
@@ -281,7 +287,8 @@ class Linear(Method):
             elif source is not None:
                 why = (
                     f"the degree-{d} basis has {size} terms, but the data determine only "
-                    f"{np.count_nonzero(kept < size)} of them (too few distinct values)"
+                    f"{np.count_nonzero(kept < size)} of them ({undetermined(size)} cannot be "
+                    "told apart from lower terms: too few distinct values)"
                     if not full
                     else f"the degree-{d} basis has {size} terms, and the smallest training "
                     f"fold holds only {folds.min_train} rows"
@@ -297,12 +304,13 @@ class Linear(Method):
                 )
         dropped = [d for d in values if d not in ok]
         if dropped and work is not None:
+            terms = undetermined(len(top))
+            why = (f"the terms {terms} cannot be told apart from lower terms (too few distinct "
+                   "values)" if terms else "a training fold holds too few rows for them")
             work.setdefault("notices", []).append(
                 Notice(
                     "rank_deficient",
-                    f"degree(s) {', '.join(map(str, dropped))} left out of the grid: the data "
-                    "determine fewer terms than such a polynomial has (too few distinct values or "
-                    "rows per fold).",
+                    f"degree(s) {', '.join(map(str, dropped))} left out of the grid: {why}.",
                 )
             )
         if not ok:
