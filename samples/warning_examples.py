@@ -256,7 +256,8 @@ def few_rows() -> Body:
 
 def rank_deficient() -> Body:
     """Building, temperature and a 0/1 workday flag, polynomial least squares with the
-    default degrees 1 to 3: workday^2 equals workday, so degrees 2 and 3 cannot be fitted."""
+    default degrees 1 to 3: workday^2 and workday^3 equal workday, so a degree above 1 drops
+    those terms (and the products that repeat others) from the fit and names them."""
     rng = _rng(8)
     temp = _temps(rng, 200)
     workday = (rng.uniform(0.0, 1.0, 200) < 5 / 7).astype(float)
@@ -266,6 +267,22 @@ def rank_deficient() -> Body:
         "target": "kwh",
         "train": table(["temp_c", "workday", "kwh"], temp, workday, kwh),
         "query": table(["temp_c", "workday"], np.array([5.0, 25.0]), np.array([1.0, 0.0])),
+    }
+
+
+def grid_reduced() -> Body:
+    """Building, two years of monthly bills against mean temperature, occupancy and working
+    days (24 rows, three features): a degree-3 polynomial has 20 terms, more than the 19
+    rows of a training fold, so the default grid stops at degree 2."""
+    rng = _rng(13)
+    temp = rng.uniform(-2.0, 24.0, 24)
+    people = rng.uniform(80.0, 160.0, 24)
+    days = rng.integers(19, 24, 24).astype(float)
+    mwh = (energy_kwh(temp, people, rng) * days * 10.0) / 1000.0
+    return {
+        "method": "linear",
+        "target": "mwh",
+        "train": table(["temp_c", "people", "workdays", "mwh"], temp, people, days, mwh),
     }
 
 
@@ -369,6 +386,7 @@ EXAMPLES: dict[str, Example] = {
         Example("interpolating", interpolating),
         Example("few_rows", few_rows),
         Example("rank_deficient", rank_deficient),
+        Example("grid_reduced", grid_reduced),
         Example("tuning_at_edge", tuning_at_edge),
         Example("unusual_response", unusual_response, UNUSUAL_ROWS),
         Example("interval_unbounded", interval_unbounded, (0, 1, 2)),

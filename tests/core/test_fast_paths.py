@@ -133,3 +133,33 @@ def test_fold_models_reproduce_the_out_of_fold_predictions(method, settings, val
         for c in range(len(values)):
             # Same arrays, same arithmetic: equal to rounding.
             assert_allclose(model.predict(X[test], c), path.oof[c, 0, test], rtol=1e-10, atol=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("method", "settings", "value", "p"),
+    [
+        (KNN(), {"weights": "uniform", "scale": "none"}, 5, 2),
+        (KNN(), {"weights": "distance", "scale": "none"}, 4, 1),
+        (Linear(), {}, 2, 2),
+        (Spline(), {}, 0.05, 1),
+        (Spline(), {"scale": "none"}, 0.01, 2),
+    ],
+)
+@pytest.mark.parametrize("ties", [False, True])
+def test_leave_one_out_predictions_equal_refits(method, settings, value, p, ties):
+    """The updates behind jackknife+ equal refitting without each row (scaling fixed)."""
+    rng = np.random.default_rng(12)
+    X = rng.uniform(0, 3, (30, p))
+    if p == 1 and not ties:  # no two x within 1/10,000 of the range, so no knot is merged
+        X = rng.permutation(np.linspace(0, 3, 30) + rng.uniform(-0.02, 0.02, 30))[:, None]
+    if ties:
+        X = np.round(X * 2) / 2 if p == 1 else np.round(X, 1)
+    y = np.sin(X.sum(axis=1)) + rng.normal(0, 0.2, 30)
+    Xq = rng.uniform(-0.5, 3.5, (6, p))
+    model = method.fit(X, y, settings, value)
+    loo = model.loo_predictions(Xq)(np.arange(6))
+    for i in range(30):
+        keep = np.arange(30) != i
+        expect = method.fit(X[keep], y[keep], settings, value).predict(Xq)
+        # Exact identities; rounding in the updates of mildly conditioned systems: 1e-8.
+        assert_allclose(loo[:, i], expect, rtol=1e-8, atol=1e-8)

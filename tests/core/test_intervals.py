@@ -46,6 +46,21 @@ def test_jackknife_plus_equals_its_definition():
         assert upper[j] == _brute(loo[j] + resid, k_hi)
 
 
+@pytest.mark.parametrize(
+    ("n", "level", "expect"),
+    [
+        # Barber et al. (2021): floor(alpha (n + 1)) and ceil((1 - alpha)(n + 1)), by hand.
+        (99, 0.9, (10, 90)),
+        (19, 0.9, (2, 18)),  # alpha (n + 1) = 2 exactly
+        (100, 0.5, (50, 51)),
+        (20, 0.8, (4, 17)),
+        (1000, 0.99, (10, 991)),
+    ],
+)
+def test_ranks_by_hand(n, level, expect):
+    assert intervals.ranks(n, level) == expect
+
+
 def test_ranks_and_unbounded_ends():
     assert intervals.ranks(99, 0.9) == (10, 90)
     assert intervals.ranks(8, 0.9) == (0, 9)  # too few rows: both ends unbounded at 90 %

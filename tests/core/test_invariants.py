@@ -74,3 +74,33 @@ def test_core_imports_no_web_code():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+@pytest.mark.parametrize("method", ["knn", "linear", "spline"])
+def test_row_numbers_survive_the_internal_sorting(method):
+    """Rows are sorted by content inside the fit; everything per row must come back in the
+    caller's order: residuals, out-of-fold residuals, bounds, flags and warning rows."""
+    rng = np.random.default_rng(8)
+    X = rng.uniform(0, 5, size=(60, 1))
+    y = np.sin(X[:, 0]) + rng.normal(0, 0.1, 60)
+    y[[7, 31]] = np.nan  # missing targets stay at their rows
+    y[44] += 4.0  # an unusual reading at row 44
+    perm = rng.permutation(60)
+    a = run(Job(method, _table(X, y), "y"))
+    b = run(Job(method, _table(X[perm], y[perm]), "y"))
+    inv = np.argsort(perm)  # row i of the caller's table is row inv[i] of the permuted one
+    for field in ("value", "residual", "cv_residual", "std_error", "lower", "upper"):
+        # Same fit up to summation order.
+        assert_allclose(
+            getattr(b.predictions, field)[inv],
+            getattr(a.predictions, field),
+            rtol=1e-9,
+            atol=1e-9,
+            equal_nan=True,
+        )
+    assert [b.predictions.flags[i] for i in inv] == list(a.predictions.flags)
+    rows_a = {w.code: w.rows for w in a.warnings}
+    rows_b = {w.code: tuple(sorted(int(perm[r]) for r in w.rows)) for w in b.warnings}
+    assert rows_a == rows_b
+    assert rows_a["target_missing"] == (7, 31)
+    assert 44 in rows_a["unusual_response"]

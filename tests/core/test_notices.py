@@ -59,8 +59,21 @@ def test_few_rows_and_rank_deficient():
     rng = np.random.default_rng(4)
     X = np.repeat([[0.0], [1.0]], 10, axis=0)  # two distinct values: only a line is determined
     y = X[:, 0] + rng.normal(0, 0.1, 20)
-    codes = _codes(run(_job("linear", X, y)))
+    result = run(_job("linear", X, y, params={"degree": 3}))
+    codes = _codes(result)
     assert "few_rows" in codes and "rank_deficient" in codes
+    assert result.model["aliased_terms"] == ["x0^2", "x0^3"]
+    assert [t["name"] for t in result.model["terms"]] == ["intercept", "x0"]
+
+
+def test_a_constant_feature_is_dropped_and_named():
+    rng = np.random.default_rng(7)
+    X = np.column_stack([rng.uniform(0, 1, 40), np.full(40, 3.0)])
+    y = 2 * X[:, 0] + rng.normal(0, 0.1, 40)
+    result = run(_job("linear", X, y, params={"degree": 1}))
+    assert result.model["aliased_terms"] == ["x1"]
+    est = {t["name"]: t["estimate"] for t in result.model["terms"]}
+    assert set(est) == {"intercept", "x0"} and abs(est["x0"] - 2) < 0.2
 
 
 def test_cv_residuals_and_an_unusual_reading():

@@ -63,3 +63,56 @@ def test_spline_bayesian_band_at_the_design_points():
     half = z * np.sqrt(sigma2 * (1 + np.diag(A)))
     assert_allclose(lower, fit - half, rtol=1e-6, atol=1e-8)
     assert_allclose(upper, fit + half, rtol=1e-6, atol=1e-8)
+
+
+def _v_from_tiny_weight(fit_with, eps=1e-6):
+    """Posterior variance at x0 (units of sigma^2) from an outside solver: add x0 with a tiny
+    weight eps; its smoother diagonal A00 gives v_eps = A00 / eps, and v = v_eps / (1 - eps
+    v_eps) removes the weight's own pull (the Bayes update with one more observation)."""
+    a00 = fit_with(1.0) - fit_with(0.0)
+    v_eps = a00 / eps
+    return v_eps / (1 - eps * v_eps)
+
+
+@pytest.mark.parametrize("x0", [0.37, 3.01, 7.5])
+def test_one_feature_posterior_variance_at_new_points(x0):
+    """Reference: scipy.interpolate.make_smoothing_spline with per-point weights."""
+    rng = np.random.default_rng(8)
+    lam, eps = 0.05, 1e-6
+    x = np.linspace(0, 6, 60) + rng.uniform(-0.02, 0.02, 60)
+    y = np.sin(x) + rng.normal(0, 0.3, 60)
+    xs = np.append(x, x0)
+    order = np.argsort(xs)
+    w = np.append(np.ones(60), eps)[order]
+
+    def fit_with(y0):
+        return make_smoothing_spline(xs[order], np.append(y, y0)[order], w=w, lam=lam)(x0)
+
+    model = Spline().fit(x[:, None], y, {}, lam)
+    # The reference carries eps-sized terms and scipy's banded solve: 1e-4 relative.
+    assert_allclose(
+        model.variance(np.array([[x0]]))[0], _v_from_tiny_weight(fit_with, eps), rtol=1e-4
+    )
+
+
+@pytest.mark.parametrize("x0", [(0.3, 0.4), (0.9, 0.1), (1.4, 1.2)])
+def test_thin_plate_posterior_variance_at_new_points(x0):
+    """Reference: scipy.interpolate.RBFInterpolator with per-point smoothing lam / w."""
+    from scipy.interpolate import RBFInterpolator
+
+    rng = np.random.default_rng(9)
+    lam, eps = 0.01, 1e-6
+    X = rng.uniform(0, 1, (50, 2))
+    y = np.sin(3 * X[:, 0]) + X[:, 1] + rng.normal(0, 0.1, 50)
+    Xs = np.vstack([X, [x0]])
+    smoothing = np.append(np.full(50, lam), lam / eps)
+
+    def fit_with(y0):
+        rbf = RBFInterpolator(Xs, np.append(y, y0), kernel="thin_plate_spline", smoothing=smoothing)
+        return rbf(np.array([x0]))[0]
+
+    model = Spline().fit(X, y, {"scale": "none"}, lam)
+    # Dense solves of a mildly ill-conditioned system on both sides: 1e-4 relative.
+    assert_allclose(
+        model.variance(np.array([x0]))[0], _v_from_tiny_weight(fit_with, eps), rtol=1e-4
+    )

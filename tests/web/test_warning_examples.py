@@ -25,8 +25,8 @@ EXAMPLES = warning_examples.EXAMPLES
 
 #: Codes with no example, and why.
 NOT_SHOWN = {
-    "df_unavailable": "only reachable with x spanning less than about 1e-100 (floating-point "
-    "overflow in the smoother's band); the knot placement prevents it for real data",
+    "df_unavailable": "a safety net: the knot placement and the arithmetic on x mapped to "
+    "[0, 1] keep the smoother's band computable for data on any scale",
 }
 
 

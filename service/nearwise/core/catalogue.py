@@ -7,7 +7,7 @@ from typing import Any
 from nearwise.core import hull, locality, pipeline
 from nearwise.core.methods import METHODS
 from nearwise.core.methods.knn import WIDE_FRACTION
-from nearwise.core.methods.spline import INTERPOLATING_SHARE
+from nearwise.core.methods.spline_fits import INTERPOLATING_SHARE
 from nearwise.core.spec import METRICS, RULES, SCHEMES
 
 
@@ -75,7 +75,15 @@ def _warnings() -> list[dict[str, Any]]:
         {
             "code": "rank_deficient",
             "concerns": data,
-            "rule": "linear: degrees whose terms the data cannot determine were left out",
+            "rule": "linear: terms the data cannot tell apart from the others (aliased) were "
+            "dropped "
+            "from the fit and are named",
+        },
+        {
+            "code": "grid_reduced",
+            "concerns": data,
+            "rule": "linear: default-grid degrees with as many terms as a training fold has rows "
+            "were left out",
         },
         {
             "code": "tuning_at_edge",

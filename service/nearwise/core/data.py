@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from nearwise.core.errors import BadCell, BadTable, InvalidValue, UnknownName, Where
+from nearwise.core.errors import BadCell, BadTable, InvalidValue, TooFewRows, UnknownName, Where
 
 SCALES = ("standard", "range", "none")
 
@@ -186,9 +186,16 @@ def prepare(
         )
     _check_magnitude(train, [t], y_all[:, None], "target")
     kept = np.flatnonzero(~np.isnan(y_all))
+    if kept.size == 0:
+        raise TooFewRows(
+            f"no training row has a value for the target `{target}`.",
+            [Where(("train", "rows"), "every target is missing")],
+        )
     groups = None
     if g is not None:
-        groups = _group_codes(train, g)[kept]
+        # Codes of the usable rows only, so that a group whose targets are all missing does
+        # not count as a group (it would leave a fold empty).
+        groups = np.unique(_group_codes(train, g)[kept], return_inverse=True)[1]
     X_query = None
     if query is not None:
         q_idx = [_column_index(query, f, ("query", "columns")) for f in names]

@@ -47,17 +47,19 @@ def _kth_of_folds(
     ``parts`` are the sorted scaled residuals of each fold. Bisection on the value, counting
     with searchsorted: O(folds x queries x log n) per step, about 60 steps to full precision.
     """
-    smax = max(p[-1] for p in parts if p.size)
+    finite = [p[np.isfinite(p)] for p in parts]
+    smax = max((p[-1] for p in finite if p.size), default=0.0)
     lo = mu.min(axis=0) - spread * smax - 1.0
     hi = mu.max(axis=0) + spread * smax + 1.0
     for _ in range(200):
         mid = 0.5 * (lo + hi)
         count = np.zeros(mid.shape, dtype=np.int64)
         for f, s in enumerate(parts):
-            if upper:  # mu + spread s <= v  <=>  s <= (v - mu) / spread
-                count += np.searchsorted(s, (mid - mu[f]) / spread, side="right")
-            else:  # mu - spread s <= v  <=>  s >= (mu - v) / spread
-                count += s.size - np.searchsorted(s, (mu[f] - mid) / spread, side="left")
+            with np.errstate(over="ignore"):
+                if upper:  # mu + spread s <= v  <=>  s <= (v - mu) / spread
+                    count += np.searchsorted(s, (mid - mu[f]) / spread, side="right")
+                else:  # mu - spread s <= v  <=>  s >= (mu - v) / spread
+                    count += s.size - np.searchsorted(s, (mu[f] - mid) / spread, side="left")
         enough = count >= k
         stuck = (mid <= lo) | (mid >= hi)
         hi = np.where(enough, mid, hi)
@@ -89,13 +91,25 @@ def cv_plus(
         Local spread at the queries and at the training rows (adaptive intervals).
     """
     n, m = resid.size, mu.shape[1]
-    s = resid if spread_train is None else resid / spread_train
+    s = _scores(resid, spread_train)
     q = np.ones(m) if spread_q is None else spread_q
     parts = [np.sort(s[fold == f]) for f in range(mu.shape[0])]
     k_lo, k_hi = ranks(n, level)
-    lower = _kth_of_folds(mu, parts, q, k_lo, upper=False) if k_lo >= 1 else np.full(m, -np.inf)
-    upper = _kth_of_folds(mu, parts, q, k_hi, upper=True) if k_hi <= n else np.full(m, np.inf)
+    n_inf = int(np.count_nonzero(np.isinf(s)))  # rows whose residual is undefined count as
+    # infinitely large: they widen both ends
+    lower = np.full(m, -np.inf)
+    upper = np.full(m, np.inf)
+    if 1 <= k_lo and k_lo > n_inf:
+        lower = _kth_of_folds(mu, parts, q, k_lo, upper=False)
+    if k_hi <= n - n_inf:
+        upper = _kth_of_folds(mu, parts, q, k_hi, upper=True)
     return lower, upper
+
+
+def _scores(resid: np.ndarray, spread: np.ndarray | None) -> np.ndarray:
+    """Residuals divided by the local spread; an undefined (NaN) residual becomes +inf."""
+    s = resid if spread is None else resid / spread
+    return np.where(np.isnan(s), np.inf, s)
 
 
 def jackknife_plus(
@@ -113,7 +127,7 @@ def jackknife_plus(
     blocks of about CHUNK_CELLS elements.
     """
     n = resid.size
-    s = resid if spread_train is None else resid / spread_train
+    s = _scores(resid, spread_train)
     q = np.ones(m) if spread_q is None else spread_q
     k_lo, k_hi = ranks(n, level)
     lower = np.full(m, -np.inf)
@@ -123,10 +137,13 @@ def jackknife_plus(
         rows = np.arange(start, min(m, start + step))
         mu = mu_loo(rows)
         width = q[rows, None] * s[None, :]
+        with np.errstate(invalid="ignore"):
+            lo_vals = np.where(np.isnan(mu), -np.inf, mu - width)
+            hi_vals = np.where(np.isnan(mu), np.inf, mu + width)
         if k_lo >= 1:
-            lower[rows] = np.partition(mu - width, k_lo - 1, axis=1)[:, k_lo - 1]
+            lower[rows] = np.partition(lo_vals, k_lo - 1, axis=1)[:, k_lo - 1]
         if k_hi <= n:
-            upper[rows] = np.partition(mu + width, k_hi - 1, axis=1)[:, k_hi - 1]
+            upper[rows] = np.partition(hi_vals, k_hi - 1, axis=1)[:, k_hi - 1]
     return lower, upper
 
 
@@ -141,13 +158,24 @@ def local_spread(
     """
     n = Xs.shape[0]
     k = min(n - 1, max(10, int(np.sqrt(n)))) if k is None else min(k, n - 1)
+    ok = np.isfinite(resid)
+    r = np.where(ok, resid, 0.0)  # undefined residuals are left out of the local means
     index = NearestNeighbors(n_neighbors=k + 1).fit(Xs)
     _, ind = index.kneighbors(Xs, n_neighbors=k + 1)
     own = ind == np.arange(n)[:, None]
     # drop each row's own index (or the farthest neighbor if it was not returned)
-    order = np.argsort(own, axis=1, kind="stable")[:, :k]
-    train = resid[np.take_along_axis(ind, order, axis=1)].mean(axis=1)
+    nb = np.take_along_axis(ind, np.argsort(own, axis=1, kind="stable")[:, :k], axis=1)
     _, ind_q = index.kneighbors(Xq_s, n_neighbors=k)
-    query = resid[ind_q].mean(axis=1)
-    floor = 1e-3 * max(float(resid.mean()), np.finfo(float).tiny)
-    return np.maximum(query, floor), np.maximum(train, floor)
+
+    def local(idx: np.ndarray) -> np.ndarray:
+        count = ok[idx].sum(axis=1)
+        return np.where(count > 0, r[idx].sum(axis=1) / np.maximum(count, 1), np.inf)
+
+    train, query = local(nb), local(ind_q)
+    overall = float(r[ok].mean()) if ok.any() else 0.0
+    if not overall > 0:  # no spread anywhere: nothing to adapt to
+        return np.ones(query.shape), np.ones(train.shape)
+    floor = 1e-3 * overall
+    query = np.where(np.isfinite(query), np.maximum(query, floor), np.inf)
+    train = np.where(np.isfinite(train), np.maximum(train, floor), np.inf)
+    return query, train

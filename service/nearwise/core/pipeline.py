@@ -65,7 +65,7 @@ def run(job: Job) -> PredictResult:
     path = method.path(X, y, folds, settings, values, work)
     deadline.check()
     scores = tuning.score(y, path.oof, folds, job.tuning.metric, path.gcv_scale)
-    best, chosen = tuning.choose(scores.error, scores.error_se, job.tuning.rule)
+    best, chosen = tuning.choose(scores.error, scores.error_se, job.tuning.rule, folds.scheme)
     value = values[chosen]
     model = method.fit(X, y, settings, value, work)
     deadline.check()

@@ -176,8 +176,9 @@ def score(
     The error is pooled over all held-out rows (and repeats): the root mean squared or the mean
     absolute residual. Its standard error is the standard deviation of the per-fold errors
     divided by the square root of the number of folds (each row is a fold for leave-one-out and
-    GCV); for RMSE it is taken on the squared scale and carried over by the delta method,
-    se(RMSE) = se(MSE) / (2 RMSE).
+    GCV); with repeats it is computed within each repeat and averaged, because repeats reuse
+    the same rows and do not add independent folds. For RMSE it is taken on the squared scale
+    and carried over by the delta method, se(RMSE) = se(MSE) / (2 RMSE).
 
     For GCV, ``gcv_scale`` holds 1 - df/n per candidate; residuals are divided by it, so the
     squared error equals the GCV score of Craven & Wahba.
@@ -202,9 +203,13 @@ def score(
     else:
         units = loss[:, 0, :]
     pooled = loss.reshape(n_c, -1).mean(axis=1)
-    m = units.shape[1]
+    per_repeat = units.reshape(n_c, folds.repeats, -1)
+    m = per_repeat.shape[2]
     with np.errstate(invalid="ignore"):
-        se_units = units.std(axis=1, ddof=1) / np.sqrt(m) if m > 1 else np.zeros(n_c)
+        if m > 1:
+            se_units = (per_repeat.std(axis=2, ddof=1) / np.sqrt(m)).mean(axis=1)
+        else:
+            se_units = np.zeros(n_c)
     if metric == "rmse":
         error = np.sqrt(pooled)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -217,16 +222,24 @@ def score(
     return Scores(error, error_se, units, resid, oof)
 
 
-def choose(error: np.ndarray, error_se: np.ndarray, rule: str) -> tuple[int, int]:
+def choose(
+    error: np.ndarray, error_se: np.ndarray, rule: str, scheme: str = "kfold"
+) -> tuple[int, int]:
     """Return ``(best, chosen)`` indices; candidates are ordered simplest first.
 
     ``best`` has the smallest error (the simplest one on ties). With ``one_se`` the chosen
     candidate is the simplest whose error is at most the best error plus its standard error.
     """
     if not np.isfinite(error).any():
+        fix = {
+            "kfold": "Use fewer folds, a simpler grid, or more rows.",
+            "loo": "Some row alone determines a term of every candidate; use `kfold`, a "
+            "simpler grid, or more rows.",
+            "gcv": "Every candidate uses all the degrees of freedom; use a simpler grid.",
+        }[scheme]
         raise TooFewRows(
-            "no candidate could be scored: every fit failed on some fold. Use fewer folds, "
-            "a simpler grid, or more rows."
+            f"no candidate could be scored: every fit failed on some held-out row. {fix}",
+            [Where(("tuning", "scheme"), "no candidate scored")],
         )
     best = int(np.argmin(error))
     if rule == "min":

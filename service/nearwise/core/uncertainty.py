@@ -111,9 +111,9 @@ def compute(
             )
             report["construction"] = "jackknife_plus"
             report["guarantee"] = GUARANTEE["loo"]
-    with np.errstate(invalid="ignore"):
-        lower = np.fmin(lower, value)
-        upper = np.fmax(upper, value)
+    # An undefined bound (NaN: no noise estimate) is unbounded, never a zero-width interval.
+    lower = np.fmin(np.where(np.isnan(lower), -np.inf, lower), value)
+    upper = np.fmax(np.where(np.isnan(upper), np.inf, upper), value)
     notices = []
     unbounded = np.flatnonzero(~np.isfinite(lower) | ~np.isfinite(upper))
     if unbounded.size:
@@ -121,9 +121,9 @@ def compute(
             Notice(
                 "interval_unbounded",
                 f"with {y.size} rows a {spec.level:g} interval cannot be bounded on both sides "
-            f"(that takes at least 1 / (1 - level) - 1 = {1 / (1 - spec.level) - 1:.0f} rows), "
-            "or there is no finite noise estimate; the missing bounds are null.",
-            tuple(int(i) for i in unbounded),
+                f"(that takes at least 1 / (1 - level) - 1 = {1 / (1 - spec.level) - 1:.0f} rows), "
+                "or there is no finite noise estimate; the missing bounds are null.",
+                tuple(int(i) for i in unbounded),
             )
         )
     return ErrorBars(std_error, lower, upper, report, tuple(notices))

@@ -73,9 +73,17 @@ def average_ties(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, 
 
 @dataclass(frozen=True)
 class Knots:
-    """Band matrices of the Reinsch algorithm for fixed knots and weights."""
+    """Band matrices of the Reinsch algorithm for fixed knots and weights.
+
+    The arithmetic runs on u = (t - t0) / span in [0, 1], with lam_u = lam / span^3 (the
+    penalty integral of f''^2 scales by span^-3), so that x on any scale, 1e-100 or 1e90,
+    gives the same well-scaled system. ``gam`` from :meth:`solve` is d^2 f / du^2.
+    """
 
     t: np.ndarray
+    t0: float
+    span: float
+    u: np.ndarray
     w: np.ndarray
     a: np.ndarray
     b: np.ndarray
@@ -85,7 +93,9 @@ class Knots:
 
     @classmethod
     def build(cls, t: np.ndarray, w: np.ndarray) -> Knots:
-        h = np.diff(t)
+        t0, span = float(t[0]), float(t[-1] - t[0])
+        u = (t - t0) / span
+        h = np.diff(u)
         n2 = t.size - 2
         a = 1.0 / h[:-1]
         c = 1.0 / h[1:]
@@ -98,7 +108,14 @@ class Knots:
         m_band[2] = a**2 * iw[:-2] + b**2 * iw[1:-1] + c**2 * iw[2:]
         m_band[1, 1:] = b[:-1] * a[1:] * iw[1:-2] + c[:-1] * b[1:] * iw[2:-1]
         m_band[0, 2:] = c[:-2] * a[2:] * iw[2:-2]
-        return cls(t, w, a, b, c, r_band, m_band)
+        return cls(t, t0, span, u, w, a, b, c, r_band, m_band)
+
+    def lam_u(self, lam: float) -> float:
+        return lam / self.span**3
+
+    def evaluate(self, g: np.ndarray, gam: np.ndarray, x: np.ndarray) -> np.ndarray:
+        """The fitted natural spline (values g, second derivatives gam) at x."""
+        return evaluate(self.u, g, gam, (x - self.t0) / self.span)
 
     def qt(self, v: np.ndarray) -> np.ndarray:
         """Q' v for v of length n (or shape (n, k))."""
@@ -114,13 +131,13 @@ class Knots:
 
     def solve(self, y: np.ndarray, lam: float) -> tuple[np.ndarray, np.ndarray]:
         """Fitted values g at the knots and second derivatives gamma (zero at both ends)."""
-        band = self.r_band + lam * self.m_band
+        band = self.r_band + self.lam_u(lam) * self.m_band
         full = np.vstack([band, band[1::-1]])  # general (2, 2) banded form of the same matrix
         full[3, :-1] = band[1, 1:]
         full[4, :-2] = band[0, 2:]
         full[3, -1] = full[4, -2:] = 0.0
         gam = linalg.solve_banded((2, 2), full, self.qt(y), check_finite=False)
-        g = y - lam * self.q(gam) / self.w
+        g = y - self.lam_u(lam) * self.q(gam) / self.w
         return g, np.concatenate([[0.0], gam, [0.0]])
 
     def diag_smoother(self, lam: float) -> np.ndarray:
@@ -130,6 +147,7 @@ class Knots:
         Uses the band of B^-1, B = R + lam Q'W^-1 Q, by the backward recursion on B's
         Cholesky factor (Hutchinson & de Hoog 1985): O(n).
         """
+        lam = self.lam_u(lam)
         band = self.r_band + lam * self.m_band
         try:
             U = linalg.cholesky_banded(band, check_finite=False)

@@ -98,7 +98,8 @@ class Decomposition:
     def coefficients(self, y: np.ndarray, lams: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Kernel weights C (n, L) and polynomial coefficients B (p + 1, L) for each lam."""
         C = self.q2(self.solve(self.q2t(y), lams))
-        B = linalg.solve_triangular(self.R, self.q1t(y[:, None] - self.K @ C))
+        # A failed solve leaves NaN in C; it propagates, and the candidate is left unscored.
+        B = linalg.solve_triangular(self.R, self.q1t(y[:, None] - self.K @ C), check_finite=False)
         return C, B
 
     def predict(self, C: np.ndarray, B: np.ndarray, Xq: np.ndarray) -> np.ndarray:
@@ -133,7 +134,7 @@ class Tridiagonal(Decomposition):
         if info != 0:  # pragma: no cover - LAPACK argument errors only
             raise linalg.LinAlgError(f"dsytrd failed ({info})")
         self.refl = refl
-        self.ev = lapack.dsterf(self.d, self.e)[0]
+        self.ev = lapack.dsterf(self.d, self.e)[0] if self.d.size > 1 else self.d.copy()
 
     def _apply(self, Y: np.ndarray, transpose: bool) -> np.ndarray:
         """H' Y (transpose) or H Y, with H = H(1) ... H(m-1) from dsytrd's lower storage.
@@ -167,7 +168,7 @@ def lam_for_df(ev: np.ndarray, n_poly: int, targets: np.ndarray) -> np.ndarray:
     """Smoothing values whose effective df (from eigenvalues ``ev``) equal ``targets``."""
     ev = np.maximum(ev, 0.0)
     top = ev.max() if ev.size and ev.max() > 0 else 1.0
-    lo = np.full(targets.shape, np.log(top) - 60.0)
+    lo = np.full(targets.shape, np.log(top) - 23.0)  # lam >= 1e-10 of the largest eigenvalue
     hi = np.full(targets.shape, np.log(top) + 30.0)
     for _ in range(80):
         mid = (lo + hi) / 2

@@ -1,0 +1,242 @@
+"""Fitted smoothing splines and their error figures (both the one-feature and the thin-plate
+kind), kept apart from the method class so that each file reads at once."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from nearwise.core.data import Scaler
+from nearwise.core.methods import spline1d, thinplate
+from nearwise.core.methods.posterior import Posterior, cubic_phi
+from nearwise.core.results import Notice
+
+
+@dataclass(frozen=True)
+class FoldSpline1D:
+    """Knot values and second derivatives of one training fold, for every candidate."""
+
+    knots: spline1d.Knots
+    fits: tuple[tuple[np.ndarray, np.ndarray], ...]
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        g, gam = self.fits[c]
+        return self.knots.evaluate(g, gam, Xq[:, 0])
+
+
+@dataclass(frozen=True)
+class FoldThinPlate:
+    """Scaled training rows and coefficients of one training fold, for every candidate."""
+
+    scaler: Scaler
+    Xs: np.ndarray
+    C: np.ndarray
+    B: np.ndarray
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        Z = self.scaler.transform(Xq)
+        return thinplate.kernel(Z, self.Xs) @ self.C[:, c] + thinplate.poly(Z) @ self.B[:, c]
+
+
+INTERPOLATING_SHARE = 0.9  # df above this share of the distinct rows: noise is being fitted
+
+
+def _interpolating(df: float | None, distinct: int, smoothing: float) -> list[Notice]:
+    if smoothing > 0 and (df is None or df < INTERPOLATING_SHARE * distinct):
+        return []
+    return [
+        Notice(
+            "interpolating",
+            f"the fit uses {'all' if smoothing == 0 else f'{df:.0f} of the'} {distinct} degrees of "
+            "freedom the distinct rows allow: it reproduces the training targets almost exactly, "
+            "noise included. Prefer a larger smoothing.",
+        )
+    ]
+
+
+class _Bayes:
+    """Error figures shared by both spline fits, from their posterior (Wahba 1983).
+
+    Subclasses set ``y`` (rows), ``fit_rows`` (the smoother's fit at the rows), ``column``
+    (each row's column in the smoother: its knot, or itself), ``count`` (rows per column),
+    ``df`` and ``smoothing``, and provide ``_posterior()``, ``_cross(Xq)`` and ``_diag()``.
+    """
+
+    _post: Posterior | None = None
+
+    def posterior(self) -> Posterior:
+        if self._post is None:
+            self._post = self._posterior()
+        return self._post
+
+    def sigma2(self) -> float:
+        """sigma^2 = RSS / (n - df), the residual variance of a linear smoother."""
+        n = self.y.size
+        if self.df is None or n - self.df <= 1e-9:
+            return float("nan")
+        return float(np.sum((self.y - self.fit_rows) ** 2) / (n - self.df))
+
+    def variance(self, Xq: np.ndarray) -> np.ndarray:
+        """Posterior variance of f(x0) in units of sigma^2."""
+        Phi0, P0 = self._cross(Xq)
+        return self.posterior().variance(Phi0, P0, np.zeros(Xq.shape[0]))
+
+    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
+        """Posterior standard deviation of f(x0)."""
+        with np.errstate(invalid="ignore"):
+            return np.sqrt(self.sigma2() * self.variance(Xq))
+
+    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
+        """The Bayesian band for a new observation: f +/- z sqrt(sigma^2 (1 + v(x0)))."""
+        z = stats.norm.ppf(0.5 + level / 2)
+        with np.errstate(invalid="ignore"):
+            half = z * np.sqrt(self.sigma2() * (1.0 + self.variance(Xq)))
+        f = self.predict(Xq)
+        return f - half, f + half
+
+    def loo_residuals(self) -> np.ndarray:
+        h = self._diag()[self.column] / self.count[self.column]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (self.y - self.fit_rows) / (1.0 - h)
+
+    def loo_predictions(self, Xq: np.ndarray):
+        """mu_{-i}(x0) = mu(x0) - s_i(x0) r_i with s_i the smoother weight of row i at x0 and
+        r_i the leave-one-out residual (the leave-one-out lemma of penalized least squares,
+        Green & Silverman 1994, section 3.2)."""
+        Phi0, P0 = self._cross(Xq)
+        base = self.predict(Xq)
+        step = self.loo_residuals() / self.count[self.column]
+
+        def block(rows: np.ndarray) -> np.ndarray:
+            omega, _ = self.posterior().weights(Phi0[rows], P0[rows])
+            return base[rows, None] - omega[:, self.column] * step[None, :]
+
+        return block
+
+
+@dataclass
+class FittedSpline1D(_Bayes):
+    knots: spline1d.Knots
+    g: np.ndarray
+    gam: np.ndarray
+    smoothing: float
+    fitted: np.ndarray
+    df: float | None
+    snap: spline1d.Snap
+    y: np.ndarray
+    column: np.ndarray
+
+    @property
+    def fit_rows(self) -> np.ndarray:
+        return self.g[self.column]
+
+    @property
+    def count(self) -> np.ndarray:
+        return self.knots.w
+
+    def _posterior(self) -> Posterior:
+        # On the knots' unit scale u, where the penalty weight is lam / span^3.
+        u, lam = self.knots.u, self.knots.lam_u(self.smoothing)
+        P = np.column_stack([np.ones_like(u), u])
+        return Posterior(cubic_phi(u, u), P, lam / self.knots.w, lam)
+
+    def _cross(self, Xq):
+        x = (Xq[:, 0] - self.knots.t0) / self.knots.span
+        return cubic_phi(x, self.knots.u), np.column_stack([np.ones_like(x), x])
+
+    def _diag(self) -> np.ndarray:
+        return self.knots.diag_smoother(self.smoothing)
+
+    def predict(self, Xq):
+        return self.knots.evaluate(self.g, self.gam, Xq[:, 0])
+
+    def summary(self, names):
+        return {
+            "smoothing": self.smoothing,
+            "df": self.df,
+            "kind": "cubic smoothing spline",
+            "knots": int(self.knots.t.size),
+            "knot_placement": self.snap.how,
+            "largest_x_shift": self.snap.shift,
+        }
+
+    def query_notices(self, Xq: np.ndarray) -> list[Notice]:
+        return []
+
+    def notices(self) -> list[Notice]:
+        out = _interpolating(self.df, self.knots.t.size, self.smoothing)
+        if self.snap.how == "exact":
+            return out
+        how = (
+            "x values closer than 1/10,000 of the range were merged"
+            if self.snap.how == "merged"
+            else f"x was rounded to {spline1d.MAX_KNOTS} evenly spaced knots"
+        )
+        return [
+            *out,
+            Notice(
+                "x_rounded",
+                f"to keep the spline's arithmetic accurate, {how}; the largest shift of any x is "
+                f"{self.snap.shift:.3g}. The fit differs from the exact smoothing spline by about "
+                "the change of the curve over that distance.",
+            ),
+        ]
+
+
+@dataclass
+class FittedThinPlate(_Bayes):
+    scaler: Scaler
+    Xs: np.ndarray
+    c: np.ndarray
+    b: np.ndarray
+    smoothing: float
+    fitted: np.ndarray
+    df: float | None
+    y: np.ndarray
+
+    @property
+    def fit_rows(self) -> np.ndarray:
+        return self.fitted
+
+    @property
+    def column(self) -> np.ndarray:
+        return np.arange(self.y.size)
+
+    @property
+    def count(self) -> np.ndarray:
+        return np.ones(self.y.size)
+
+    def _posterior(self) -> Posterior:
+        n = self.y.size
+        K = thinplate.kernel(self.Xs, self.Xs)
+        lam = self.smoothing
+        return Posterior(K, thinplate.poly(self.Xs), np.full(n, lam), lam)
+
+    def _cross(self, Xq):
+        Z = self.scaler.transform(Xq)
+        return thinplate.kernel(Z, self.Xs), thinplate.poly(Z)
+
+    def _diag(self) -> np.ndarray:
+        omega, _ = self.posterior().weights(*self._cross(self.scaler.inverse(self.Xs)))
+        return np.diag(omega).copy()
+
+    def predict(self, Xq):
+        Z = self.scaler.transform(Xq)
+        return thinplate.kernel(Z, self.Xs) @ self.c + thinplate.poly(Z) @ self.b
+
+    def query_notices(self, Xq: np.ndarray) -> list[Notice]:
+        return []
+
+    def notices(self) -> list[Notice]:
+        return _interpolating(self.df, np.unique(self.Xs, axis=0).shape[0], self.smoothing)
+
+    def summary(self, names):
+        return {
+            "smoothing": self.smoothing,
+            "df": self.df,
+            "kind": "thin-plate spline",
+            "scale_shift": self.scaler.shift.tolist(),
+            "scale_factor": self.scaler.scale.tolist(),
+        }
