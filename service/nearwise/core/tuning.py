@@ -247,14 +247,3 @@ def choose(
     limit = error[best] + error_se[best]
     chosen = int(np.flatnonzero(error <= limit)[0])
     return best, chosen
-
-
-def cv_r2(y: np.ndarray, oof: np.ndarray) -> float | None:
-    """Out-of-fold R^2: 1 - sum of squared out-of-fold residuals / total sum of squares.
-
-    ``oof`` has shape (repeats, n); residuals are pooled over repeats.
-    """
-    tss = float(np.sum((y - y.mean()) ** 2)) * oof.shape[0]
-    if tss <= 0:
-        return None
-    return 1.0 - float(np.sum((y[None, :] - oof) ** 2)) / tss

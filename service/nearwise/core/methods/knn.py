@@ -189,6 +189,7 @@ class FittedKNN:
     fitted: np.ndarray
     df: float
     typical_radius: float
+    Xs: np.ndarray  # the scaled training rows
 
     def predict(self, Xq: np.ndarray) -> np.ndarray:
         Xs = self.scaler.transform(Xq)
@@ -197,12 +198,16 @@ class FittedKNN:
     def notices(self) -> list:
         n, p = self.index.n_samples_fit_, self.index.n_features_in_
         out = []
-        if self.k == 1:
+        if self.k == 1 or self.weights == "distance":
             out.append(
                 Notice(
                     "interpolating",
                     "k = 1: every training row is predicted by itself, so the fit reproduces the "
-                    "noise; prefer the tuned k or a larger one.",
+                    "noise; prefer the tuned k or a larger one."
+                    if self.k == 1
+                    else "with distance weights a training row is its own nearest neighbor at "
+                    "distance 0, so the fitted values reproduce the training targets and "
+                    "`train_error` is 0; judge the fit by `cv_error`.",
                 )
             )
         local = not_local_notice(self.k, n, p)
@@ -214,7 +219,7 @@ class FittedKNN:
         """``wide_neighborhood``: the k neighbors of a query spread over more than half of a
         feature's training range."""
         Xs = self.scaler.transform(Xq)
-        train = self.index._fit_X
+        train = self.Xs
         span = train.max(axis=0) - train.min(axis=0)
         _, ind = self.index.kneighbors(Xs, n_neighbors=self.k)
         nb = train[ind]  # (m, k, p)
@@ -397,5 +402,5 @@ class KNN(Method):
             order = np.argsort(is_self, axis=1, kind="stable")
             radius[rows] = np.take_along_axis(d, order, axis=1)[:, min(k, n - 1) - 1]
         return FittedKNN(
-            k, settings["weights"], sc, index, y, fitted, n / k, float(np.median(radius))
+            k, settings["weights"], sc, index, y, fitted, n / k, float(np.median(radius)), Xs
         )
