@@ -23,8 +23,10 @@ def test_exact_linear_data_is_fitted_exactly():
     X = rng.uniform(-5, 5, size=(40, 3))
     y = 2.5 - 1.5 * X[:, 0] + 0.25 * X[:, 1] + 4 * X[:, 2]
     result = run(Job("linear", _table(X, y), "y", params={"degree": 1}))
+    # Exact data: residuals are rounding only, about 1e-15 times the data scale (~10).
     assert_allclose(result.predictions.residual, 0, atol=1e-10)
     est = [t["estimate"] for t in result.model["terms"]]
+    # Back-transformed from standardised features: a few ulps of conditioning.
     assert_allclose(est, [2.5, -1.5, 0.25, 4], rtol=1e-11)
     assert result.fit.cv_error < 1e-10
 
@@ -34,6 +36,7 @@ def test_k_equal_to_n_gives_the_mean():
     X = rng.normal(size=(25, 2))
     y = rng.normal(size=25)
     fitted = KNN().fit(X, y, {"weights": "uniform", "scale": "standard"}, 25)
+    # A mean of 25 numbers in another order: ulps.
     assert_allclose(fitted.predict(rng.normal(size=(7, 2))), y.mean(), rtol=1e-13)
 
 
@@ -50,6 +53,7 @@ def test_row_order_does_not_change_any_answer(method, p):
     assert a.params == b.params
     # Sums in another order: a few ulps, amplified by the conditioning of the fit.
     assert_allclose(a.predictions.value, b.predictions.value, rtol=1e-9, atol=1e-9)
+    # Same folds by content; sums in another order.
     assert_allclose([e.error for e in a.tuning.path], [e.error for e in b.tuning.path], rtol=1e-9)
 
 

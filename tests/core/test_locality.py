@@ -38,7 +38,7 @@ def test_nearest_and_ratio_are_scaled_distances() -> None:
     d = cdist((Q3 - lo) / span, (X3 - lo) / span).min(axis=1)
     assert_allclose(loc.nearest, d, rtol=1e-12)  # same distances, another summation order
     spacing = locality.typical_spacing((X3 - lo) / span)
-    assert_allclose(loc.ratio, d / spacing, rtol=1e-12)
+    assert_allclose(loc.ratio, d / spacing, rtol=1e-12)  # one division of the same numbers
 
 
 def test_typical_spacing_skips_duplicates() -> None:
@@ -123,6 +123,7 @@ def test_neighborhood_radii_equal_brute_force() -> None:
     X = np.vstack([X3, X3[:20]])  # duplicates count as other rows
     d = np.sort(cdist(X, X), axis=1)  # column 0 is the row itself
     radii = locality.neighborhood_radii(X, [1, 3, 32])
+    # The same distances summed in another order.
     assert_allclose(radii, np.median(d[:, [1, 3, 32]], axis=0), rtol=1e-12, atol=1e-15)
 
 
@@ -217,4 +218,5 @@ def test_typical_spacing_skips_duplicates_in_many_dimensions() -> None:
     X = np.random.default_rng(7).normal(size=(200, 15))
     d = cdist(X, X)
     once = np.median(np.sort(d, axis=1)[:, 1])
+    # Duplicates must not change it: equal up to summation order.
     assert_allclose(locality.typical_spacing(np.vstack([X, X])), once, rtol=1e-12)

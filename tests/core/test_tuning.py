@@ -48,10 +48,12 @@ def test_scores_follow_their_definitions():
         r = y - oof[c, 0]
         mse = [np.mean(r[folds.fold_id[0] == f] ** 2) for f in range(4)]
         rmse = np.sqrt(np.mean(r**2))
+        # The same sums in another order: ulps.
         assert_allclose(s.error[c], rmse, rtol=1e-13)
         assert_allclose(s.error_se[c], np.std(mse, ddof=1) / 2 / (2 * rmse), rtol=1e-12)
     m = tuning.score(y, oof, folds, "mae")
     r = y - oof[0, 0]
+    # The same sum in another order: ulps.
     assert_allclose(m.error[0], np.mean(np.abs(r)), rtol=1e-13)
 
 
