@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from nearwise.core import locality, tuning, uncertainty
 from nearwise.core.budget import Deadline
-from nearwise.core.data import prepare
+from nearwise.core.data import Prepared, prepare
 from nearwise.core.errors import BadCell, NotApplicable, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
 from nearwise.core.results import (
@@ -39,11 +40,52 @@ def _error(resid: np.ndarray, metric: str) -> float:
     return float(np.sqrt(np.mean(resid**2)) if metric == "rmse" else np.mean(np.abs(resid)))
 
 
-def run(job: Job) -> PredictResult:
-    """Fit ``job.method`` to the training table, tune it by cross-validation, and predict."""
+@dataclass
+class Context:
+    """What every method of one request shares: checked data sorted by content, and folds."""
+
+    job: Job
+    data: Prepared
+    canon: np.ndarray
+    X: np.ndarray
+    y: np.ndarray
+    folds: tuning.Folds
+    deadline: Deadline
+
+
+@dataclass
+class Tuned:
+    """One method's tuning on the shared folds."""
+
+    method: Method
+    settings: dict[str, Any]
+    values: list[Any]
+    path: Any
+    scores: tuning.Scores
+    best: int
+    chosen: int
+    work: dict[str, Any]
+
+    @property
+    def tuned(self) -> str:
+        return self.method.tuned_for(self.settings)
+
+
+def setup(job: Job) -> Context:
+    """Check the request's shared options and data, sort rows by content, assign folds."""
     deadline = Deadline(job.time_budget_s)
-    method = get_method(job.method)
     tuning.check_spec(job.tuning)
+    data = prepare(job.train, job.target, job.features, job.query, job.tuning.group_by)
+    # Work on the rows sorted by content, so that no answer depends on the order they came in.
+    canon = np.lexsort((data.y, *data.X.T[::-1]))
+    X, y = data.X[canon], data.y[canon]
+    groups = None if data.groups is None else data.groups[canon]
+    folds = tuning.make_folds(X.shape[0], job.tuning, groups, deadline.check)
+    return Context(job, data, canon, X, y, folds, deadline)
+
+
+def check_method(method: Method, job: Job, params, grid) -> tuple[dict[str, Any], Any]:
+    """The method's settings and grid from the caller's values, and the options it supports."""
     uncertainty.check(job.interval, method)
     if job.tuning.scheme not in method.schemes:
         raise NotApplicable(
@@ -51,24 +93,40 @@ def run(job: Job) -> PredictResult:
             f"{', '.join(method.schemes)}.",
             [Where(("tuning", "scheme"), f"not available for {method.name}")],
         )
-    settings = method.settings(job.params)
-    grid = method.check_grid(job.grid, settings)
-    data = prepare(job.train, job.target, job.features, job.query, job.tuning.group_by)
-    # Work on the rows sorted by content, so that no answer depends on the order they came in.
-    canon = np.lexsort((data.y, *data.X.T[::-1]))
-    X, y = data.X[canon], data.y[canon]
-    groups = None if data.groups is None else data.groups[canon]
-    folds = tuning.make_folds(X.shape[0], job.tuning, groups, deadline.check)
-    work: dict[str, Any] = {"features": data.features}
-    values = method.candidates(X, y, folds, settings, grid, work)
-    deadline.check()
-    path = method.path(X, y, folds, settings, values, work)
-    deadline.check()
-    scores = tuning.score(y, path.oof, folds, job.tuning.metric, path.gcv_scale)
-    best, chosen = tuning.choose(scores.error, scores.error_se, job.tuning.rule, folds.scheme)
+    settings = method.settings(params)
+    return settings, method.check_grid(grid, settings)
+
+
+def tune(ctx: Context, method: Method, settings: dict[str, Any], grid) -> Tuned:
+    """Score every candidate of ``method`` on the shared folds and choose one."""
+    work: dict[str, Any] = {"features": ctx.data.features}
+    values = method.candidates(ctx.X, ctx.y, ctx.folds, settings, grid, work)
+    ctx.deadline.check()
+    path = method.path(ctx.X, ctx.y, ctx.folds, settings, values, work)
+    ctx.deadline.check()
+    scores = tuning.score(ctx.y, path.oof, ctx.folds, ctx.job.tuning.metric, path.gcv_scale)
+    best, chosen = tuning.choose(
+        scores.error, scores.error_se, ctx.job.tuning.rule, ctx.folds.scheme
+    )
+    return Tuned(method, settings, values, path, scores, best, chosen, work)
+
+
+def run(job: Job) -> PredictResult:
+    """Fit ``job.method`` to the training table, tune it by cross-validation, and predict."""
+    method = get_method(job.method)
+    settings, grid = check_method(method, job, job.params, job.grid)
+    ctx = setup(job)
+    return answer(ctx, tune(ctx, method, settings, grid))
+
+
+def answer(ctx: Context, t: Tuned) -> PredictResult:
+    """Fit the chosen candidate to all rows and answer with predictions and error figures."""
+    job, data, X, y, folds = ctx.job, ctx.data, ctx.X, ctx.y, ctx.folds
+    method, settings, values, path, scores = t.method, t.settings, t.values, t.path, t.scores
+    chosen, work = t.chosen, t.work
     value = values[chosen]
     model = method.fit(X, y, settings, value, work)
-    deadline.check()
+    ctx.deadline.check()
 
     at_query = data.X_query is not None
     where = data.X_query if at_query else data.X_all
@@ -81,7 +139,7 @@ def run(job: Job) -> PredictResult:
         job.interval, model, path, folds, chosen, X, y, where, value_at, sigma_cv
     )
     notices = [
-        *_fit_notices(data, method, values, chosen, folds, path, model, at_query),
+        *_fit_notices(data, t, folds, model, at_query),
         *work.get("notices", ()),
         *bars.notices,
         *model.query_notices(where),
@@ -91,21 +149,19 @@ def run(job: Job) -> PredictResult:
         notices.extend(locality.query_flags(X, where, scale).notices)
     cv_residual = None
     if not at_query:
-        cv_residual = _cv_residual(data, canon, path, folds, chosen, model)
+        cv_residual = _cv_residual(data, ctx.canon, path, folds, chosen, model)
         notices.extend(_unusual(cv_residual))
     params: dict[str, Any] = {
         **{k: v for k, v in settings.items() if v is not None},
-        method.tuned: value,
+        t.tuned: value,
     }
     params.update(method_extra_params(method, settings, value, X.shape[1]))
-    resid = scores.residual[chosen]
-    tss = float(np.sum((y - y.mean()) ** 2)) * resid.shape[0]
     fit = FitReport(
         n_train=int(X.shape[0]),
         rows_dropped=data.rows_dropped,
         cv_error=float(scores.error[chosen]),
         cv_error_se=float(scores.error_se[chosen]),
-        cv_r2=(1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None,
+        cv_r2=cv_r2(y, scores, chosen),
         train_error=_error(y - model.fitted, job.tuning.metric),
         df=model.df,
     )
@@ -114,7 +170,7 @@ def run(job: Job) -> PredictResult:
         target=data.target,
         features=data.features,
         params=params,
-        tuning=_report(job, method, folds, values, best, scores, path),
+        tuning=_report(job, t, folds),
         fit=fit,
         model=summary,
         predictions=Predictions(
@@ -131,7 +187,15 @@ def run(job: Job) -> PredictResult:
     )
 
 
-def _report(job, method, folds, values, best, scores, path) -> TuningReport:
+def cv_r2(y: np.ndarray, scores: tuning.Scores, c: int) -> float | None:
+    """Out-of-fold R^2 of candidate c: 1 - pooled squared residuals / total sum of squares."""
+    resid = scores.residual[c]
+    tss = float(np.sum((y - y.mean()) ** 2)) * resid.shape[0]
+    return (1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None
+
+
+def _report(job: Job, t: Tuned, folds) -> TuningReport:
+    values, scores, path, tuned = t.values, t.scores, t.path, t.tuned
     return TuningReport(
         scheme=job.tuning.scheme,
         folds=folds.n_folds if folds.scheme != "gcv" else None,
@@ -140,10 +204,10 @@ def _report(job, method, folds, values, best, scores, path) -> TuningReport:
         rule=job.tuning.rule,
         metric=job.tuning.metric,
         group_by=job.tuning.group_by,
-        best={method.tuned: values[best]},
+        best={tuned: values[t.best]},
         path=tuple(
             PathEntry(
-                {method.tuned: v},
+                {tuned: v},
                 _finite(scores.error[c]),
                 _finite(scores.error_se[c]),
                 _finite(path.df[c]),
@@ -153,7 +217,8 @@ def _report(job, method, folds, values, best, scores, path) -> TuningReport:
     )
 
 
-def _fit_notices(data, method, values, chosen, folds, path, model, at_query) -> list[Notice]:
+def _fit_notices(data, t: Tuned, folds, model, at_query) -> list[Notice]:
+    method, values, chosen, path, tuned = t.method, t.values, t.chosen, t.path, t.tuned
     notices: list[Notice] = []
     if data.rows_dropped:
         missing = tuple(int(i) for i in np.flatnonzero(np.isnan(data.y_all)))
@@ -177,7 +242,7 @@ def _fit_notices(data, method, values, chosen, folds, path, model, at_query) -> 
         notices.append(
             Notice(
                 "tuning_at_edge",
-                f"the chosen `{method.tuned}` = {value} is the {end} candidate in the grid; the "
+                f"the chosen `{tuned}` = {value} is the {end} candidate in the grid; the "
                 "best value may lie beyond it. Widen the grid in that direction.",
             )
         )
@@ -187,7 +252,7 @@ def _fit_notices(data, method, values, chosen, folds, path, model, at_query) -> 
             Notice(
                 "few_rows",
                 f"only {data.X.shape[0]} usable training rows: the cross-validated error, the "
-                f"choice of `{method.tuned}` and the intervals are rough (a common rule of "
+                f"choice of `{tuned}` and the intervals are rough (a common rule of "
                 f"thumb asks for at least {FEW_ROWS}).",
             )
         )

@@ -166,43 +166,46 @@ class Method:
                 out[p.name] = p.default
         return out
 
+    def tuned_for(self, settings: Mapping[str, Any]) -> str:
+        """The parameter tuned under these settings (a method may tune different ones)."""
+        return self.tuned
+
     def check_grid(self, grid: Mapping[str, Sequence[Any]], settings: Mapping[str, Any]):
         """Return the caller's candidate list for the tuned parameter, or None for the default."""
+        tuned = self.tuned_for(settings)
         for key in grid:
-            if key != self.tuned:
+            if key != tuned:
                 known = [p.name for p in self.params]
                 if key in known:
                     raise NotApplicable(
-                        f"`{key}` is not tuned by {self.name}; only `{self.tuned}` takes a grid. "
+                        f"`{key}` is not tuned by {self.name}; only `{tuned}` takes a grid. "
                         f"Fix `{key}` in `params` instead.",
                         [Where(("grid", key), "not a tuned parameter")],
                     )
                 raise UnknownName(
-                    f"`{key}` is not a parameter of {self.name}; its tuned parameter is "
-                    f"`{self.tuned}`.",
+                    f"`{key}` is not a parameter of {self.name}; its tuned parameter is `{tuned}`.",
                     [Where(("grid", key), "unknown parameter")],
                 )
-        if self.tuned in grid and self.tuned in settings:
+        if tuned in grid and tuned in settings:
             raise InvalidValue(
-                f"`{self.tuned}` is given both in `params` (fixed) and in `grid` (tuned); "
-                "give one.",
-                [Where(("grid", self.tuned), "also fixed in params")],
+                f"`{tuned}` is given both in `params` (fixed) and in `grid` (tuned); give one.",
+                [Where(("grid", tuned), "also fixed in params")],
             )
-        if self.tuned not in grid:
+        if tuned not in grid:
             return None
-        values = list(grid[self.tuned])
+        values = list(grid[tuned])
         if not values:
             raise InvalidValue(
-                f"the grid for `{self.tuned}` is empty; give at least one value or leave it out.",
-                [Where(("grid", self.tuned), "empty list")],
+                f"the grid for `{tuned}` is empty; give at least one value or leave it out.",
+                [Where(("grid", tuned), "empty list")],
             )
-        p = self.param(self.tuned)
+        p = self.param(tuned)
         for i, v in enumerate(values):
-            p.check(v, ("grid", self.tuned, i))
+            p.check(v, ("grid", tuned, i))
         if len(set(values)) != len(values):
             raise InvalidValue(
-                f"the grid for `{self.tuned}` repeats a value.",
-                [Where(("grid", self.tuned), "duplicate values")],
+                f"the grid for `{tuned}` repeats a value.",
+                [Where(("grid", tuned), "duplicate values")],
             )
         return values
 
