@@ -363,6 +363,32 @@ def x_rounded() -> Body:
     }
 
 
+def method_chosen() -> Body:
+    """Turbine, `method: auto`: every method is tuned on the same folds and the simplest one
+    within a standard error of the best answers; the warning says which and why."""
+    return {
+        "method": "auto",
+        "target": "power_kw",
+        "features": ["wind_ms"],
+        "train": turbine("turbine_train"),
+        "query": turbine("turbine_query"),
+    }
+
+
+def method_skipped() -> Body:
+    """Building, `method: auto` on a feature with three settings only (the ventilation stage,
+    1 to 3): a spline needs at least five distinct values, so it is left out of the
+    comparison, with the reason."""
+    rng = _rng(14)
+    stage = rng.integers(1, 4, 90).astype(float)
+    kwh = 80.0 + 35.0 * stage + rng.normal(0.0, 6.0, 90)
+    return {
+        "method": "auto",
+        "target": "kwh",
+        "train": table(["stage", "kwh"], stage, kwh),
+    }
+
+
 # -- the registry -------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Example:
@@ -387,6 +413,8 @@ EXAMPLES: dict[str, Example] = {
         Example("few_rows", few_rows),
         Example("rank_deficient", rank_deficient),
         Example("grid_reduced", grid_reduced),
+        Example("method_chosen", method_chosen),
+        Example("method_skipped", method_skipped),
         Example("tuning_at_edge", tuning_at_edge),
         Example("unusual_response", unusual_response, UNUSUAL_ROWS),
         Example("interval_unbounded", interval_unbounded, (0, 1, 2)),

@@ -44,6 +44,7 @@ def test_paths_summaries_and_problem_responses() -> None:
     doc = json.loads(KEPT.read_text(encoding="utf-8"))
     assert set(doc["paths"]) == {
         "/v1/predict",
+        "/v1/compare",
         "/v1/locality",
         "/v1/methods",
         "/healthz",

@@ -114,6 +114,17 @@ def _warnings() -> list[dict[str, Any]]:
             "rule": "one-feature spline: x merged or rounded onto at most 1,000 knots",
         },
         {
+            "code": "method_skipped",
+            "concerns": data,
+            "rule": "compare or auto: a method that does not apply to these data was left out "
+            "(the message says why)",
+        },
+        {
+            "code": "method_chosen",
+            "concerns": data,
+            "rule": "method auto: which method was chosen, and why",
+        },
+        {
             "code": "df_unavailable",
             "concerns": data,
             "rule": "some candidates' effective degrees of freedom could not be computed stably",

@@ -26,7 +26,7 @@ from nearwise.core.spec import Job
 def get_method(name: str) -> Method:
     if name not in METHODS:
         raise UnknownName(
-            f"unknown method {name!r}; choose one of {', '.join(METHODS)}.",
+            f"unknown method {name!r}; choose one of {', '.join(METHODS)} or auto.",
             [Where(("method",), "unknown method")],
         )
     return METHODS[name]
@@ -84,9 +84,12 @@ def setup(job: Job) -> Context:
     return Context(job, data, canon, X, y, folds, deadline)
 
 
-def check_method(method: Method, job: Job, params, grid) -> tuple[dict[str, Any], Any]:
+def check_method(
+    method: Method, job: Job, params, grid, intervals: bool = True
+) -> tuple[dict[str, Any], Any]:
     """The method's settings and grid from the caller's values, and the options it supports."""
-    uncertainty.check(job.interval, method)
+    if intervals:
+        uncertainty.check(job.interval, method)
     if job.tuning.scheme not in method.schemes:
         raise NotApplicable(
             f"`tuning.scheme` {job.tuning.scheme} does not apply to {method.name}; use one of "
@@ -112,7 +115,15 @@ def tune(ctx: Context, method: Method, settings: dict[str, Any], grid) -> Tuned:
 
 
 def run(job: Job) -> PredictResult:
-    """Fit ``job.method`` to the training table, tune it by cross-validation, and predict."""
+    """Fit ``job.method`` to the training table, tune it by cross-validation, and predict.
+
+    ``method: auto`` compares every method that applies on the same folds and answers with
+    the recommended one (see :mod:`nearwise.core.compare`).
+    """
+    if job.method == "auto":
+        from nearwise.core import compare
+
+        return compare.auto(job)
     method = get_method(job.method)
     settings, grid = check_method(method, job, job.params, job.grid)
     ctx = setup(job)
@@ -170,7 +181,7 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         target=data.target,
         features=data.features,
         params=params,
-        tuning=_report(job, t, folds),
+        tuning=report(job, t, folds),
         fit=fit,
         model=summary,
         predictions=Predictions(
@@ -194,7 +205,7 @@ def cv_r2(y: np.ndarray, scores: tuning.Scores, c: int) -> float | None:
     return (1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None
 
 
-def _report(job: Job, t: Tuned, folds) -> TuningReport:
+def report(job: Job, t: Tuned, folds) -> TuningReport:
     values, scores, path, tuned = t.values, t.scores, t.path, t.tuned
     return TuningReport(
         scheme=job.tuning.scheme,

@@ -86,3 +86,4 @@ class PredictResult:
     predictions: Predictions
     warnings: tuple[Notice, ...] = field(default=())
     interval: dict[str, Any] | None = None
+    comparison: dict[str, Any] | None = None  # method auto: the ranking behind the choice

@@ -55,3 +55,4 @@ class Job:
     tuning: TuningSpec = field(default_factory=TuningSpec)
     interval: IntervalSpec = field(default_factory=IntervalSpec)
     time_budget_s: float | None = None
+    methods: Sequence[str] | None = None  # for compare: the methods to rank (None: all that apply)

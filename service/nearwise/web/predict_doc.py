@@ -12,8 +12,10 @@ _CSV_TABLE = {"type": "string", "contentMediaType": "text/csv"}
 _EXAMPLE_CSV = "wind_ms,air_density,power_kw\r\n7.1,1.21,812.0\r\n7.4,1.19,860.5\r\n"
 
 
-def _multipart_schema() -> dict[str, Any]:
-    props = {k: v for k, v in form_fields(PredictFields()).items() if ".NAME" not in k}
+def _multipart_schema(fields_schema=None, required=("method",)) -> dict[str, Any]:
+    props = {
+        k: v for k, v in form_fields(fields_schema or PredictFields()).items() if ".NAME" not in k
+    }
     return {
         "type": "object",
         "description": FORM_RULES,
@@ -33,7 +35,32 @@ def _multipart_schema() -> dict[str, Any]:
                 "description": "Candidates, e.g. `grid.k=1,3,5,9`.",
             },
         },
-        "required": ["train", "method", "target"],
+        "required": ["train", *required, "target"],
+    }
+
+
+def request_body(json_schema, fields_schema, required=("method",)) -> dict[str, Any]:
+    """The three request bodies (JSON, multipart CSV parts, a text/csv train table)."""
+    return {
+        "required": True,
+        "description": "The request as JSON; or CSV tables as multipart parts `train` and "
+        "`query` with the other fields as form fields or query-string parameters; or the "
+        "train table alone as a text/csv body with the other fields in the query string. "
+        + FORM_RULES,
+        "content": {
+            "application/json": {"schema": json_schema},
+            "multipart/form-data": {
+                "schema": _multipart_schema(fields_schema, required),
+                "encoding": {
+                    "train": {"contentType": "text/csv"},
+                    "query": {"contentType": "text/csv"},
+                },
+            },
+            "text/csv": {
+                "schema": {**_CSV_TABLE, "description": "The train table."},
+                "example": _EXAMPLE_CSV,
+            },
+        },
     }
 
 
@@ -78,7 +105,7 @@ RESPONSE_200: dict[str, Any] = {
 }
 
 
-def query_parameters() -> list[dict[str, Any]]:
+def query_parameters(fields_schema=None) -> list[dict[str, Any]]:
     """The fields as query-string parameters (read with CSV and multipart bodies only)."""
     return [
         {
@@ -90,6 +117,6 @@ def query_parameters() -> list[dict[str, Any]]:
             "schema": spec,
             **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
         }
-        for name, spec in form_fields(PredictFields()).items()
+        for name, spec in form_fields(fields_schema or PredictFields()).items()
         if ".NAME" not in name
     ]

@@ -82,6 +82,21 @@ class WarningSchema(Strict):
     rows = fields.List(fields.Integer(), metadata=_doc("Rows concerned; empty: the data set."))
 
 
+class RankRowSchema(Strict):
+    method = fields.String()
+    params = fields.Dict(keys=fields.String(), values=Scalar(), metadata=_doc("Its parameters."))
+    error = _num("Cross-validated error of the method's chosen candidate.", nullable=True)
+    error_se = _num("Its standard error.", nullable=True)
+    df = _num("Effective degrees of freedom (the measure of simplicity).", nullable=True)
+    cv_r2 = _num("Out-of-fold R^2.", nullable=True)
+
+
+class ComparisonSchema(Strict):
+    ranking = fields.List(fields.Nested(RankRowSchema), metadata=_doc("Lowest error first."))
+    recommended = fields.String(metadata=_doc("The method used for the predictions."))
+    reason = fields.String(metadata=_doc("Why it was recommended."))
+
+
 class PredictResponse(Strict):
     method = fields.String()
     target = fields.String()
@@ -99,6 +114,45 @@ class PredictResponse(Strict):
         fields.Nested(PredictionSchema), metadata=_doc("One per query row (or training row).")
     )
     warnings = fields.List(fields.Nested(WarningSchema))
+    comparison = fields.Nested(
+        ComparisonSchema, metadata=_doc("Only for `method: auto`: the ranking behind the choice.")
+    )
+
+
+class CompareTuningSchema(Strict):
+    scheme = fields.String()
+    folds = fields.Integer(allow_none=True, metadata=_doc("Null for `loo` and `gcv`."))
+    repeats = fields.Integer()
+    seed = fields.Integer()
+    rule = fields.String()
+    metric = fields.String()
+    group_by = fields.String(allow_none=True)
+
+
+class CompareResponse(Strict):
+    target = fields.String()
+    features = fields.List(fields.String())
+    tuning = fields.Nested(CompareTuningSchema, metadata=_doc("The folds every method shared."))
+    ranking = fields.List(
+        fields.Nested(RankRowSchema), metadata=_doc("One row per method, lowest error first.")
+    )
+    paths = fields.Dict(
+        keys=fields.String(),
+        values=fields.Nested(TuningReportSchema),
+        metadata=_doc("Each method's whole tuning path, simplest candidate first."),
+    )
+    recommended = fields.String(
+        metadata=_doc(
+            "The simplest method (fewest effective degrees of freedom) whose error is within "
+            "one standard error of the best method's."
+        )
+    )
+    reason = fields.String()
+    warnings = fields.List(fields.Nested(WarningSchema))
+    prediction = fields.Nested(
+        PredictResponse,
+        metadata=_doc("With a query: the recommended method's answer, as POST /v1/predict."),
+    )
 
 
 class ParameterSchema(Strict):

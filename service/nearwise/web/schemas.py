@@ -101,13 +101,9 @@ class IntervalSchema(Strict):
     )
 
 
-class PredictFields(Strict):
-    """Every request field except the tables (the form-field view of a request)."""
+class _JobFields(Strict):
+    """The fields predict and compare share, except the tables."""
 
-    method = fields.String(
-        required=True,
-        metadata=_doc("`knn`, `linear` or `spline`; see GET /v1/methods.", example="spline"),
-    )
     target = fields.String(required=True, metadata=_doc("Column of `train` to predict."))
     features = fields.List(
         fields.String(),
@@ -129,6 +125,47 @@ class PredictFields(Strict):
     )
     tuning = fields.Nested(TuningSchema, metadata=_doc("Cross-validation settings."))
     interval = fields.Nested(IntervalSchema, metadata=_doc("Prediction interval settings."))
+
+
+class PredictFields(_JobFields):
+    """Every predict field except the tables (the form-field view of a request)."""
+
+    method = fields.String(
+        required=True,
+        metadata=_doc(
+            "`knn`, `linear` or `spline`, or `auto` (compare them on the same folds and use "
+            "the recommended one); see GET /v1/methods.",
+            example="spline",
+        ),
+    )
+
+
+class CompareFields(_JobFields):
+    """Every compare field except the tables."""
+
+    methods = fields.List(
+        fields.String(),
+        validate=validate.Length(1, 10),
+        metadata=_doc(
+            "Methods to compare; default: every method that applies to the number of features.",
+            example=["knn", "linear", "spline"],
+        ),
+    )
+
+
+class _Tables(Strict):
+    train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
+    query = fields.Nested(
+        TableSchema,
+        metadata=_doc(
+            "Rows to predict at; it holds at least the feature columns. Absent: predict at the "
+            "training rows (fitted values, with `residual`)."
+        ),
+    )
+
+
+class CompareRequest(CompareFields, _Tables):
+    """The compare request as JSON."""
 
 
 class PredictRequest(PredictFields):

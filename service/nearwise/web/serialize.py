@@ -7,6 +7,7 @@ from typing import Any
 
 import numpy as np
 
+from nearwise.core.compare import CompareResult
 from nearwise.core.results import Predictions, PredictResult
 from nearwise.web.csvio import write_predictions
 from nearwise.web.jsonio import jsonable
@@ -15,10 +16,33 @@ from nearwise.web.tables import Parsed
 _OPTIONAL = ("residual", "cv_residual", "std_error", "lower", "upper")
 
 
+def compare_document(result: CompareResult, tuning: dict[str, Any]) -> dict[str, Any]:
+    """The JSON answer of ``POST /v1/compare``."""
+    doc = {
+        "target": result.target,
+        "features": list(result.features),
+        "tuning": jsonable(tuning),
+        "ranking": [jsonable(asdict(r)) for r in result.ranking],
+        "paths": {m: jsonable(asdict(r)) for m, r in result.paths.items()},
+        "recommended": result.recommended,
+        "reason": result.reason,
+        "warnings": _warnings(result.warnings),
+    }
+    if result.prediction is not None:
+        doc["prediction"] = predict_document(result.prediction)
+    return doc
+
+
+def _warnings(notices) -> list[dict[str, Any]]:
+    return [
+        {"code": n.code, "message": n.message, "rows": [int(r) for r in n.rows]} for n in notices
+    ]
+
+
 def predict_document(result: PredictResult) -> dict[str, Any]:
     """The JSON answer of ``POST /v1/predict``."""
     tuning = asdict(result.tuning)
-    return {
+    doc = {
         "method": result.method,
         "target": result.target,
         "features": list(result.features),
@@ -28,11 +52,11 @@ def predict_document(result: PredictResult) -> dict[str, Any]:
         "model": jsonable(result.model),
         "interval": jsonable(result.interval),
         "predictions": prediction_rows(result.predictions),
-        "warnings": [
-            {"code": n.code, "message": n.message, "rows": [int(r) for r in n.rows]}
-            for n in result.warnings
-        ],
+        "warnings": _warnings(result.warnings),
     }
+    if result.comparison is not None:
+        doc["comparison"] = jsonable(result.comparison)
+    return doc
 
 
 def _column(values: np.ndarray) -> list[float | None]:

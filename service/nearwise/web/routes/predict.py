@@ -44,12 +44,13 @@ def predict() -> Response:
     return resp
 
 
-def build_job(intake: Intake, time_budget_s: float | None = None) -> Job:
+def build_job(intake: Intake, time_budget_s: float | None = None, method: str | None = None) -> Job:
     """The core's job from the checked fields and parsed tables."""
     f = intake.fields
     query = intake.tables.get("query")
     return Job(
-        method=f["method"],
+        method=method or f["method"],
+        methods=f.get("methods"),
         train=intake.tables["train"].table,
         target=f["target"],
         features=f.get("features"),

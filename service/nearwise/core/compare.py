@@ -1,0 +1,213 @@
+"""Which amount of structure do the data justify? Every method tuned on the same folds,
+ranked by cross-validated error, and the simplest adequate one recommended.
+
+Each method is tuned as ``/v1/predict`` would tune it (its own one-standard-error or minimum
+rule picks its candidate). Across methods the rule is the same parsimony rule: among the
+methods whose chosen candidate's error lies within one standard error of the best method's,
+recommend the one with the fewest effective degrees of freedom (Hastie, Tibshirani & Friedman
+2009, section 7.10, applied to the methods' effective df).
+
+References
+----------
+Hastie, T., Tibshirani, R. & Friedman, J. (2009). *The Elements of Statistical Learning*, 2nd
+ed., Springer, sections 7.6 (effective degrees of freedom) and 7.10.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from nearwise.core import pipeline
+from nearwise.core.errors import InvalidValue, NearwiseError, UnknownName, Where
+from nearwise.core.methods import METHODS, Method
+from nearwise.core.results import Notice, PredictResult, TuningReport
+from nearwise.core.spec import Job
+
+
+@dataclass(frozen=True)
+class RankRow:
+    """One method's chosen candidate, scored on the shared folds."""
+
+    method: str
+    params: dict[str, Any]
+    error: float
+    error_se: float
+    df: float | None
+    cv_r2: float | None
+
+
+@dataclass(frozen=True)
+class CompareResult:
+    """Everything ``/v1/compare`` answers."""
+
+    target: str
+    features: tuple[str, ...]
+    ranking: tuple[RankRow, ...]
+    paths: dict[str, TuningReport]
+    recommended: str
+    reason: str
+    warnings: tuple[Notice, ...]
+    prediction: PredictResult | None = None
+
+
+def _methods(job: Job, p: int) -> tuple[list[Method], bool]:
+    """The methods to compare and whether the caller named them."""
+    if job.methods is None:
+        chosen = [
+            m
+            for m in METHODS.values()
+            if m.min_features <= p and (m.max_features is None or p <= m.max_features)
+        ]
+        return chosen, False
+    if not job.methods:
+        raise InvalidValue(
+            "`methods` must name at least one method.", [Where(("methods",), "empty list")]
+        )
+    out = []
+    for i, name in enumerate(job.methods):
+        if name not in METHODS:
+            raise UnknownName(
+                f"unknown method {name!r}; choose from {', '.join(METHODS)}.",
+                [Where(("methods", i), "unknown method")],
+            )
+        if METHODS[name] in out:
+            raise InvalidValue(
+                f"`methods` names {name!r} twice.", [Where(("methods", i), "duplicate method")]
+            )
+        out.append(METHODS[name])
+    return out, True
+
+
+def _route(values: dict[str, Any], methods: list[Method], field: str) -> list[dict[str, Any]]:
+    """Each method's share of the caller's ``params`` (or ``grid``): the names it defines."""
+    shares = [{k: v for k, v in values.items() if k in {p.name for p in m.params}} for m in methods]
+    for key in values:
+        if not any(key in share for share in shares):
+            raise UnknownName(
+                f"`{key}` is not a parameter of any compared method "
+                f"({', '.join(m.name for m in methods)}).",
+                [Where((field, key), "unknown parameter")],
+            )
+    return shares
+
+
+def _with_method(err: NearwiseError, name: str) -> NearwiseError:
+    err.detail = f"{name}: {err.detail}"
+    err.args = (err.detail,)
+    return err
+
+
+def tune_all(job: Job) -> tuple[pipeline.Context, dict[str, pipeline.Tuned], list[Notice]]:
+    """Tune every compared method on one set of folds."""
+    ctx = pipeline.setup(job)
+    methods, named = _methods(job, ctx.X.shape[1])
+    params = _route(dict(job.params), methods, "params")
+    grids = _route(dict(job.grid), methods, "grid")
+    tuned: dict[str, pipeline.Tuned] = {}
+    skipped: list[Notice] = []
+    for method, prm, grd in zip(methods, params, grids, strict=True):
+        try:
+            settings, grid = pipeline.check_method(method, job, prm, grd, intervals=False)
+            tuned[method.name] = pipeline.tune(ctx, method, settings, grid)
+        except NearwiseError as err:
+            if named or err.code == "time_budget_exceeded":
+                raise _with_method(err, method.name) from None
+            skipped.append(Notice("method_skipped", f"{method.name} was left out: {err.detail}"))
+    if not tuned:
+        raise InvalidValue(
+            "no method could be fitted to these data: " + " ".join(n.message for n in skipped),
+            [Where(("methods",), "no method applies")],
+        )
+    return ctx, tuned, skipped
+
+
+def rank(ctx: pipeline.Context, tuned: dict[str, pipeline.Tuned]) -> list[RankRow]:
+    rows = []
+    for name, t in tuned.items():
+        c = t.chosen
+        df = t.path.df[c]
+        rows.append(
+            RankRow(
+                method=name,
+                params={
+                    **{k: v for k, v in t.settings.items() if v is not None},
+                    t.tuned: t.values[c],
+                },
+                error=float(t.scores.error[c]),
+                error_se=float(t.scores.error_se[c]),
+                df=float(df) if np.isfinite(df) else None,
+                cv_r2=pipeline.cv_r2(ctx.y, t.scores, c),
+            )
+        )
+    return sorted(rows, key=lambda r: (r.error, r.method))
+
+
+def recommend(rows: list[RankRow]) -> tuple[str, str]:
+    """The simplest method within one standard error of the best, and why."""
+    best = rows[0]
+    limit = best.error + best.error_se
+    close = [r for r in rows if r.error <= limit]
+    pick = min(close, key=lambda r: (np.inf if r.df is None else r.df, r.error))
+    if pick is best:
+        others = [r.method for r in close if r is not best]
+        tail = (
+            f"; {', '.join(others)} came within one standard error but with more effective "
+            "degrees of freedom"
+            if others
+            else "; no other method came within one standard error of it"
+        )
+        return pick.method, (
+            f"{pick.method} has the lowest cross-validated error ({best.error:.4g} ± "
+            f"{best.error_se:.4g}){tail}."
+        )
+    return pick.method, (
+        f"{best.method} has the lowest cross-validated error ({best.error:.4g} ± "
+        f"{best.error_se:.4g}), but {pick.method} is within one standard error of it "
+        f"({pick.error:.4g}) with fewer effective degrees of freedom ({pick.df:.3g} against "
+        f"{best.df if best.df is None else f'{best.df:.3g}'}): the simpler model is recommended."
+    )
+
+
+def compare(job: Job) -> CompareResult:
+    """Tune every method on the same folds, rank them, and recommend one."""
+    ctx, tuned, skipped = tune_all(job)
+    rows = rank(ctx, tuned)
+    name, reason = recommend(rows)
+    prediction = None
+    if ctx.data.X_query is not None:
+        prediction = _predict(ctx, tuned[name], job)
+    return CompareResult(
+        target=ctx.data.target,
+        features=ctx.data.features,
+        ranking=tuple(rows),
+        paths={m: pipeline.report(job, t, ctx.folds) for m, t in tuned.items()},
+        recommended=name,
+        reason=reason,
+        warnings=tuple(skipped),
+        prediction=prediction,
+    )
+
+
+def _predict(ctx: pipeline.Context, t: pipeline.Tuned, job: Job) -> PredictResult:
+    from nearwise.core import uncertainty
+
+    uncertainty.check(job.interval, t.method)
+    return pipeline.answer(ctx, t)
+
+
+def auto(job: Job) -> PredictResult:
+    """``method: auto``: compare, then answer as predict does with the recommended method."""
+    ctx, tuned, skipped = tune_all(job)
+    rows = rank(ctx, tuned)
+    name, reason = recommend(rows)
+    result = _predict(ctx, tuned[name], job)
+    chose = Notice("method_chosen", f"method auto chose {name}: {reason}")
+    comparison = {
+        "ranking": [vars(r) for r in rows],
+        "recommended": name,
+        "reason": reason,
+    }
+    return replace(result, warnings=(chose, *skipped, *result.warnings), comparison=comparison)
