@@ -397,6 +397,36 @@ def bench_overhead(rng: np.random.Generator, repeats: int) -> list[Row]:
 
 
 # -- driver -------------------------------------------------------------------------------
+# -- compare ------------------------------------------------------------------------------
+def bench_compare(rng: np.random.Generator, repeats: int) -> list[Row]:
+    """compare over every method that applies, against tuning each method alone (its own
+    parse, checks, sort and folds, then its path), summed, in the same run."""
+    from nearwise.core import compare
+    from nearwise.core.methods import METHODS
+
+    n, p = 5000, 3
+    X = rng.uniform(0, 1, (n, p))
+    y = np.sin(3 * X[:, 0]) + X[:, 1] ** 2 + X[:, 2] + rng.normal(0, 0.1, n)
+    cols = ("a", "b", "c", "y")
+    job = Job("compare", Table("train", cols, np.column_stack([X, y])), "y")
+    t_ours, result = best_of(lambda: compare.compare(job), repeats)
+    names = [r.method for r in result.ranking]
+    print(f"compare: n={n}, p={p}, methods {', '.join(names)}", flush=True)
+
+    def alone() -> None:
+        for name in names:
+            solo = Job(name, job.train, "y")
+            settings, grid = pipeline.check_method(METHODS[name], solo, {}, {})
+            pipeline.tune(pipeline.setup(solo), METHODS[name], settings, grid)
+
+    t_base, _ = best_of(alone, repeats)
+    note(
+        f"recommended {result.recommended}; skipped: "
+        f"{', '.join(w.message.split(' was')[0] for w in result.warnings) or 'none'}"
+    )
+    return [Row("compare vs sum of tuning each alone", t_ours, t_base, False, 1.2)]
+
+
 BENCHES: dict[str, Callable[[np.random.Generator, int], list[Row]]] = {
     "knn": bench_knn,
     "thinplate": bench_thinplate,
@@ -404,6 +434,7 @@ BENCHES: dict[str, Callable[[np.random.Generator, int], list[Row]]] = {
     "json": bench_json,
     "locality": bench_locality,
     "overhead": bench_overhead,
+    "compare": bench_compare,
 }
 
 
