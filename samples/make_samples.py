@@ -114,6 +114,12 @@ REQUESTS = {
         "grid": {"degree": [1, 2, 3, 4, 5]},
         "tuning": {"scheme": "loo", "rule": "one_se"},
     },
+    # Every method that applies, on the same folds: POST it to /v1/compare.
+    "compare_turbine.json": {
+        "target": "power_kw",
+        "features": ["wind_ms", "air_density"],
+        "tuning": {"folds": 5, "seed": 0},
+    },
 }
 
 

@@ -1,0 +1,99 @@
+"""The samples a newcomer runs first: regenerated identically, and every curl script answered
+by a real server on 127.0.0.1."""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from test_cli import free_port, request
+
+SAMPLES = Path(__file__).resolve().parents[2] / "samples"
+
+
+def test_make_samples_regenerates_the_committed_files(tmp_path: Path) -> None:
+    copy = tmp_path / "samples"
+    shutil.copytree(SAMPLES, copy)
+    subprocess.run(
+        [sys.executable, str(copy / "make_samples.py")], check=True, capture_output=True, timeout=60
+    )
+    for name in (
+        "turbine_train.csv",
+        "turbine_query.csv",
+        "predict_spline.json",
+        "predict_knn.json",
+        "predict_linear.json",
+        "compare_turbine.json",
+    ):
+        assert (copy / name).read_bytes() == (SAMPLES / name).read_bytes(), name
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    port = free_port()
+    log = (tmp_path_factory.mktemp("serve") / "serve.log").open("wb")
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "nearwise",
+            "serve",
+            "--bind",
+            f"127.0.0.1:{port}",
+            "--workers",
+            "1",
+            "--threads",
+            "2",
+        ],
+        stdout=log,
+        stderr=subprocess.STDOUT,
+        env={k: v for k, v in os.environ.items() if not k.startswith("NEARWISE_")},
+    )
+    try:
+        deadline = time.monotonic() + 60
+        while True:
+            try:
+                if request(port, "GET", "/healthz")[0] == 200:
+                    break
+            except OSError:
+                pass
+            assert proc.poll() is None and time.monotonic() < deadline
+            time.sleep(0.2)
+        yield f"http://127.0.0.1:{port}"
+    finally:
+        proc.terminate()
+        proc.wait(timeout=30)
+        log.close()
+
+
+@pytest.mark.skipif(shutil.which("curl") is None, reason="curl is not installed")
+@pytest.mark.parametrize(
+    ("script", "args", "kind"),
+    [
+        ("curl_predict.sh", [], "json"),
+        ("curl_predict.sh", ["knn"], "json"),
+        ("curl_predict.sh", ["linear"], "json"),
+        ("curl_compare.sh", [], "json"),
+        ("curl_csv.sh", [], "csv"),
+    ],
+)
+def test_sample_scripts_get_answers(server: str, script: str, args: list[str], kind: str) -> None:
+    out = subprocess.run(
+        ["bash", str(SAMPLES / script), *args],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        env={**os.environ, "NEARWISE_URL": server},
+    )
+    assert out.returncode == 0, out.stderr
+    if kind == "json":
+        doc = json.loads(out.stdout)
+        assert "predictions" in doc or "recommended" in doc
+    else:
+        assert out.stdout.splitlines()[0].endswith("prediction,std_error,lower,upper,flags")
