@@ -129,13 +129,13 @@ def rank(ctx: pipeline.Context, tuned: dict[str, pipeline.Tuned]) -> list[RankRo
     for name, t in tuned.items():
         c = t.chosen
         df = t.path.df[c]
+        params = {**{k: v for k, v in t.settings.items() if v is not None}, t.tuned: t.values[c]}
+        p = ctx.X.shape[1]
+        params.update(pipeline.method_extra_params(t.method, t.settings, t.values[c], p))
         rows.append(
             RankRow(
                 method=name,
-                params={
-                    **{k: v for k, v in t.settings.items() if v is not None},
-                    t.tuned: t.values[c],
-                },
+                params=params,
                 error=float(t.scores.error[c]),
                 error_se=float(t.scores.error_se[c]),
                 df=float(df) if np.isfinite(df) else None,
