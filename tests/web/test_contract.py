@@ -72,4 +72,7 @@ def test_methods_catalogue(client) -> None:
     for m in doc["methods"]:
         assert m["default_grid"] and m["std_error"] and m["references"]
         tuned = [p for p in m["parameters"] if p["tunable"]]
-        assert [p["name"] for p in tuned] == [m["tuned"]] and tuned[0]["simpler"]
+        # `tuned` is the default; a method may tune another one under some settings
+        # (linear tunes `alpha` with a penalty).
+        assert m["tuned"] in [p["name"] for p in tuned]
+        assert all(p["simpler"] for p in tuned)

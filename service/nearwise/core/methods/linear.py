@@ -16,193 +16,44 @@ deletion formulas behind leave-one-out updates.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Any
+from functools import partial
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import linalg
 
 from nearwise.core.data import Scaler
-from nearwise.core.errors import InvalidValue, TooFewRows, Where
+from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
+from nearwise.core.methods import penalized
 from nearwise.core.methods.base import Method, Param, PathResult
-from nearwise.core.methods.polynomial import (
-    design,
-    monomials,
-    qr_kept,
-    raw_transform,
-    row_norms,
-    term_name,
-)
+from nearwise.core.methods.linear_fit import FittedLinear, FoldLinear
+from nearwise.core.methods.polynomial import design, monomials, qr_kept
 from nearwise.core.results import Notice
 
-
-@dataclass(frozen=True)
-class FoldLinear:
-    """The coefficients of every degree on one training fold."""
-
-    scaler: Scaler
-    terms: list[tuple[int, ...]]
-    betas: tuple[tuple[np.ndarray, np.ndarray], ...]  # (columns used, coefficients)
-
-    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
-        cols, beta = self.betas[c]
-        return design(self.scaler.transform(Xq), self.terms)[:, cols] @ beta
-
-
-@dataclass
-class FittedLinear:
-    """A polynomial least-squares fit on all usable rows (aliased terms dropped)."""
-
-    terms: list[tuple[int, ...]]  # every term of the degree
-    kept: np.ndarray  # the determined ones, in order
-    scaler: Scaler
-    beta: np.ndarray  # on the standardised basis, kept terms only
-    Q: np.ndarray
-    R: np.ndarray
-    y: np.ndarray
-    fitted: np.ndarray
-    sigma: float
-    r2: float
-    names: tuple[str, ...]
-
-    @property
-    def df(self) -> float:
-        return float(self.kept.size)
-
-    @property
-    def n(self) -> int:
-        return int(self.y.size)
-
-    def _design(self, Xq: np.ndarray) -> np.ndarray:
-        return design(self.scaler.transform(Xq), self.terms)[:, self.kept]
-
-    def predict(self, Xq: np.ndarray) -> np.ndarray:
-        return self._design(Xq) @ self.beta
-
-    def _a(self, Xq: np.ndarray) -> np.ndarray:
-        """R^-T d0 per query row: x0'(X'X)^-1 x0 = |a0|^2 and x0'(X'X)^-1 x_i = a0'q_i."""
-        return linalg.solve_triangular(self.R, self._design(Xq).T, trans="T").T
-
-    def leverage_root(self, Xq: np.ndarray) -> np.ndarray:
-        """sqrt(x0'(X'X)^-1 x0), by QR (never an inverse of X'X), without overflow."""
-        return row_norms(self._a(Xq))
-
-    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
-        """Standard error of the fitted mean: sigma sqrt(h0)."""
-        return self.sigma * self.leverage_root(Xq)
-
-    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
-        """Classical t interval for a new observation: f +/- t sigma sqrt(1 + h0)."""
-        t = stats.t.ppf(0.5 + level / 2, self.n - self.kept.size)
-        root = self.leverage_root(Xq)
-        half = t * self.sigma * np.hypot(1.0, root)
-        f = self.predict(Xq)
-        return f - half, f + half
-
-    def _leverage_train(self) -> np.ndarray:
-        return np.sum(self.Q**2, axis=1)
-
-    def loo_residuals(self) -> np.ndarray:
-        """e_i / (1 - h_i); NaN where h_i = 1 (the row alone determines a term)."""
-        h = self._leverage_train()
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out = (self.y - self.fitted) / (1.0 - h)
-        return np.where(h < 1 - 1e-10, out, np.nan)
-
-    def loo_predictions(self, Xq: np.ndarray):
-        """mu_{-i}(x0) = mu(x0) - a0'q_i e_i / (1 - h_i) for every training row i (Belsley,
-        Kuh & Welsch 1980)."""
-        A = self._a(Xq)
-        base = A @ (self.Q.T @ self.y)  # equals predict(Xq)
-        step = self.loo_residuals()
-
-        def block(rows: np.ndarray) -> np.ndarray:
-            return base[rows, None] - (A[rows] @ self.Q.T) * step[None, :]
-
-        return block
-
-    def query_notices(self, Xq: np.ndarray) -> list[Notice]:
-        """``high_leverage``: h0 above the largest training leverage, the hidden
-        extrapolation of Montgomery, Peck & Vining (2012, section 3.8)."""
-        h_max = float(np.max(self._leverage_train()))
-        rows = np.flatnonzero(self.leverage_root(Xq) > np.sqrt(h_max) * (1 + 1e-9))
-        if not rows.size:
-            return []
-        return [
-            Notice(
-                "high_leverage",
-                f"{rows.size} row(s) have leverage x0'(X'X)^-1 x0 above the largest among the "
-                f"training rows ({h_max:.3g}): the polynomial extrapolates there, even if each "
-                "feature lies inside its range.",
-                tuple(int(i) for i in rows),
-            )
-        ]
-
-    def aliased(self) -> list[str]:
-        dropped = sorted(set(range(len(self.terms))) - set(self.kept.tolist()))
-        return [term_name(self.terms[j], self.names) for j in dropped]
-
-    def notices(self) -> list[Notice]:
-        names = self.aliased()
-        if not names:
-            return []
-        return [
-            Notice(
-                "rank_deficient",
-                f"the terms {', '.join(names)} cannot be told apart from the other terms in "
-                "these data (too few distinct values, or features that move together); they "
-                "were dropped from the fit.",
-            )
-        ]
-
-    def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
-        kept_terms = [self.terms[j] for j in self.kept]
-        T = raw_transform(kept_terms, self.scaler.shift, self.scaler.scale)
-        est = T @ self.beta
-        Rinv = linalg.solve_triangular(self.R, np.eye(self.R.shape[0]))
-        se = self.sigma * row_norms(T @ Rinv)
-        dof = self.n - self.kept.size
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            t = np.where(se > 0, est / se, np.nan)
-        p = 2 * stats.t.sf(np.abs(t), dof)
-        rows = [
-            {
-                "name": term_name(e, names),
-                "estimate": float(est[i]),
-                "std_error": float(se[i]),
-                "t": None if np.isnan(t[i]) else float(t[i]),
-                "p_value": None if np.isnan(p[i]) else float(p[i]),
-            }
-            for i, e in enumerate(kept_terms)
-        ]
-        return {
-            "terms": rows,
-            "aliased_terms": self.aliased(),
-            "sigma": self.sigma,
-            "r2": self.r2,
-            "residual_df": dof,
-        }
+__all__ = ["FittedLinear", "FoldLinear", "Linear", "monomials"]
 
 
 class Linear(Method):
-    """Polynomial least squares."""
+    """Polynomial least squares, optionally with a ridge or lasso penalty."""
 
     name = "linear"
     summary = (
-        "Least squares on a polynomial basis of the features, solved by QR. Larger "
-        "degree is more flexible."
+        "Least squares on a polynomial basis of the features, solved by QR; larger degree is "
+        "more flexible. With `penalty` ridge or lasso the degree is fixed (default 1), the "
+        "basis columns are standardized and `alpha` is tuned on a path; larger alpha is "
+        "simpler, and the lasso sets some terms to zero. The lasso is tuned by kfold only."
     )
     tuned = "degree"
     interval_kinds = ("cv_plus", "model")
     default_grid = (
-        "degree = 1, 2, 3 (a degree with as many terms as a training fold has rows is left out)"
+        "without a penalty: degree = 1, 2, 3 (a degree with as many terms as a training fold "
+        f"has rows is left out); {penalized.GRID_DOC}"
     )
     params = (
         Param(
             "degree",
             "integer",
             None,
-            "total polynomial degree",
+            "total polynomial degree; tuned without a penalty, fixed with one (default 1)",
             low=1,
             high=5,
             tunable=True,
@@ -214,24 +65,109 @@ class Linear(Method):
             None,
             "include products of different features (default: true when degree > 1)",
         ),
+        Param(
+            "penalty",
+            "choice",
+            "none",
+            "`none` (least squares; `degree` is tuned), `ridge` or `lasso` (`alpha` is tuned). "
+            "With a penalty every basis column but the intercept is centered and scaled to unit "
+            "variance on the rows fitted, the intercept is not penalized, and coefficients are "
+            "reported in the original units",
+            choices=("none", *penalized.PENALTIES),
+        ),
+        Param(
+            "alpha",
+            "number",
+            None,
+            "penalty weight on the standardized columns Z, as in scikit-learn: ridge minimizes "
+            "||y - b0 - Zw||^2 + alpha ||w||^2 (Ridge), lasso ||y - b0 - Zw||^2 / (2n) + alpha "
+            "||w||_1 (Lasso), n the rows fitted; 0 is least squares. Only with a penalty",
+            low=0.0,
+            tunable=True,
+            simpler="larger",
+        ),
     )
     std_error_doc = (
-        "standard error of the fitted mean, sigma * sqrt(x0' (X'X)^-1 x0), "
-        "computed from the QR factor R"
+        "standard error of the fitted mean. Without a penalty: sigma * sqrt(x0' (X'X)^-1 x0), "
+        "computed from the QR factor R. Ridge: sigma * sqrt(1/n + z0' (Z'Z + alpha I)^-1 Z'Z "
+        "(Z'Z + alpha I)^-1 z0) on the centered standardized basis (from its SVD), the "
+        "variance at fixed alpha, ignoring the bias. Lasso: sigma * sqrt(1/n + z0_A' "
+        "(Z_A'Z_A)^-1 z0_A), least squares on the kept terms A, which ignores the selection "
+        "and the shrinkage and so understates the uncertainty. sigma^2 = RSS / (n - df); df "
+        "is 1 + sum d^2 / (d^2 + alpha) for ridge (d the singular values of the centered "
+        "basis), 1 + the number of nonzero coefficients for the lasso"
     )
     model_interval_doc = (
         "t interval for a new observation: f +/- t(n - p, (1 + level) / 2) sigma "
         "sqrt(1 + x0' (X'X)^-1 x0); exact when the polynomial is the true mean and the noise "
-        "is normal with constant variance"
+        "is normal with constant variance. Not offered with a penalty"
     )
     references = (
         "Montgomery, Peck & Vining (2012), Introduction to Linear Regression Analysis, 5th ed.",
+        "Hoerl & Kennard (1970), Ridge regression: biased estimation for nonorthogonal "
+        "problems, Technometrics 12",
+        "Tibshirani (1996), Regression shrinkage and selection via the lasso, JRSS B 58",
+        "Friedman, Hastie & Tibshirani (2010), Regularization paths for generalized linear "
+        "models via coordinate descent, J. Stat. Software 33",
+        "Zou, Hastie & Tibshirani (2007), On the degrees of freedom of the lasso, Ann. Stat. 35",
     )
 
-    def order(self, values):
-        return sorted(values)
+    # The tuned parameter depends on the penalty ---------------------------------------------
+    def tuned_for(self, settings) -> str:
+        return "degree" if settings.get("penalty", "none") == "none" else "alpha"
 
-    def is_bound(self, value, folds):
+    def schemes_for(self, settings) -> tuple[str, ...]:
+        return ("kfold",) if settings.get("penalty") == "lasso" else self.schemes
+
+    def interval_kinds_for(self, settings) -> tuple[str, ...]:
+        return self.interval_kinds if settings.get("penalty", "none") == "none" else ("cv_plus",)
+
+    def settings(self, given):
+        out = super().settings(given)
+        if out["penalty"] == "none":
+            if "alpha" in out:
+                raise NotApplicable(
+                    "`alpha` applies with `penalty` ridge or lasso; set `params.penalty` or "
+                    "leave out `alpha`.",
+                    [Where(("params", "alpha"), "no penalty to weigh")],
+                )
+            return out
+        out.setdefault("degree", 1)
+        if out.get("interactions") is None:
+            out["interactions"] = out["degree"] > 1
+        return out
+
+    def check_grid(self, grid, settings):
+        penalty = settings.get("penalty", "none")
+        if penalty == "none" and "alpha" in grid:
+            raise NotApplicable(
+                "`alpha` is tuned only with `penalty` ridge or lasso; set `params.penalty`, or "
+                "give a grid for `degree`.",
+                [Where(("grid", "alpha"), "no penalty to tune")],
+            )
+        if penalty != "none" and "degree" in grid:
+            raise NotApplicable(
+                f"with `penalty: {penalty}` the degree is fixed (`params.degree`, default 1) "
+                "and `alpha` is tuned; give a grid for `alpha`, or use `penalty: none` to tune "
+                "the degree.",
+                [Where(("grid", "degree"), "fixed with a penalty")],
+            )
+        return super().check_grid(grid, settings)
+
+    def order(self, values, settings=None):
+        """Simplest first: degrees ascending, alphas descending (alphas are floats)."""
+        if settings is not None:
+            alpha = self.tuned_for(settings) == "alpha"
+        else:
+            alpha = any(isinstance(v, float) for v in values)
+        return sorted(values, reverse=alpha)
+
+    def is_bound(self, value, folds, work=None):
+        """Degree 1 and 5 are the limits; alpha 0 (least squares) and, for the lasso, alpha at
+        or above alpha_max (every coefficient zero) are too."""
+        if isinstance(value, float):
+            top = (work or {}).get("lasso_alpha_max")
+            return value == 0 or (top is not None and value >= top)
         return value in (1, 5)
 
     def _terms(self, p: int, degree: int, settings) -> list[tuple[int, ...]]:
@@ -239,6 +175,9 @@ class Linear(Method):
         return monomials(p, degree, True if inter is None else inter)
 
     def candidates(self, X, y, folds, settings, grid, work=None):
+        if settings.get("penalty", "none") != "none":
+            order = partial(self.order, settings=settings)
+            return penalized.candidates(X, y, folds, settings, grid, order, work)
         p = X.shape[1]
         if "degree" in settings:
             values, source = [settings["degree"]], ("params", "degree")
@@ -280,6 +219,8 @@ class Linear(Method):
         return ok
 
     def path(self, X, y, folds, settings, values, work=None):
+        if settings.get("penalty", "none") != "none":
+            return penalized.path(X, y, folds, settings, values, work)
         n, p = X.shape
         sc = Scaler.fit(X, "standard")
         top = self._terms(p, max(values), settings)
@@ -319,6 +260,9 @@ class Linear(Method):
 
     def fit(self, X, y, settings, value, work=None):
         n, p = X.shape
+        if settings.get("penalty", "none") != "none":
+            names = tuple((work or {}).get("features") or (f"x{j}" for j in range(p)))
+            return penalized.fit(X, y, settings, value, names, work)
         terms = self._terms(p, int(value), settings)
         sc = Scaler.fit(X, "standard")
         D = design(sc.transform(X), terms)

@@ -1,0 +1,322 @@
+"""Ridge and lasso on a standardized polynomial basis, with the whole alpha path per fold.
+
+The basis is the one of ``linear``: monomials of the standardized features, ordered by total
+degree. With a penalty, every column but the intercept is then centered and scaled to unit
+variance on the rows being fitted (a column constant on those rows is set to zero), and the
+intercept is not penalized. ``alpha`` means what it means in scikit-learn on those columns Z:
+
+- ridge minimizes ||y - b0 - Z w||^2 + alpha ||w||^2 (``sklearn.linear_model.Ridge``);
+- lasso minimizes ||y - b0 - Z w||^2 / (2 n) + alpha ||w||_1 (``sklearn.linear_model.Lasso``),
+  n the number of rows being fitted.
+
+Ridge's whole path comes from one SVD of the centered basis per fold, w = V diag(d / (d^2 +
+alpha)) U'y, and its leave-one-out and GCV scores from the hat matrix of the full-data SVD.
+Lasso's path is scikit-learn's coordinate-descent ``lasso_path`` per fold, warm-started along
+the shared alpha grid; lasso is tuned by K-fold only (it has no exact leave-one-out update).
+
+References
+----------
+Hoerl, A. E. & Kennard, R. W. (1970). Ridge regression: biased estimation for nonorthogonal
+problems. *Technometrics* 12, 55-67.
+Tibshirani, R. (1996). Regression shrinkage and selection via the lasso. *JRSS B* 58, 267-288.
+Friedman, J., Hastie, T. & Tibshirani, R. (2010). Regularization paths for generalized linear
+models via coordinate descent. *Journal of Statistical Software* 33(1).
+Golub, G. H., Heath, M. & Wahba, G. (1979). Generalized cross-validation as a method for
+choosing a good ridge parameter. *Technometrics* 21, 215-223.
+Zou, H., Hastie, T. & Tibshirani, R. (2007). On the "degrees of freedom" of the lasso. *Annals
+of Statistics* 35, 2173-2192.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.linear_model import lasso_path
+
+from nearwise.core.data import Scaler
+from nearwise.core.errors import InvalidValue, NotApplicable, Where
+from nearwise.core.methods.base import PathResult
+from nearwise.core.methods.penalized_fit import FittedPenalized
+from nearwise.core.methods.polynomial import design, monomials
+
+PENALTIES = ("ridge", "lasso")
+GRID_SIZE = 30
+GRID_SPAN = 1e-4  # the default path runs from alpha_max down to alpha_max * GRID_SPAN
+RIDGE_TOP = 100.0  # ridge alpha_max = RIDGE_TOP * d_max^2: every shrinkage factor <= 1/101
+MAX_TERMS = 1000
+RANK_TOL = 1e-9  # singular values below this share of the largest are null directions
+CONSTANT_TOL = 1e-12  # a column whose sd is below this share of its largest |value| is constant
+LASSO_TOL = 1e-10  # scikit-learn's dual-gap tolerance (relative to ||y||^2)
+LASSO_MAX_ITER = 100_000
+
+GRID_DOC = (
+    f"with a penalty: {GRID_SIZE} values of alpha spaced evenly on a log scale from alpha_max "
+    f"down to alpha_max * {GRID_SPAN:g}, largest (simplest) first, fixed from all rows before "
+    "the folds; lasso: alpha_max = max_j |z_j'(y - mean y)| / n, the smallest alpha at which "
+    f"every penalized coefficient is zero; ridge: alpha_max = {RIDGE_TOP:g} d_max^2 (d_max the "
+    f"largest singular value of the centered basis), where every direction is shrunk by a "
+    f"factor of at most 1/{RIDGE_TOP + 1:g} and the fit is within 1% of the mean"
+)
+
+
+@dataclass(frozen=True)
+class Basis:
+    """Monomials of the standardized features, each column then scaled to unit variance."""
+
+    scaler: Scaler
+    terms: list[tuple[int, ...]]  # terms[0] is the intercept
+    mean: np.ndarray
+    sd: np.ndarray
+    constant: np.ndarray
+
+    @classmethod
+    def fit(cls, X: np.ndarray, terms: list[tuple[int, ...]]) -> Basis:
+        scaler = Scaler.fit(X, "standard")
+        B = design(scaler.transform(X), terms)[:, 1:]
+        mean, sd = B.mean(axis=0), B.std(axis=0)
+        constant = (np.ptp(B, axis=0) == 0) | (sd <= CONSTANT_TOL * np.max(np.abs(B), axis=0))
+        return cls(scaler, terms, mean, np.where(constant, 1.0, sd), constant)
+
+    def transform(self, X: np.ndarray) -> np.ndarray:
+        Z = (design(self.scaler.transform(X), self.terms)[:, 1:] - self.mean) / self.sd
+        Z[:, self.constant] = 0.0
+        return Z
+
+
+@dataclass(frozen=True)
+class RidgeSVD:
+    """The SVD of the centered basis, Zc = U diag(d) V', and U'(y - mean y)."""
+
+    U: np.ndarray
+    d: np.ndarray
+    V: np.ndarray
+    uty: np.ndarray
+
+    @classmethod
+    def of(cls, Zc: np.ndarray, yc: np.ndarray) -> RidgeSVD:
+        if Zc.shape[1] == 0:  # nothing kept: the fit is the mean
+            return cls(np.zeros((Zc.shape[0], 0)), np.zeros(0), np.zeros((0, 0)), np.zeros(0))
+        try:
+            U, d, Vt = linalg.svd(Zc, full_matrices=False, lapack_driver="gesdd")
+        except linalg.LinAlgError:  # pragma: no cover - divide and conquer rarely fails
+            U, d, Vt = linalg.svd(Zc, full_matrices=False, lapack_driver="gesvd")
+        return cls(U, d, Vt.T, U.T @ yc)
+
+    def gain(self, alphas) -> np.ndarray:
+        """1 / (d^2 + alpha) per direction and alpha; 0 on null directions."""
+        d = self.d
+        null = d <= RANK_TOL * (d[0] if d.size else 0.0)
+        with np.errstate(divide="ignore"):
+            g = 1.0 / (d[:, None] ** 2 + np.asarray(alphas, dtype=float)[None, :])
+        return np.where(null[:, None], 0.0, g)
+
+    def shrink(self, alphas) -> np.ndarray:
+        """d^2 / (d^2 + alpha): the share of each direction kept (the ridge df per direction)."""
+        return self.d[:, None] ** 2 * self.gain(alphas)
+
+    def coefs(self, alphas) -> np.ndarray:
+        return self.V @ (self.gain(alphas) * (self.d * self.uty)[:, None])
+
+
+def lasso_coefs(Zc: np.ndarray, yc: np.ndarray, alphas) -> tuple[np.ndarray, np.ndarray]:
+    """Lasso coefficients (columns of W, one per alpha) on centered data, and convergence flags.
+
+    Positive alphas are solved by scikit-learn's ``lasso_path`` from the largest down (warm
+    starts); alpha 0 is least squares (minimum norm where columns are aliased).
+    """
+    alphas = np.asarray(alphas, dtype=float)
+    W = np.zeros((Zc.shape[1], alphas.size))
+    converged = np.ones(alphas.size, dtype=bool)
+    pos = np.flatnonzero(alphas > 0)
+    if pos.size:
+        pos = pos[np.argsort(-alphas[pos], kind="stable")]  # lasso_path's order
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)  # reported as `converged`
+            _, coefs, _, iters = lasso_path(
+                Zc,
+                yc,
+                alphas=alphas[pos],
+                tol=LASSO_TOL,
+                max_iter=LASSO_MAX_ITER,
+                return_n_iter=True,
+            )
+        W[:, pos] = coefs
+        converged[pos] = np.asarray(iters) < LASSO_MAX_ITER
+    zero = np.flatnonzero(alphas == 0)
+    if zero.size:
+        W[:, zero] = RidgeSVD.of(Zc, yc).coefs([0.0])
+    return W, converged
+
+
+def solve(Z, y, penalty, alphas, svd=None):
+    """Intercepts (one per alpha), coefficients W (columns per alpha) and the factorization.
+
+    ``Z`` is the basis on the rows being fitted; it is centered here, so the intercept is the
+    unpenalized b0 = mean y - mean(Z) w.
+    """
+    zbar, ybar = Z.mean(axis=0), float(y.mean())
+    Zc, yc = Z - zbar, y - ybar
+    converged = np.ones(len(alphas), dtype=bool)
+    if penalty == "ridge":
+        svd = svd or RidgeSVD.of(Zc, yc)
+        W = svd.coefs(alphas)
+    else:
+        W, converged = lasso_coefs(Zc, yc, alphas)
+    return ybar - zbar @ W, W, converged, svd
+
+
+@dataclass(frozen=True)
+class FoldPenalized:
+    """Every alpha's coefficients on one training fold, with that fold's standardization."""
+
+    basis: Basis
+    b0: np.ndarray
+    W: np.ndarray
+
+    def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
+        return self.b0[c] + self.basis.transform(Xq) @ self.W[:, c]
+
+
+def terms_for(p: int, settings) -> list[tuple[int, ...]]:
+    degree = settings.get("degree", 1)
+    inter = settings.get("interactions")
+    terms = monomials(p, degree, degree > 1 if inter is None else inter)
+    if len(terms) - 1 > MAX_TERMS:
+        raise InvalidValue(
+            f"degree {degree} on {p} features makes {len(terms) - 1} terms; a penalized fit "
+            f"takes at most {MAX_TERMS}. Use a lower degree or `interactions: false`.",
+            [Where(("params", "degree"), "too many terms")],
+        )
+    return terms
+
+
+def _full(X, y, terms, work) -> tuple[Basis, np.ndarray, RidgeSVD]:
+    """The basis, Z and the SVD on all rows, kept in ``work`` for the later steps."""
+    key = (id(X), id(y), X.shape, tuple(terms))
+    cached = (work or {}).get("penalized_full")
+    if cached is not None and cached[0] == key:
+        return cached[1]
+    basis = Basis.fit(X, terms)
+    Z = basis.transform(X)
+    full = (basis, Z, RidgeSVD.of(Z - Z.mean(axis=0), y - y.mean()))
+    if work is not None:
+        work["penalized_full"] = (key, full)
+    return full
+
+
+def default_grid(penalty: str, Z: np.ndarray, y: np.ndarray, svd: RidgeSVD) -> list[float]:
+    if penalty == "lasso":
+        top = float(np.max(np.abs((Z - Z.mean(axis=0)).T @ (y - y.mean())))) / y.size
+    else:
+        top = RIDGE_TOP * float(svd.d[0]) ** 2 if svd.d.size else 0.0
+    if not top > 0:  # constant target or constant features: every alpha gives the mean
+        top = 1.0
+    return (top * np.logspace(0.0, np.log10(GRID_SPAN), GRID_SIZE)).tolist()
+
+
+def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
+    penalty = settings.get("penalty")
+    if penalty == "lasso" and folds.scheme != "kfold":
+        raise NotApplicable(
+            f"`tuning.scheme` {folds.scheme} does not apply to the lasso: it has no exact "
+            "leave-one-out update. Use `tuning.scheme: kfold`, or `penalty: ridge`.",
+            [Where(("tuning", "scheme"), "lasso is tuned by kfold only")],
+        )
+    terms = terms_for(X.shape[1], settings)
+    _, Z, svd = _full(X, y, terms, work)
+    if "alpha" in settings:
+        values = [float(settings["alpha"])]
+    elif grid is not None:
+        values = order([float(v) for v in grid])
+    else:
+        values = default_grid(penalty, Z, y, svd)
+    if work is not None and penalty == "lasso":
+        work["lasso_alpha_max"] = default_grid("lasso", Z, y, svd)[0]
+    return values
+
+
+def path(X, y, folds, settings, values, work=None) -> PathResult:
+    n = X.shape[0]
+    penalty = settings.get("penalty")
+    terms = terms_for(X.shape[1], settings)
+    _, Z, svd = _full(X, y, terms, work)
+    if folds.scheme == "kfold":
+        oof = np.empty((len(values), folds.repeats, n))
+        models = []
+        for r, _f, train, test in folds.splits():
+            fold = Basis.fit(X[train], terms)
+            b0, W, _, _ = solve(fold.transform(X[train]), y[train], penalty, values)
+            oof[:, r, test] = b0[:, None] + (fold.transform(X[test]) @ W).T
+            if r == 0:
+                models.append(FoldPenalized(fold, b0, W))
+        if penalty == "ridge":
+            df = 1.0 + svd.shrink(values).sum(axis=0)
+        else:
+            b0, W, converged, _ = solve(Z, y, penalty, values)
+            if work is not None:
+                work["lasso_full"] = (dict(zip(values, W.T, strict=True)), converged)
+            df = 1.0 + np.count_nonzero(W, axis=0)
+        return PathResult(oof, df.astype(float), fold_models=tuple(models))
+    S = svd.shrink(values)  # ridge only: candidates refuse lasso with loo and gcv
+    fitted = y.mean() + (svd.U @ (S * svd.uty[:, None])).T
+    df = 1.0 + S.sum(axis=0)
+    if folds.scheme == "gcv":
+        return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
+    h = (1.0 / n + svd.U**2 @ S).T
+    with np.errstate(divide="ignore", invalid="ignore"):
+        loo = y[None, :] - (y[None, :] - fitted) / (1 - h)
+    loo = np.where(h < 1 - 1e-10, loo, np.nan)
+    return PathResult(loo[:, None, :], df)
+
+
+def fit(X, y, settings, alpha, names, work=None) -> FittedPenalized:
+    terms = terms_for(X.shape[1], settings)
+    basis, Z, svd = _full(X, y, terms, work)
+    lasso = (work or {}).get("lasso_full")
+    return fit_with(basis, Z, y, settings.get("penalty"), float(alpha), names, svd, lasso)
+
+
+def fit_with(basis, Z, y, penalty, alpha, names, svd=None, lasso=None) -> FittedPenalized:
+    """The fit on rows whose basis ``Z`` was computed with ``basis`` (fixed standardization)."""
+    zbar, ybar = Z.mean(axis=0), float(y.mean())
+    if penalty == "ridge":
+        svd = svd or RidgeSVD.of(Z - zbar, y - ybar)
+        w = svd.coefs([alpha])[:, 0]
+        U, d, V, g_hat = svd.U, svd.d, svd.V, svd.gain([alpha])[:, 0]
+        g_var = d**2 * g_hat**2
+        converged = True
+    else:
+        if lasso is not None and alpha in lasso[0]:
+            w = lasso[0][alpha]
+            converged = bool(lasso[1][list(lasso[0]).index(alpha)])
+        else:
+            W, conv = lasso_coefs(Z - zbar, y - ybar, [alpha])
+            w, converged = W[:, 0], bool(conv[0])
+        active = np.flatnonzero(w)
+        sub = RidgeSVD.of((Z - zbar)[:, active], y - ybar)
+        U, d = sub.U, sub.d
+        V = np.zeros((w.size, d.size))
+        V[active] = sub.V
+        g_hat = g_var = sub.gain([0.0])[:, 0]  # least squares on the kept terms
+    b0 = ybar - zbar @ w
+    return FittedPenalized(
+        basis=basis,
+        penalty=penalty,
+        alpha=alpha,
+        b0=float(b0),
+        w=w,
+        zbar=zbar,
+        U=U,
+        d=d,
+        V=V,
+        g_hat=g_hat,
+        g_var=g_var,
+        y=y,
+        fitted=b0 + Z @ w,
+        names=names,
+        converged=converged,
+    )
