@@ -152,8 +152,8 @@ def lasso_coefs(Zc: np.ndarray, yc: np.ndarray, alphas) -> tuple[np.ndarray, np.
     return W, converged
 
 
-def solve(Z, y, penalty, alphas, svd=None):
-    """Intercepts (one per alpha), coefficients W (columns per alpha) and the factorization.
+def solve(Z, y, penalty, alphas):
+    """Intercepts (one per alpha), coefficients W (columns per alpha) and convergence flags.
 
     ``Z`` is the basis on the rows being fitted; it is centered here, so the intercept is the
     unpenalized b0 = mean y - mean(Z) w.
@@ -162,11 +162,10 @@ def solve(Z, y, penalty, alphas, svd=None):
     Zc, yc = Z - zbar, y - ybar
     converged = np.ones(len(alphas), dtype=bool)
     if penalty == "ridge":
-        svd = svd or RidgeSVD.of(Zc, yc)
-        W = svd.coefs(alphas)
+        W = RidgeSVD.of(Zc, yc).coefs(alphas)
     else:
         W, converged = lasso_coefs(Zc, yc, alphas)
-    return ybar - zbar @ W, W, converged, svd
+    return ybar - zbar @ W, W, converged
 
 
 @dataclass(frozen=True)
@@ -194,22 +193,23 @@ def terms_for(p: int, settings) -> list[tuple[int, ...]]:
     return terms
 
 
-def _full(X, y, terms, work) -> tuple[Basis, np.ndarray, RidgeSVD]:
-    """The basis, Z and the SVD on all rows, kept in ``work`` for the later steps."""
-    key = (id(X), id(y), X.shape, tuple(terms))
+def _full(X, y, terms, penalty, work) -> tuple[Basis, np.ndarray, RidgeSVD | None]:
+    """The basis, Z and (ridge) the SVD on all rows, kept in ``work`` for the later steps."""
+    key = (id(X), id(y), X.shape, tuple(terms), penalty)
     cached = (work or {}).get("penalized_full")
     if cached is not None and cached[0] == key:
         return cached[1]
     basis = Basis.fit(X, terms)
     Z = basis.transform(X)
-    full = (basis, Z, RidgeSVD.of(Z - Z.mean(axis=0), y - y.mean()))
+    svd = RidgeSVD.of(Z - Z.mean(axis=0), y - y.mean()) if penalty == "ridge" else None
+    full = (basis, Z, svd)
     if work is not None:
         work["penalized_full"] = (key, full)
     return full
 
 
-def default_grid(penalty: str, Z: np.ndarray, y: np.ndarray, svd: RidgeSVD) -> list[float]:
-    if penalty == "lasso":
+def default_grid(penalty: str, Z: np.ndarray, y: np.ndarray, svd: RidgeSVD | None) -> list[float]:
+    if penalty == "lasso" or svd is None:
         top = float(np.max(np.abs((Z - Z.mean(axis=0)).T @ (y - y.mean())))) / y.size
     else:
         top = RIDGE_TOP * float(svd.d[0]) ** 2 if svd.d.size else 0.0
@@ -227,7 +227,7 @@ def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
             [Where(("tuning", "scheme"), "lasso is tuned by kfold only")],
         )
     terms = terms_for(X.shape[1], settings)
-    _, Z, svd = _full(X, y, terms, work)
+    _, Z, svd = _full(X, y, terms, penalty, work)
     if "alpha" in settings:
         values = [float(settings["alpha"])]
     elif grid is not None:
@@ -235,7 +235,7 @@ def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
     else:
         values = default_grid(penalty, Z, y, svd)
     if work is not None and penalty == "lasso":
-        work["lasso_alpha_max"] = default_grid("lasso", Z, y, svd)[0]
+        work["lasso_alpha_max"] = default_grid("lasso", Z, y, None)[0]
     return values
 
 
@@ -243,25 +243,26 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
     n = X.shape[0]
     penalty = settings.get("penalty")
     terms = terms_for(X.shape[1], settings)
-    _, Z, svd = _full(X, y, terms, work)
+    _, Z, svd = _full(X, y, terms, penalty, work)
     if folds.scheme == "kfold":
         oof = np.empty((len(values), folds.repeats, n))
         models = []
         for r, _f, train, test in folds.splits():
             fold = Basis.fit(X[train], terms)
-            b0, W, _, _ = solve(fold.transform(X[train]), y[train], penalty, values)
+            b0, W, _ = solve(fold.transform(X[train]), y[train], penalty, values)
             oof[:, r, test] = b0[:, None] + (fold.transform(X[test]) @ W).T
             if r == 0:
                 models.append(FoldPenalized(fold, b0, W))
-        if penalty == "ridge":
+        if svd is not None:
             df = 1.0 + svd.shrink(values).sum(axis=0)
         else:
-            b0, W, converged, _ = solve(Z, y, penalty, values)
+            _, W, converged = solve(Z, y, penalty, values)
             if work is not None:
                 work["lasso_full"] = (dict(zip(values, W.T, strict=True)), converged)
             df = 1.0 + np.count_nonzero(W, axis=0)
         return PathResult(oof, df.astype(float), fold_models=tuple(models))
-    S = svd.shrink(values)  # ridge only: candidates refuse lasso with loo and gcv
+    assert svd is not None  # ridge only: candidates refuse lasso with loo and gcv
+    S = svd.shrink(values)
     fitted = y.mean() + (svd.U @ (S * svd.uty[:, None])).T
     df = 1.0 + S.sum(axis=0)
     if folds.scheme == "gcv":
@@ -274,10 +275,10 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
 
 
 def fit(X, y, settings, alpha, names, work=None) -> FittedPenalized:
-    terms = terms_for(X.shape[1], settings)
-    basis, Z, svd = _full(X, y, terms, work)
+    penalty = settings.get("penalty")
+    basis, Z, svd = _full(X, y, terms_for(X.shape[1], settings), penalty, work)
     lasso = (work or {}).get("lasso_full")
-    return fit_with(basis, Z, y, settings.get("penalty"), float(alpha), names, svd, lasso)
+    return fit_with(basis, Z, y, penalty, float(alpha), names, svd, lasso)
 
 
 def fit_with(basis, Z, y, penalty, alpha, names, svd=None, lasso=None) -> FittedPenalized:
