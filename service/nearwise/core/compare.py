@@ -194,7 +194,7 @@ def compare(job: Job) -> CompareResult:
 def _predict(ctx: pipeline.Context, t: pipeline.Tuned, job: Job) -> PredictResult:
     from nearwise.core import uncertainty
 
-    uncertainty.check(job.interval, t.method)
+    uncertainty.check(job.interval, t.method, t.method.interval_kinds_for(t.settings))
     return pipeline.answer(ctx, t)
 
 

@@ -88,15 +88,16 @@ def check_method(
     method: Method, job: Job, params, grid, intervals: bool = True
 ) -> tuple[dict[str, Any], Any]:
     """The method's settings and grid from the caller's values, and the options it supports."""
+    settings = method.settings(params)
     if intervals:
-        uncertainty.check(job.interval, method)
-    if job.tuning.scheme not in method.schemes:
+        uncertainty.check(job.interval, method, method.interval_kinds_for(settings))
+    schemes = method.schemes_for(settings)
+    if job.tuning.scheme not in schemes:
         raise NotApplicable(
-            f"`tuning.scheme` {job.tuning.scheme} does not apply to {method.name}; use one of "
-            f"{', '.join(method.schemes)}.",
+            f"`tuning.scheme` {job.tuning.scheme} does not apply to {method.name} with these "
+            f"settings; use one of {', '.join(schemes)}.",
             [Where(("tuning", "scheme"), f"not available for {method.name}")],
         )
-    settings = method.settings(params)
     return settings, method.check_grid(grid, settings)
 
 
@@ -248,7 +249,8 @@ def _fit_notices(data, t: Tuned, folds, model, at_query) -> list[Notice]:
             )
         )
     value = values[chosen]
-    if len(values) > 1 and chosen in (0, len(values) - 1) and not method.is_bound(value, folds):
+    at_end = len(values) > 1 and chosen in (0, len(values) - 1)
+    if at_end and not method.is_bound(value, folds, t.work):
         end = "simplest" if chosen == 0 else "most flexible"
         notices.append(
             Notice(

@@ -205,9 +205,14 @@ def score(
     pooled = loss.reshape(n_c, -1).mean(axis=1)
     per_repeat = units.reshape(n_c, folds.repeats, -1)
     m = per_repeat.shape[2]
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore"):
         if m > 1:
-            se_units = (per_repeat.std(axis=2, ddof=1) / np.sqrt(m)).mean(axis=1)
+            # Scaled before the standard deviation so that squares of huge errors (targets
+            # near the 1e100 limit) do not overflow.
+            big = np.max(np.abs(per_repeat), axis=(1, 2))
+            big = np.where(np.isfinite(big) & (big > 0), big, 1.0)
+            unit = per_repeat / big[:, None, None]
+            se_units = big * (unit.std(axis=2, ddof=1) / np.sqrt(m)).mean(axis=1)
         else:
             se_units = np.zeros(n_c)
     if metric == "rmse":

@@ -39,7 +39,9 @@ class ErrorBars:
     notices: tuple[Notice, ...]
 
 
-def check(spec: IntervalSpec, method: Method) -> None:
+def check(spec: IntervalSpec, method: Method, kinds: tuple[str, ...] | None = None) -> None:
+    """Check the interval options; ``kinds`` are the method's kinds under its settings."""
+    kinds = method.interval_kinds if kinds is None else kinds
     if not 0.0 < spec.level < 1.0:
         raise InvalidValue(
             f"`interval.level` must lie strictly between 0 and 1; got {spec.level}.",
@@ -50,10 +52,10 @@ def check(spec: IntervalSpec, method: Method) -> None:
             f"`interval.kind` must be one of {', '.join(INTERVAL_KINDS)}; got {spec.kind!r}.",
             [Where(("interval", "kind"), "unknown kind")],
         )
-    if spec.kind not in method.interval_kinds:
+    if spec.kind not in kinds:
         raise NotApplicable(
-            f"{method.name} has no interval of kind {spec.kind!r}; use "
-            f"{' or '.join(method.interval_kinds)}.",
+            f"{method.name} has no interval of kind {spec.kind!r} with these settings; use "
+            f"{' or '.join(kinds)}.",
             [Where(("interval", "kind"), f"not offered by {method.name}")],
         )
     if spec.kind == "model" and spec.adaptive:

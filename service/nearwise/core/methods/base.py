@@ -170,6 +170,18 @@ class Method:
         """The parameter tuned under these settings (a method may tune different ones)."""
         return self.tuned
 
+    def schemes_for(self, settings: Mapping[str, Any]) -> tuple[str, ...]:
+        """The tuning schemes offered under these settings."""
+        return self.schemes
+
+    def interval_kinds_for(self, settings: Mapping[str, Any]) -> tuple[str, ...]:
+        """The interval kinds offered under these settings."""
+        return self.interval_kinds
+
+    def is_bound(self, value: Any, folds: Folds, work: Mapping[str, Any] | None = None) -> bool:
+        """Whether ``value`` is a hard limit of the tuned parameter (no widening possible)."""
+        return False
+
     def check_grid(self, grid: Mapping[str, Sequence[Any]], settings: Mapping[str, Any]):
         """Return the caller's candidate list for the tuned parameter, or None for the default."""
         tuned = self.tuned_for(settings)

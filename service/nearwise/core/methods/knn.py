@@ -328,7 +328,7 @@ class KNN(Method):
     def max_k(self, folds: Folds) -> int:
         return folds.min_train - 1
 
-    def is_bound(self, value: Any, folds: Folds) -> bool:
+    def is_bound(self, value: Any, folds: Folds, work=None) -> bool:
         return value in (1, self.max_k(folds))
 
     def _check_k(self, k: int, folds: Folds, path: tuple) -> None:

@@ -81,7 +81,7 @@ class Spline(Method):
     def order(self, values):
         return sorted(values, reverse=True)
 
-    def is_bound(self, value, folds):
+    def is_bound(self, value, folds, work=None):
         return value == 0
 
     def _check_shape(self, X, folds, settings):
