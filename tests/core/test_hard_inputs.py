@@ -156,3 +156,10 @@ def test_random_small_jobs_never_crash(seed):
         return
     pred = result.predictions
     assert np.all(pred.lower <= pred.value) and np.all(pred.value <= pred.upper)
+
+
+def test_targets_near_the_magnitude_limit_are_scored_without_overflow():
+    X = RNG.uniform(0, 1, (60, 1))
+    y = (X[:, 0] + RNG.normal(0, 0.1, 60)) * 1e90
+    result = run(_job("knn", X, y))
+    assert np.isfinite(result.fit.cv_error_se) and result.fit.cv_error_se > 0

@@ -46,7 +46,8 @@ def _warnings() -> list[dict[str, Any]]:
         {
             "code": "high_leverage",
             "concerns": rows,
-            "rule": "linear: leverage x0'(X'X)^-1 x0 above the largest training leverage "
+            "rule": "linear: leverage above the largest training leverage (x0'(X'X)^-1 x0; with "
+            "ridge 1/n + z0'(Z'Z + alpha I)^-1 z0, with lasso least squares on the kept terms) "
             "(hidden extrapolation; Montgomery, Peck & Vining 2012, section 3.8)",
         },
         {
@@ -75,8 +76,8 @@ def _warnings() -> list[dict[str, Any]]:
         {
             "code": "rank_deficient",
             "concerns": data,
-            "rule": "linear: terms the data cannot tell apart from the others (aliased) were "
-            "dropped "
+            "rule": "linear: terms the data cannot tell apart from the others (aliased; with a "
+            "penalty, constant terms only) were dropped "
             "from the fit and are named",
         },
         {
