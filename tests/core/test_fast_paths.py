@@ -10,6 +10,10 @@ from numpy.testing import assert_allclose
 
 from nearwise.core import tuning
 from nearwise.core.data import Scaler
+from nearwise.core.methods.additive import Additive
+from nearwise.core.methods.additive_basis import reduce_rows
+from nearwise.core.methods.additive_model import FittedAdditive
+from nearwise.core.methods.additive_solve import Reduced, Smoother
 from nearwise.core.methods.knn import KNN
 from nearwise.core.methods.linear import Linear
 from nearwise.core.methods.spline import Spline
@@ -119,7 +123,10 @@ def test_gcv_equals_its_definition(method, values, p):
         assert_allclose(scores.error[c] ** 2, gcv, rtol=1e-7)
 
 
-@pytest.mark.parametrize(("method", "settings", "values"), [*CASES, (Spline(), {}, [1e-3, 1.0])])
+@pytest.mark.parametrize(
+    ("method", "settings", "values"),
+    [*CASES, (Spline(), {}, [1e-3, 1.0]), (Additive(), {}, [30.0, 1.0, 0.01])],
+)
 @pytest.mark.parametrize("p", [1, 2])
 def test_fold_models_reproduce_the_out_of_fold_predictions(method, settings, values, p):
     """The models kept from the path (for intervals) are the ones that scored the path."""
@@ -163,4 +170,90 @@ def test_leave_one_out_predictions_equal_refits(method, settings, value, p, ties
         keep = np.arange(30) != i
         expect = method.fit(X[keep], y[keep], settings, value).predict(Xq)
         # Exact identities; rounding in the updates of mildly conditioned systems: 1e-8.
+        assert_allclose(loo[:, i], expect, rtol=1e-8, atol=1e-8)
+
+
+# -- additive: the basis (knots, scaling, centering) is the one of all rows, shared by the
+# folds; each training fold chooses its lambda-hat by REML, so its refit is ``fit`` on the
+# fold's rows given that basis. Leave-one-out and GCV also keep lambda-hat of all rows, so
+# their refits fix it too.
+
+
+def _additive_data(p, n=60, ties=False, seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(0, 4, size=(n, p))
+    if ties:
+        X = np.round(X * 2) / 2  # nine distinct values per feature, repeated rows
+    y = np.sin(X[:, 0]) + 0.3 * X[:, -1] ** 2 + rng.normal(0, 0.2, n)
+    return X, y
+
+
+def _fixed(full, X, y, s):
+    """The additive fit to these rows with the basis and lambda-hat of ``full``."""
+    basis = full.basis
+    red = Reduced.of(reduce_rows(basis, X, y, lambda: None), basis.k, y.size)
+    sm = Smoother.of(red, [b for _, b in basis.blocks], full.smoother.lam_hat)
+    return FittedAdditive(basis, sm, s, X, y, full.names)
+
+
+@pytest.mark.parametrize("ties", [False, True])
+@pytest.mark.parametrize("p", [1, 3])
+def test_additive_kfold_path_equals_refits(p, ties):
+    X, y = _additive_data(p, ties=ties)
+    values = [100.0, 3.0, 1.0, 0.05]
+    folds = tuning.make_folds(60, TuningSpec(folds=4, repeats=2, seed=3))
+    work: dict = {}
+    path = Additive().path(X, y, folds, {}, values, work)
+    for r, _f, train, test in folds.splits():
+        for c, v in enumerate(values):
+            refit = Additive().fit(X[train], y[train], {}, v, {"basis": work["basis"]})
+            # The fold's R from stacked per-fold factors vs a direct QR of its rows: the same
+            # reduced problem up to rounding, and a REML search that lands within ~1e-9.
+            assert_allclose(path.oof[c, r, test], refit.predict(X[test]), rtol=1e-6, atol=1e-6)
+
+
+@pytest.mark.parametrize("ties", [False, True])
+def test_additive_loo_path_equals_refits(ties):
+    X, y = _additive_data(2, n=30, ties=ties)
+    values = [10.0, 1.0, 0.1]
+    folds = tuning.make_folds(30, TuningSpec(scheme="loo"))
+    path = Additive().path(X, y, folds, {}, values)
+    full = Additive().fit(X, y, {}, 1.0)
+    for i in range(30):
+        keep = np.arange(30) != i
+        for c, v in enumerate(values):
+            expect = _fixed(full, X[keep], y[keep], v).predict(X[[i]])
+            # The leave-one-out identity of penalized least squares is exact: rounding.
+            assert_allclose(path.oof[c, 0, i], expect[0], rtol=1e-8, atol=1e-8)
+
+
+@pytest.mark.parametrize("p", [1, 2])
+def test_additive_gcv_equals_its_definition(p):
+    """GCV(s) = n RSS / (n - tr A)^2 with A built column by column at the lambda-hat of y."""
+    X, y = _additive_data(p, n=40, seed=4)
+    values = [10.0, 1.0, 0.1]
+    folds = tuning.make_folds(40, TuningSpec(scheme="gcv"))
+    path = Additive().path(X, y, folds, {}, values)
+    scores = tuning.score(y, path.oof, folds, "rmse", path.gcv_scale)
+    full = Additive().fit(X, y, {}, 1.0)
+    for c, v in enumerate(values):
+        A = np.column_stack([_fixed(full, X, e, v).fitted for e in np.eye(40)])
+        rss = np.sum((y - A @ y) ** 2)
+        # A built from 40 refits: its rounding adds up to about 1e-10 relative.
+        assert_allclose(path.df[c], np.trace(A), rtol=1e-8)
+        assert_allclose(scores.error[c] ** 2, 40 * rss / (40 - np.trace(A)) ** 2, rtol=1e-8)
+
+
+@pytest.mark.parametrize("ties", [False, True])
+def test_additive_leave_one_out_predictions_equal_refits(ties):
+    """The updates behind jackknife+ equal refitting without each row (basis and lambda-hat
+    fixed), inside and outside the data."""
+    X, y = _additive_data(2, n=30, ties=ties, seed=12)
+    Xq = np.random.default_rng(13).uniform(-0.5, 4.5, (6, 2))
+    model = Additive().fit(X, y, {}, 0.5)
+    loo = model.loo_predictions(Xq)(np.arange(6))
+    for i in range(30):
+        keep = np.arange(30) != i
+        expect = _fixed(model, X[keep], y[keep], 0.5).predict(Xq)
+        # Exact identity; rounding in the updates: 1e-8.
         assert_allclose(loo[:, i], expect, rtol=1e-8, atol=1e-8)

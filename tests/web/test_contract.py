@@ -13,7 +13,7 @@ from jsonschema import Draft202012Validator
 from webhelpers import body, curve
 
 KEPT = Path(__file__).resolve().parents[2] / "openapi" / "openapi.json"
-METHODS = ["knn", "linear", "spline"]
+METHODS = ["knn", "linear", "spline", "additive"]
 
 
 def response_validator(name: str = "PredictResponse") -> Draft202012Validator:
