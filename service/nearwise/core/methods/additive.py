@@ -66,7 +66,9 @@ class Additive(Method):
             None,
             "positive multiplier of every feature's penalty weight lambda_j on the integral "
             "of f_j''^2, each lambda_j chosen by REML inside the fit (1 keeps that choice); "
-            "`model.features[].lambda` gives the weights in force in each feature's units",
+            "`model.features[].lambda` gives the weights in force in each feature's units. "
+            "Schemes loo and gcv keep the lambda_j and knots of all rows (exact for them); "
+            "kfold lets each training fold choose its own lambda_j",
             low=0.0,
             tunable=True,
             simpler="larger",
@@ -148,11 +150,17 @@ class Additive(Method):
             )
         need = p + 2
         if folds.min_train < need:
+            if folds.scheme == "kfold":
+                held, fix = "each training fold", "Use fewer folds or fewer features."
+                where = Where(("tuning", "folds"), "training fold too small")
+            else:
+                held, fix = "each fit", "Use fewer features or more rows."
+                where = Where(("train", "rows"), f"{folds.n} usable rows")
             raise TooFewRows(
-                f"an additive model in {p} feature(s) needs at least {need} rows in each "
-                f"training fold (an intercept, a slope per feature and a residual); the "
-                f"smallest holds {folds.min_train}. Use fewer folds or fewer features.",
-                [Where(("tuning", "folds"), "training fold too small")],
+                f"an additive model in {p} feature(s) needs at least {need} rows in {held} "
+                f"(an intercept, a slope per feature and a residual); there are "
+                f"{folds.min_train}. {fix}",
+                [where],
             )
         knots = settings.get("knots") or default_knots(p)
         wiggly = p * (knots - 2)

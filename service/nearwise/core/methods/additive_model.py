@@ -191,6 +191,9 @@ class FittedAdditive:
             "df": self.df,
             "intercept": float(self.coef[0]),
             "sigma": float(np.sqrt(self.sigma2())) if np.isfinite(self.sigma2()) else None,
+            "near_linear_below_df": NEAR_LINEAR_DF,
+            "effect_band": f"f_j +/- {BAND_Z} posterior SD of f_j (centered over the training "
+            "rows, so the intercept's uncertainty is not included)",
             "features": features,
         }
 
