@@ -65,8 +65,9 @@ def _warnings() -> list[dict[str, Any]]:
         {
             "code": "interpolating",
             "concerns": data,
-            "rule": f"spline df at least {INTERPOLATING_SHARE:.0%} of the distinct rows, smoothing "
-            "0, or knn with k = 1: the fit reproduces the noise",
+            "rule": f"spline or additive df at least {INTERPOLATING_SHARE:.0%} of the distinct "
+            "rows, spline smoothing 0, or knn with k = 1 or distance weights: the fit reproduces "
+            "the noise",
         },
         {
             "code": "few_rows",
@@ -77,7 +78,8 @@ def _warnings() -> list[dict[str, Any]]:
             "code": "rank_deficient",
             "concerns": data,
             "rule": "linear: terms the data cannot tell apart from the others (aliased; with a "
-            "penalty, constant terms only) were dropped "
+            "penalty, constant terms only), or additive: straight-line terms of constant or "
+            "collinear features, were dropped "
             "from the fit and are named",
         },
         {

@@ -133,8 +133,8 @@ class PredictFields(_JobFields):
     method = fields.String(
         required=True,
         metadata=_doc(
-            "`knn`, `linear` or `spline`, or `auto` (compare them on the same folds and use "
-            "the recommended one); see GET /v1/methods.",
+            "`knn`, `linear`, `spline` or `additive`, or `auto` (compare them on the same "
+            "folds and use the recommended one); see GET /v1/methods.",
             example="spline",
         ),
     )
@@ -148,7 +148,7 @@ class CompareFields(_JobFields):
         validate=validate.Length(1, 10),
         metadata=_doc(
             "Methods to compare; default: every method that applies to the number of features.",
-            example=["knn", "linear", "spline"],
+            example=["knn", "linear", "spline", "additive"],
         ),
     )
 
