@@ -60,3 +60,18 @@ def test_auto_answers_like_predict_with_the_comparison(client) -> None:
     assert not errors, errors[0]
     assert doc["method"] == doc["comparison"]["recommended"]
     assert doc["warnings"][0]["code"] == "method_chosen"
+
+
+def test_the_readme_comparison_on_the_turbine_sample(client) -> None:
+    """README.md shows this answer; keep the two in step."""
+    sample = Path(__file__).resolve().parents[2] / "samples" / "compare_turbine.json"
+    doc = client.post(
+        "/v1/compare", data=sample.read_bytes(), content_type="application/json"
+    ).get_json()
+    assert [r["method"] for r in doc["ranking"]] == ["additive", "spline", "knn", "linear"]
+    assert doc["recommended"] == "additive"
+    assert round(doc["ranking"][0]["error"], 2) == 60.99
+    one = json.loads(sample.read_text())
+    one["features"] = ["wind_ms"]
+    doc = client.post("/v1/compare", json=one).get_json()
+    assert doc["ranking"][0]["method"] == "spline" and doc["recommended"] == "additive"
