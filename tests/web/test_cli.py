@@ -2,16 +2,12 @@
 
 from __future__ import annotations
 
-import http.client
 import json
 import os
-import socket
-import subprocess
-import sys
-import time
 from pathlib import Path
 
 import pytest
+from webhelpers import request, serving
 
 from nearwise import cli
 from nearwise.web.app import create_app
@@ -76,69 +72,11 @@ def test_serve_sets_one_blas_thread_and_gunicorn_defaults(monkeypatch) -> None:
     }
 
 
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-def request(
-    port: int, method: str, path: str, body: bytes | None = None, chunked: bool = False
-) -> tuple[int, bytes]:
-    conn = http.client.HTTPConnection("127.0.0.1", port, timeout=10)
-    try:
-        headers = {"Content-Type": "application/json"} if body is not None else {}
-        payload = iter([body]) if chunked and body is not None else body
-        conn.request(method, path, body=payload, headers=headers, encode_chunked=chunked)
-        resp = conn.getresponse()
-        return resp.status, resp.read()
-    finally:
-        conn.close()
-
-
 @pytest.fixture
 def served(tmp_path: Path):
     """``python -m nearwise serve`` on a free 127.0.0.1 port, stopped after the test."""
-    port = free_port()
-    env = {**os.environ, "NEARWISE_MAX_BODY_BYTES": "2000"}
-    log = (tmp_path / "serve.log").open("wb")
-    proc = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "nearwise",
-            "serve",
-            "--bind",
-            f"127.0.0.1:{port}",
-            "--workers",
-            "1",
-            "--threads",
-            "2",
-        ],
-        stdout=log,
-        stderr=subprocess.STDOUT,
-        env=env,
-    )
-    try:
-        deadline = time.monotonic() + 60
-        while True:
-            try:
-                if request(port, "GET", "/healthz")[0] == 200:
-                    break
-            except OSError:
-                pass
-            assert proc.poll() is None, (tmp_path / "serve.log").read_text()
-            assert time.monotonic() < deadline, "the server did not answer within 60 s"
-            time.sleep(0.2)
+    with serving(tmp_path / "serve.log", {"NEARWISE_MAX_BODY_BYTES": "2000"}) as port:
         yield port
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=30)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait(timeout=30)
-        log.close()
 
 
 def test_serve_answers_and_refuses_oversized_chunked_bodies(served: int) -> None:

@@ -8,11 +8,10 @@ import os
 import shutil
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
-from test_cli import free_port, request
+from webhelpers import serving
 
 SAMPLES = Path(__file__).resolve().parents[2] / "samples"
 
@@ -36,40 +35,8 @@ def test_make_samples_regenerates_the_committed_files(tmp_path: Path) -> None:
 
 @pytest.fixture(scope="module")
 def server(tmp_path_factory):
-    port = free_port()
-    log = (tmp_path_factory.mktemp("serve") / "serve.log").open("wb")
-    proc = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "nearwise",
-            "serve",
-            "--bind",
-            f"127.0.0.1:{port}",
-            "--workers",
-            "1",
-            "--threads",
-            "2",
-        ],
-        stdout=log,
-        stderr=subprocess.STDOUT,
-        env={k: v for k, v in os.environ.items() if not k.startswith("NEARWISE_")},
-    )
-    try:
-        deadline = time.monotonic() + 60
-        while True:
-            try:
-                if request(port, "GET", "/healthz")[0] == 200:
-                    break
-            except OSError:
-                pass
-            assert proc.poll() is None and time.monotonic() < deadline
-            time.sleep(0.2)
+    with serving(tmp_path_factory.mktemp("serve") / "serve.log") as port:
         yield f"http://127.0.0.1:{port}"
-    finally:
-        proc.terminate()
-        proc.wait(timeout=30)
-        log.close()
 
 
 @pytest.mark.skipif(shutil.which("curl") is None, reason="curl is not installed")

@@ -2,6 +2,15 @@
 
 from __future__ import annotations
 
+import http.client
+import os
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -39,3 +48,68 @@ def problem(resp: Any, status: int) -> dict[str, Any]:
 
 def pointers(doc: dict[str, Any]) -> list[str]:
     return [e.get("pointer") for e in doc["errors"]]
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def request(
+    port: int, method: str, path: str, body: bytes | None = None, chunked: bool = False
+) -> tuple[int, bytes]:
+    conn = http.client.HTTPConnection("127.0.0.1", port, timeout=10)
+    try:
+        headers = {"Content-Type": "application/json"} if body is not None else {}
+        payload = iter([body]) if chunked and body is not None else body
+        conn.request(method, path, body=payload, headers=headers, encode_chunked=chunked)
+        resp = conn.getresponse()
+        return resp.status, resp.read()
+    finally:
+        conn.close()
+
+
+@contextmanager
+def serving(log_path: Path, env: dict[str, str] | None = None) -> Iterator[int]:
+    """``python -m nearwise serve`` on a free 127.0.0.1 port until the block ends; yields
+    the port once /healthz answers (at most 60 s)."""
+    port = free_port()
+    clean = {k: v for k, v in os.environ.items() if not k.startswith("NEARWISE_")}
+    with log_path.open("wb") as log:
+        proc = subprocess.Popen(
+            [
+                sys.executable,
+                "-m",
+                "nearwise",
+                "serve",
+                "--bind",
+                f"127.0.0.1:{port}",
+                "--workers",
+                "1",
+                "--threads",
+                "2",
+            ],
+            stdout=log,
+            stderr=subprocess.STDOUT,
+            env={**clean, **(env or {})},
+        )
+        try:
+            deadline = time.monotonic() + 60
+            while True:
+                try:
+                    if request(port, "GET", "/healthz")[0] == 200:
+                        break
+                except OSError:
+                    pass
+                assert proc.poll() is None, log_path.read_text()
+                assert time.monotonic() < deadline, "the server did not answer within 60 s"
+                time.sleep(0.2)
+            yield port
+        finally:
+            proc.terminate()
+            try:
+                proc.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait(timeout=30)

@@ -19,7 +19,9 @@ class PathEntrySchema(Strict):
     df = _num("Effective degrees of freedom, where defined.", nullable=True)
 
 
-class TuningReportSchema(Strict):
+class CompareTuningSchema(Strict):
+    """The cross-validation settings (shared by every method in a comparison)."""
+
     scheme = fields.String()
     folds = fields.Integer(allow_none=True, metadata=_doc("Null for `loo` and `gcv`."))
     repeats = fields.Integer()
@@ -27,6 +29,9 @@ class TuningReportSchema(Strict):
     rule = fields.String()
     metric = fields.String()
     group_by = fields.String(allow_none=True)
+
+
+class TuningReportSchema(CompareTuningSchema):
     best = fields.Dict(
         keys=fields.String(), values=Scalar(), metadata=_doc("The minimum-error candidate.")
     )
@@ -117,16 +122,6 @@ class PredictResponse(Strict):
     comparison = fields.Nested(
         ComparisonSchema, metadata=_doc("Only for `method: auto`: the ranking behind the choice.")
     )
-
-
-class CompareTuningSchema(Strict):
-    scheme = fields.String()
-    folds = fields.Integer(allow_none=True, metadata=_doc("Null for `loo` and `gcv`."))
-    repeats = fields.Integer()
-    seed = fields.Integer()
-    rule = fields.String()
-    metric = fields.String()
-    group_by = fields.String(allow_none=True)
 
 
 class CompareResponse(Strict):
