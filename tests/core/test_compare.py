@@ -86,3 +86,18 @@ def test_auto_answers_like_predict_and_names_its_choice():
     assert result.predictions.value.shape == (2,)
     alone = run(_job(X, y, Xq=np.array([[2.0], [5.0]]), method=result.method))
     assert np.array_equal(alone.predictions.value, result.predictions.value)
+
+
+def test_curves_for_pictures_follow_the_fits():
+    rng = np.random.default_rng(8)
+    X = rng.uniform(0, 10, (100, 1))
+    y = np.sin(X[:, 0]) + rng.normal(0, 0.2, 100)
+    one = run(_job(X, y, method="spline", curve_points=40))
+    grid = one.curve["x"][:, None]
+    alone = run(_job(X, y, Xq=grid, method="spline"))
+    assert np.array_equal(one.curve["value"], alone.predictions.value)
+    assert np.array_equal(one.curve["lower"], alone.predictions.lower)
+    assert grid[0, 0] < X.min() and grid[-1, 0] > X.max()  # 5 % beyond the data each side
+    many = compare(_job(X, y, curve_points=40))
+    assert set(many.curves) == {r.method for r in many.ranking}
+    assert np.array_equal(many.curves["spline"]["value"], one.curve["value"])

@@ -51,6 +51,7 @@ class CompareResult:
     reason: str
     warnings: tuple[Notice, ...]
     prediction: PredictResult | None = None
+    curves: dict[str, dict[str, Any]] | None = None  # one feature, when asked: each method's fit
 
 
 def _methods(job: Job, p: int) -> tuple[list[Method], bool]:
@@ -179,6 +180,14 @@ def compare(job: Job) -> CompareResult:
     prediction = None
     if ctx.data.X_query is not None:
         prediction = _predict(ctx, tuned[name], job)
+    curves = None
+    if job.curve_points and ctx.X.shape[1] == 1:
+        grid = pipeline.curve_grid(ctx.X, job.curve_points)
+        curves = {}
+        for m, t in tuned.items():
+            model = t.method.fit(ctx.X, ctx.y, t.settings, t.values[t.chosen], t.work)
+            with np.errstate(over="ignore", invalid="ignore"):
+                curves[m] = {"x": grid[:, 0], "value": model.predict(grid)}
     return CompareResult(
         target=ctx.data.target,
         features=ctx.data.features,
@@ -188,6 +197,7 @@ def compare(job: Job) -> CompareResult:
         reason=reason,
         warnings=tuple(skipped),
         prediction=prediction,
+        curves=curves,
     )
 
 

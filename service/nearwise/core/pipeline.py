@@ -177,6 +177,15 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         train_error=_error(y - model.fitted, job.tuning.metric),
         df=model.df,
     )
+    curve = None
+    if job.curve_points and X.shape[1] == 1:
+        grid = curve_grid(X, job.curve_points)
+        with np.errstate(over="ignore", invalid="ignore"):
+            at = model.predict(grid)
+        band = uncertainty.compute(
+            job.interval, model, path, folds, chosen, X, y, grid, at, sigma_cv
+        )
+        curve = {"x": grid[:, 0], "value": at, "lower": band.lower, "upper": band.upper}
     return PredictResult(
         method=method.name,
         target=data.target,
@@ -196,7 +205,15 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         ),
         warnings=tuple(notices),
         interval=bars.report,
+        curve=curve,
     )
+
+
+def curve_grid(X: np.ndarray, points: int) -> np.ndarray:
+    """An even grid over the training range of one feature, 5 % wider on each side."""
+    lo, hi = float(X[:, 0].min()), float(X[:, 0].max())
+    pad = 0.05 * (hi - lo)
+    return np.linspace(lo - pad, hi + pad, points)[:, None]
 
 
 def cv_r2(y: np.ndarray, scores: tuning.Scores, c: int) -> float | None:

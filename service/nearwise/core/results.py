@@ -87,3 +87,4 @@ class PredictResult:
     warnings: tuple[Notice, ...] = field(default=())
     interval: dict[str, Any] | None = None
     comparison: dict[str, Any] | None = None  # method auto: the ranking behind the choice
+    curve: dict[str, Any] | None = None  # one feature, when asked: the fit on an even grid

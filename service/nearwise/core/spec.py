@@ -56,3 +56,4 @@ class Job:
     interval: IntervalSpec = field(default_factory=IntervalSpec)
     time_budget_s: float | None = None
     methods: Sequence[str] | None = None  # for compare: the methods to rank (None: all that apply)
+    curve_points: int = 0  # one feature: also evaluate the fit on this many points (pictures)
