@@ -50,6 +50,8 @@ def test_paths_summaries_and_problem_responses() -> None:
         "/healthz",
         "/readyz",
         "/openapi.json",
+        "/",
+        "/docs",
     }
     predict = doc["paths"]["/v1/predict"]["post"]
     assert predict["summary"].startswith("Fit one method")

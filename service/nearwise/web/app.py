@@ -26,6 +26,9 @@ def create_app(settings: Settings | None = None) -> Flask:
     for bp in (predict.bp, compare.bp, locality.bp, catalogue.bp, health.bp):
         app.register_blueprint(bp)
     app.add_url_rule("/openapi.json", "openapi", _openapi_view(app))
+    from nearwise.web.routes import docs  # / and /docs, open without an API key
+
+    app.register_blueprint(docs.bp)
     return app
 
 

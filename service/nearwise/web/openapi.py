@@ -55,7 +55,7 @@ def build(app: Flask) -> dict[str, Any]:
     )
     rules = sorted(app.url_map.iter_rules(), key=lambda r: r.rule)
     for rule in rules:
-        if rule.endpoint == "static":
+        if rule.endpoint == "static" or rule.endpoint.endswith(".static"):  # files, not API
             continue
         view = app.view_functions[rule.endpoint]
         ops = {
