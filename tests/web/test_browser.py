@@ -103,57 +103,76 @@ def _example_body() -> str:
     )
 
 
-def test_docs_page_shows_every_path_and_runs_a_predict(browser: Any, tmp_path: Path) -> None:
+def _by() -> Any:
     from selenium.webdriver.common.by import By
-    from selenium.webdriver.common.keys import Keys
-    from selenium.webdriver.support import expected_conditions as ec
+
+    return By
+
+
+def _wait(where: Any) -> Any:
     from selenium.webdriver.support.ui import WebDriverWait
 
-    wait = WebDriverWait(browser, WAIT_S)
+    return WebDriverWait(where, WAIT_S)
+
+
+def _open_docs(browser: Any, origin: str) -> set[str]:
+    """Load /docs and wait for the operations; the paths the page shows."""
+    by = _by()
+    browser.get(f"{origin}/docs")
+    _wait(browser).until(lambda b: b.find_elements(by.CSS_SELECTOR, ".opblock-summary-path"))
+    return {
+        e.get_attribute("data-path")
+        for e in browser.find_elements(by.CSS_SELECTOR, ".opblock-summary-path")
+    }
+
+
+def _try_out(browser: Any, verb: str, path: str) -> Any:
+    """Expand one operation and press "Try it out"; its block."""
+    by = _by()
+    summary = browser.find_element(
+        by.CSS_SELECTOR, f'.opblock-{verb} .opblock-summary-path[data-path="{path}"]'
+    )
+    block = summary.find_element(by.XPATH, f"ancestor::div[contains(@class,'opblock-{verb}')]")
+    summary.click()
+    _wait(block).until(lambda b: b.find_element(by.CSS_SELECTOR, "button.try-out__btn")).click()
+    return block
+
+
+def _execute(block: Any, status: str) -> str:
+    """Press Execute and wait for the answer with ``status``; the answer's text."""
+    by = _by()
+    block.find_element(by.CSS_SELECTOR, "button.execute").click()
+    live = ".live-responses-table .response "
+
+    def answered(b: Any) -> bool:
+        cells = b.find_elements(by.CSS_SELECTOR, live + ".response-col_status")
+        return bool(cells) and cells[0].text.strip() == status
+
+    _wait(block).until(answered)
+    return str(block.find_element(by.CSS_SELECTOR, live + ".response-col_description").text)
+
+
+def test_docs_page_shows_every_path_and_runs_a_predict(browser: Any, tmp_path: Path) -> None:
+    from selenium.webdriver.common.keys import Keys
+
+    by = _by()
     with serving(tmp_path / "server.log") as port:
         origin = f"http://127.0.0.1:{port}"
         status, raw = request(port, "GET", "/openapi.json")
         assert status == 200
-        paths = set(json.loads(raw)["paths"])
+        assert _open_docs(browser, origin) == set(json.loads(raw)["paths"])
 
-        browser.get(f"{origin}/docs")
-        wait.until(ec.presence_of_element_located((By.CSS_SELECTOR, ".opblock-summary-path")))
-        shown = {
-            e.get_attribute("data-path")
-            for e in browser.find_elements(By.CSS_SELECTOR, ".opblock-summary-path")
-        }
-        assert shown == paths
-
-        # open POST /v1/predict, try it out with a JSON body, execute
-        summary = browser.find_element(
-            By.CSS_SELECTOR, '.opblock-post .opblock-summary-path[data-path="/v1/predict"]'
-        )
-        block = summary.find_element(By.XPATH, "ancestor::div[contains(@class,'opblock-post')]")
-        summary.click()
-        try_out = WebDriverWait(block, WAIT_S).until(
-            lambda b: b.find_element(By.CSS_SELECTOR, "button.try-out__btn")
-        )
-        try_out.click()
-        editor = WebDriverWait(block, WAIT_S).until(
-            lambda b: b.find_element(By.CSS_SELECTOR, "textarea.body-param__text")
+        block = _try_out(browser, "post", "/v1/predict")
+        editor = _wait(block).until(
+            lambda b: b.find_element(by.CSS_SELECTOR, "textarea.body-param__text")
         )
         # typing the body key by key re-renders the page on every key (tens of seconds):
         # set it as a paste would, then type one key so the page takes it as an edit
         browser.execute_script(_SET_VALUE, editor, _example_body())
         editor.send_keys(Keys.END, " ")
-        block.find_element(By.CSS_SELECTOR, "button.execute").click()
-
-        status_cell = WebDriverWait(block, WAIT_S).until(
-            lambda b: b.find_element(
-                By.CSS_SELECTOR, ".live-responses-table .response .response-col_status"
-            )
-        )
-        answer = block.find_element(
-            By.CSS_SELECTOR, ".live-responses-table .response .response-col_description"
-        )
-        assert status_cell.text.strip() == "200", answer.text
-        WebDriverWait(block, WAIT_S).until(lambda _: '"predictions"' in answer.text)
-        assert '"n_train": 30' in answer.text  # the body sent is the one typed in
+        answer = _execute(block, "200")
+        assert '"predictions"' in answer
+        assert '"n_train": 30' in answer  # the body sent is the one typed in
 
         # everything the page loaded or fetched came from this origin
         loaded = browser.execute_script(
@@ -169,3 +188,24 @@ def test_docs_page_shows_every_path_and_runs_a_predict(browser: Any, tmp_path: P
             if entry["level"] == "SEVERE" or "Content Security Policy" in entry["message"]
         ]
         assert problems == []
+
+
+def test_docs_page_is_open_and_sends_the_key_given_to_authorize(
+    browser: Any, tmp_path: Path
+) -> None:
+    by = _by()
+    with serving(tmp_path / "server.log", env={"NEARWISE_API_KEYS": "s3cret"}) as port:
+        origin = f"http://127.0.0.1:{port}"
+        assert "/v1/methods" in _open_docs(browser, origin)
+        block = _try_out(browser, "get", "/v1/methods")
+        assert "X-API-Key" in _execute(block, "401")
+
+        browser.find_element(by.CSS_SELECTOR, ".auth-wrapper button.authorize").click()
+        dialog = _wait(browser).until(
+            lambda b: b.find_element(by.CSS_SELECTOR, ".modal-ux .auth-container")
+        )
+        dialog.find_element(by.CSS_SELECTOR, "input").send_keys("s3cret")
+        dialog.find_element(by.CSS_SELECTOR, "button.authorize").click()
+        browser.find_element(by.CSS_SELECTOR, ".modal-ux button.btn-done").click()
+
+        assert '"methods"' in _execute(block, "200")
