@@ -46,7 +46,6 @@ MEDIA_TYPE = "image/svg+xml"
 _RC: dict[str, Any] = {
     "svg.hashsalt": "nearwise",
     "svg.fonttype": "none",  # text stays <text>: searchable, small, readable by screen readers
-    "svg.id": None,
     "font.family": "sans-serif",
     "font.sans-serif": ["DejaVu Sans"],
     "font.size": 10.0,
