@@ -52,7 +52,7 @@ def test_accept_patterns_that_match_are_served(client, accept: str) -> None:
     [
         (b"{}", "application/xml"),
         (b"{}", ""),
-        (b"{}", "text/plain"),
+        (b"{}", "text/html"),
         (b"{}", "application/json; charset=latin-1"),
     ],
 )

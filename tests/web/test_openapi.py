@@ -47,6 +47,7 @@ def test_paths_summaries_and_problem_responses() -> None:
         "/v1/compare",
         "/v1/locality",
         "/v1/methods",
+        "/v1/cell",
         "/healthz",
         "/readyz",
         "/openapi.json",
@@ -59,7 +60,7 @@ def test_paths_summaries_and_problem_responses() -> None:
         content = predict["responses"][status]["content"]
         assert content["application/problem+json"]["schema"]["$ref"].endswith("/Problem")
     bodies = predict["requestBody"]["content"]
-    assert set(bodies) == {"application/json", "multipart/form-data", "text/csv"}
+    assert set(bodies) == {"application/json", "multipart/form-data", "text/csv", "text/plain"}
     form = bodies["multipart/form-data"]["schema"]["properties"]
     assert {"train", "query", "method", "target", "tuning.folds", "interval.level"} <= set(form)
     assert set(predict["responses"]["200"]["content"]) == {"application/json", "text/csv"}

@@ -21,9 +21,9 @@ def create_app(settings: Settings | None = None) -> Flask:
     problems.install(app)
     guards.install(app, settings)
 
-    from nearwise.web.routes import catalogue, compare, health, locality, predict
+    from nearwise.web.routes import catalogue, cell, compare, health, locality, predict
 
-    for bp in (predict.bp, compare.bp, locality.bp, catalogue.bp, health.bp):
+    for bp in (predict.bp, compare.bp, locality.bp, cell.bp, catalogue.bp, health.bp):
         app.register_blueprint(bp)
     app.add_url_rule("/openapi.json", "openapi", _openapi_view(app))
     from nearwise.web.routes import docs  # / and /docs, open without an API key

@@ -1,11 +1,19 @@
-"""CSV parts in (header line, then one row per line; empty cell = missing) and CSV answers out."""
+"""CSV parts in (header line, then one row per line; empty cell = missing) and CSV answers out.
+
+Spreadsheet habits are met, never guessed at: a UTF-8 byte-order mark and CRLF line ends are
+accepted, quoted numbers are numbers, and a cell holding only spaces is empty (as JSON
+``null``). ``delimiter`` and ``decimal`` (:class:`Dialect`) read semicolon lists with decimal
+commas. Undeclared, a file that only makes sense in another dialect (a header split by
+semicolons or tabs, or a cell such as ``1,500`` that is a number only if the comma is a decimal
+or thousands separator) is refused with a message naming the parameters to set.
+"""
 
 from __future__ import annotations
 
 import csv
 import io
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -17,6 +25,65 @@ from nearwise.web.problems import Problem
 from nearwise.web.tables import Limits, Parsed, check_finite, check_shape
 
 _NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
+#: Digits with commas or points in a way that would be a number under another reading.
+_SEPARATED = re.compile(r"\s*[+-]?[\d.,]*\d[\d.,]*(?:[eE][+-]?\d+)?\s*", re.ASCII)
+_SPECIAL = ("nan", "inf", "-inf", "+inf", "infinity", "-infinity", "+infinity")
+
+DELIMITERS = {",": ",", "comma": ",", ";": ";", "semicolon": ";", "tab": "\t", "\t": "\t"}
+DELIMITERS |= {"|": "|", "pipe": "|"}
+DECIMALS = {".": ".", "point": ".", "dot": ".", ",": ",", "comma": ","}
+_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe", ".": "point"}
+#: The code of a CSV refused because its delimiter or decimal mark must be declared.
+UNDECLARED = "csv_format_undeclared"
+
+
+@dataclass(frozen=True)
+class Dialect:
+    """How CSV cells are separated and how a decimal mark is written, and whether the caller
+    said so (an undeclared default is checked for signs of another dialect)."""
+
+    delimiter: str = ","
+    decimal: str = "."
+    declared: bool = False
+
+    @property
+    def name(self) -> str:
+        return f"delimiter={_NAMES[self.delimiter]}, decimal={_NAMES.get(self.decimal, 'comma')}"
+
+    def number(self, value: float) -> str:
+        """A float as text with this dialect's decimal mark (shortest round-trip form)."""
+        text = repr(float(value))
+        return text.replace(".", ",") if self.decimal == "," else text
+
+
+#: The default: comma-separated, decimal point, nothing declared.
+PLAIN = Dialect()
+
+
+def dialect_from(values: Mapping[str, str]) -> Dialect:
+    """The dialect from the ``delimiter`` and ``decimal`` parameters (absent: comma, point).
+
+    ``decimal=comma`` without a ``delimiter`` means semicolon-separated cells.
+    """
+    delim = values.get("delimiter")
+    dec = values.get("decimal")
+    errors = []
+    if delim is not None and delim.lower() not in DELIMITERS:
+        errors.append({"parameter": "delimiter", "message": "one of , ; tab |"})
+    if dec is not None and dec.lower() not in DECIMALS:
+        errors.append({"parameter": "decimal", "message": "point or comma"})
+    if errors:
+        raise Problem(
+            422,
+            "`delimiter` is one of `,` (comma, the default), `;` (semicolon), `tab` or `|`; "
+            "`decimal` is `point` (the default) or `comma`.",
+            errors,
+            code="invalid_value",
+        )
+    mark = DECIMALS[dec.lower()] if dec is not None else "."
+    default = ";" if mark == "," else ","
+    sep = DELIMITERS[delim.lower()] if delim is not None else default
+    return Dialect(sep, mark, declared=delim is not None or dec is not None)
 
 
 @dataclass
@@ -26,11 +93,12 @@ class CsvPart:
     name: str
     text: str
     columns: tuple[str, ...] = ()
+    delimiter: str = ","
     _lines: list[int] = field(default_factory=list)
 
     def line_of(self, row: int) -> int:
         if not self._lines:
-            reader = csv.reader(io.StringIO(self.text), strict=True)
+            reader = csv.reader(io.StringIO(self.text), strict=True, delimiter=self.delimiter)
             next(reader, None)
             start = reader.line_num + 1
             for _ in reader:
@@ -39,22 +107,87 @@ class CsvPart:
         return self._lines[row] if row < len(self._lines) else row + 2
 
 
-def read_csv(name: str, data: bytes, limits: Limits, parts: dict[str, CsvPart]) -> Parsed:
-    """Parse one CSV part (UTF-8, comma-separated, a header line first).
+def _decode(name: str, data: bytes) -> str:
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        bom = data[:2] in (b"\xff\xfe", b"\xfe\xff")
+        found = (
+            'UTF-16 text (a "Unicode text" export)'
+            if bom
+            else (
+                f"not UTF-8: byte 0x{data[exc.start]:02X} on line {line} is not valid UTF-8 "
+                "(a legacy encoding such as Windows-1252 or Latin-1?)"
+            )
+        )
+        raise Problem(
+            400,
+            f"The {name} part is {found}. Save the file as UTF-8 and send it again: in a "
+            'spreadsheet choose the file type "CSV UTF-8" (or the CSV export\'s character '
+            "set UTF-8) when saving; in a text editor choose the encoding UTF-8; with iconv: "
+            f"iconv -f WINDOWS-1252 -t UTF-8 {name}.csv > {name}-utf8.csv.",
+            [{"part": name, "line": 1 if bom else line, "message": "not UTF-8; save as CSV UTF-8"}],
+            code="not_utf8",
+        ) from None
+
+
+def _check_header_dialect(name: str, text: str, dialect: Dialect) -> None:
+    """Refuse a header line that is plainly split by another delimiter than the one in force."""
+    end = text.find("\n")
+    first = text if end < 0 else text[:end]
+    if dialect.delimiter in first:
+        return
+    others = [d for d in (";", "\t", "|", ",") if d != dialect.delimiter and d in first]
+    if not others:
+        return  # one column
+    other = others[0]
+    if dialect.declared:
+        detail = (
+            f"The {name} part's header line has no {_NAMES[dialect.delimiter]} but holds "
+            f"{_NAMES[other]}s, while {dialect.name} was declared. Set `delimiter` to the "
+            "character that separates the cells."
+        )
+    else:
+        hint = (
+            "`delimiter=;` (and `decimal=comma` if numbers are written 1,5)"
+            if other == ";"
+            else f"`delimiter={_NAMES[other]}`"
+        )
+        detail = (
+            f"The {name} part looks {_NAMES[other]}-separated, but CSV is read comma-separated "
+            f"unless told otherwise. Set {hint} as a query-string parameter or form field."
+        )
+    raise Problem(
+        400,
+        detail,
+        [
+            {
+                "part": name,
+                "line": 1,
+                "message": f"cells separated by {_NAMES[other]}; set delimiter",
+            }
+        ],
+        code=UNDECLARED,
+    )
+
+
+def read_csv(
+    name: str,
+    data: bytes,
+    limits: Limits,
+    parts: dict[str, CsvPart],
+    dialect: Dialect = PLAIN,
+) -> Parsed:
+    """Parse one CSV part (UTF-8, a header line first) in the given dialect.
 
     The part is recorded in ``parts`` first, so errors inside it can name its lines.
     """
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise Problem(
-            400,
-            f"The {name} part is not UTF-8 text: {exc.reason} at byte {exc.start}.",
-            [{"part": name, "message": "not UTF-8"}],
-        ) from None
-    part = CsvPart(name, text)
+    text = _decode(name, data)
+    part = CsvPart(name, text, delimiter=dialect.delimiter)
     parts[name] = part
-    reader = csv.reader(io.StringIO(text), strict=True)
+    _check_header_dialect(name, text, dialect)
+    reader = csv.reader(io.StringIO(text), strict=True, delimiter=dialect.delimiter)
     try:
         header = next(reader, None)
         rows = list(reader)
@@ -79,25 +212,74 @@ def read_csv(name: str, data: bytes, limits: Limits, parts: dict[str, CsvPart]) 
         cells = np.array(rows, dtype=str).reshape(len(rows), p)
     except ValueError:
         i = next(i for i, r in enumerate(rows) if len(r) != p)
+        hint = ""
+        if dialect.delimiter == "," and not dialect.declared:
+            hint = (
+                " If a comma in it is a decimal mark (1,5), set `decimal=comma` and `delimiter=;`."
+            )
         raise BadTable(
-            f"{name} line {part.line_of(i)} has {len(rows[i])} cells; the header has {p}.",
+            f"{name} line {part.line_of(i)} has {len(rows[i])} cells; the header has {p}.{hint}",
             [Where((name, "rows", i), f"expected {p} cells")],
         ) from None
+    numbers = cells
+    if dialect.decimal == ",":
+        _refuse_points(name, cells, dialect)
+        numbers = np.char.replace(cells, ",", ".") if cells.size else cells
     plain = text.isascii() and "_" not in text
-    values, labels, is_num = _convert(cells, plain)
+    values, labels, is_num = _convert(numbers, cells, plain)
+    if dialect.decimal == "." and labels:
+        _refuse_commas(name, labels, dialect)
     check_finite(name, values, is_num)
     return Parsed(Table(name, tuple(header), values, labels), rows)
 
 
+def _refuse_points(name: str, cells: np.ndarray, dialect: Dialect) -> None:
+    """With decimal commas, a number-like cell holding a point is ambiguous (1.500)."""
+    if not cells.size:
+        return
+    dotted = np.nonzero(np.char.find(cells, ".") >= 0)
+    for i, j in zip(*dotted, strict=True):
+        cell = str(cells[i, j])
+        if _SEPARATED.fullmatch(cell):
+            raise Problem(
+                400,
+                f"{name} row {i}, column {j} holds {cell!r}, a number with a point while "
+                f"{dialect.name} is in force: is the point a thousands separator? Remove "
+                "thousands separators, or send `decimal=point` if points mark decimals.",
+                [Where((name, "rows", int(i), int(j)), "point in a number; decimal=comma")],
+                code=UNDECLARED,
+            )
+
+
+def _refuse_commas(name: str, labels: dict[int, np.ndarray], dialect: Dialect) -> None:
+    """With decimal points, a text cell that is a number once a comma is read is ambiguous."""
+    for j, col in labels.items():
+        for i, cell in enumerate(col):
+            if isinstance(cell, str) and "," in cell and _SEPARATED.fullmatch(cell):
+                raise Problem(
+                    400,
+                    f"{name} row {i}, column {j} holds {cell!r}: with decimal=point (the "
+                    "default) that is not a number, and it is not guessed whether the comma "
+                    "is a decimal mark (1,5 = 1.5) or a thousands separator (1,500 = 1500). "
+                    "For decimal commas set `decimal=comma` (with `delimiter=;` for "
+                    "semicolon-separated files); otherwise remove the thousands separators.",
+                    [Where((name, "rows", i, j), "comma in a number; set decimal")],
+                    code=UNDECLARED,
+                )
+
+
 def _convert(
-    cells: np.ndarray, plain: bool
+    numbers: np.ndarray, cells: np.ndarray, plain: bool
 ) -> tuple[np.ndarray, dict[int, np.ndarray], np.ndarray]:
-    """Numbers to floats (empty -> NaN) and text to labels; also the mask of number cells."""
-    is_num = cells != ""
-    values = np.empty(cells.shape)
+    """Numbers to floats (empty -> NaN) and text to labels; also the mask of number cells.
+
+    ``numbers`` is parsed; ``cells`` (the text as sent) is kept for labels.
+    """
+    is_num = numbers != ""
+    values = np.empty(numbers.shape)
     labels: dict[int, np.ndarray] = {}
-    for j in range(cells.shape[1]):
-        col = cells[:, j]
+    for j in range(numbers.shape[1]):
+        col = numbers[:, j]
         if plain:
             try:
                 values[:, j] = np.where(is_num[:, j], col, "nan").astype(np.float64)
@@ -106,45 +288,61 @@ def _convert(
                 pass
         objs = np.frompyfunc(_cell, 1, 1)(col)
         is_text = np.frompyfunc(lambda c: isinstance(c, str), 1, 1)(objs).astype(bool)
-        values[:, j] = np.where(is_text, np.nan, objs).astype(np.float64)
-        is_num[:, j] &= ~is_text
+        is_none = np.frompyfunc(lambda c: c is None, 1, 1)(objs).astype(bool)
+        values[:, j] = np.where(is_text | is_none, np.nan, objs).astype(np.float64)
+        is_num[:, j] &= ~(is_text | is_none)
         if is_text.any():
-            labels[j] = objs
+            labels[j] = np.where(is_text, cells[:, j].astype(object), objs)
     return values, labels, is_num
 
 
 def _cell(text: str) -> Any:
-    if text == "":
-        return None
-    if _NUMBER.fullmatch(text) or text.strip().lower() in (
-        "nan",
-        "inf",
-        "-inf",
-        "+inf",
-        "infinity",
-        "-infinity",
-        "+infinity",
-    ):
+    if not text.strip():
+        return None  # empty, or only spaces: missing, as JSON null
+    if _NUMBER.fullmatch(text) or text.strip().lower() in _SPECIAL:
         return float(text)
     return text
 
 
-def write_predictions(
-    columns: Sequence[str], cells: Sequence[Sequence[Any]], extra: dict[str, list[Any]]
+def write_rows(
+    columns: Sequence[str],
+    cells: Sequence[Sequence[Any]],
+    extra: dict[str, list[Any]],
+    dialect: Dialect = PLAIN,
 ) -> str:
     """The input rows as sent, then one column per entry of ``extra`` (already text or None)."""
     out = io.StringIO()
-    writer = csv.writer(out, lineterminator="\r\n")
+    writer = csv.writer(out, lineterminator="\r\n", delimiter=dialect.delimiter)
     writer.writerow([*columns, *extra])
     added = list(zip(*extra.values(), strict=True)) if extra else [()] * len(cells)
     for row, more in zip(cells, added, strict=True):
-        writer.writerow([*(_text(c) for c in row), *("" if m is None else m for m in more)])
+        writer.writerow(
+            [*(_text(c, dialect) for c in row), *("" if m is None else m for m in more)]
+        )
     return out.getvalue()
 
 
-def _text(cell: Any) -> str:
+def write_table(
+    columns: Sequence[str],
+    rows: Sequence[Sequence[Any]],
+    dialect: Dialect = PLAIN,
+) -> str:
+    """A table of text, numbers and None (empty cells) in the dialect."""
+    return write_rows(columns, rows, {}, dialect)
+
+
+def texts(values: Sequence[float | None], dialect: Dialect) -> list[str | None]:
+    """Numbers as text in the dialect; None (missing) stays None."""
+    return [None if v is None else dialect.number(v) for v in values]
+
+
+def _text(cell: Any, dialect: Dialect) -> str:
     if cell is None:
         return ""
+    if isinstance(cell, bool):
+        return "true" if cell else "false"
     if isinstance(cell, float):
-        return repr(cell)
+        return dialect.number(cell) if np.isfinite(cell) else ""
+    if isinstance(cell, int):
+        return str(cell)
     return str(cell)

@@ -3,6 +3,11 @@
 ``application/json``: the whole request as one document. ``multipart/form-data``: CSV parts
 ``train`` and ``query``, the other fields as form fields or query-string parameters.
 ``text/csv``: the body is ``train``; the other fields come from the query string.
+``text/plain`` (what a browser add-in may send without a preflight): JSON when its first
+character other than spaces (and a byte-order mark) is ``{``, otherwise a ``text/csv`` body.
+
+``delimiter`` and ``decimal`` (query string or form field; not part of the JSON document) set
+the CSV dialect of the parts read and of a CSV answer; see :mod:`nearwise.web.csvio`.
 """
 
 from __future__ import annotations
@@ -20,22 +25,25 @@ from werkzeug.formparser import FormDataParser
 from nearwise.core.errors import InvalidValue, Where
 from nearwise.web import forms
 from nearwise.web.body import read_body, unsupported_media_type
-from nearwise.web.csvio import CsvPart, read_csv
+from nearwise.web.csvio import PLAIN, CsvPart, Dialect, dialect_from, read_csv
 from nearwise.web.jsonio import DuplicateKey, TooDeep, loads_strict
 from nearwise.web.problems import Problem
 from nearwise.web.settings import Settings
 from nearwise.web.tables import Limits, Parsed, from_json
 from nearwise.web.validation import load
 
-JSON, MULTIPART, CSV = "application/json", "multipart/form-data", "text/csv"
-READS = (JSON, MULTIPART, CSV)
+JSON, MULTIPART, CSV, TEXT = "application/json", "multipart/form-data", "text/csv", "text/plain"
+READS = (JSON, MULTIPART, CSV, TEXT)
 TABLES = ("train", "query")
+#: Parameters that set the CSV dialect; read beside the fields, never part of the document.
+DIALECT = ("delimiter", "decimal")
 
 
 @dataclass(frozen=True)
 class Intake:
     fields: dict[str, Any]
     tables: dict[str, Parsed]
+    dialect: Dialect = PLAIN
 
 
 def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intake:
@@ -48,6 +56,9 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
         raise Problem(415, f"Bodies are read as UTF-8; got charset={charset}.")
     body = read_body(settings.max_body_bytes)
     limits = Limits(settings.max_rows, settings.max_columns, settings.max_cells)
+    if mimetype == TEXT:
+        mimetype = JSON if body.removeprefix(b"\xef\xbb\xbf").lstrip()[:1] == b"{" else CSV
+        body = body.removeprefix(b"\xef\xbb\xbf") if mimetype == JSON else body
     if mimetype == JSON:
         return _json(body, limits, full)
     if mimetype == CSV:
@@ -58,7 +69,9 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
                 "columns (header=present).",
             )
         if not body:
-            raise Problem(400, "The text/csv body is empty; it should hold the train table.")
+            raise Problem(
+                400, f"The {request.mimetype} body is empty; it should hold the train table."
+            )
         return _csv({"train": [body]}, MultiDict(), limits, fields_only)
     files, form = _multipart(body, settings.max_body_bytes)
     return _csv(files, MultiDict([*form.items(multi=True)]), limits, fields_only)
@@ -77,13 +90,16 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
         ) from None
     except DuplicateKey as exc:
         raise InvalidValue(f"The body is ambiguous: {exc}.", [Where(exc.path, str(exc))]) from None
-    if request.args:
+    extra = [k for k in request.args if k not in DIALECT]
+    if extra:
         raise Problem(
             422,
-            "With a JSON body every field goes in the body; query-string parameters are not read.",
-            [{"parameter": k, "message": "not read with a JSON body"} for k in request.args],
+            "With a JSON body every field goes in the body; query-string parameters are not read "
+            "(except `delimiter` and `decimal`, for a CSV answer).",
+            [{"parameter": k, "message": "not read with a JSON body"} for k in extra],
             code="invalid_request",
         )
+    dialect = _dialect(request.args, MultiDict())
     data = load(schema, parsed.doc)
     tables = {
         name: from_json(
@@ -92,7 +108,19 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
         for name in TABLES
         if name in data
     }
-    return Intake({k: v for k, v in data.items() if k not in TABLES}, tables)
+    return Intake({k: v for k, v in data.items() if k not in TABLES}, tables, dialect)
+
+
+def _dialect(args: MultiDict, form: MultiDict) -> Dialect:
+    """The CSV dialect from the query string or form fields, each parameter given once."""
+    values = {}
+    for name in DIALECT:
+        sent = [*args.getlist(name), *form.getlist(name)]
+        if len(sent) > 1:
+            raise forms.twice(name)
+        if sent:
+            values[name] = sent[0]
+    return dialect_from(values)
 
 
 def _multipart(body: bytes, limit: int) -> tuple[dict[str, list[bytes]], MultiDict]:
@@ -130,8 +158,11 @@ def _split_parts(items: list[tuple[str, Any]]) -> tuple[dict[str, list[bytes]], 
 
 
 def _csv(parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema: Schema) -> Intake:
-    merged = MultiDict([*form.items(multi=True)])
+    dialect = _dialect(request.args, form)
+    merged = MultiDict([(k, v) for k, v in form.items(multi=True) if k not in DIALECT])
     for name in request.args:
+        if name in DIALECT:
+            continue
         if name in TABLES:
             raise InvalidValue(
                 f"`{name}` is a table: send it as a CSV part of a multipart/form-data body.",
@@ -150,10 +181,10 @@ def _csv(parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema:
         if len(sent) > 1:
             raise forms.twice(name)
         if sent:
-            tables[name] = read_csv(name, sent[0], limits, csv_parts)
+            tables[name] = read_csv(name, sent[0], limits, csv_parts, dialect)
     if "train" not in tables:
         raise InvalidValue(
             "The `train` table is missing: send it as a CSV part named train.",
             [Where(("train",), "Missing data for required field.")],
         )
-    return Intake(data, tables)
+    return Intake(data, tables, dialect)

@@ -9,6 +9,7 @@ from marshmallow import fields, validate
 from nearwise.core.data import SCALES
 from nearwise.web.fields import Number, StrictInteger
 from nearwise.web.openapi_parts import FORM_RULES, form_fields
+from nearwise.web.predict_doc import DIALECT_PARAMETERS
 from nearwise.web.responses import WarningSchema
 from nearwise.web.schemas import Strict, TableSchema, _doc
 
@@ -141,6 +142,10 @@ REQUEST_BODY: dict[str, Any] = {
                     "train": {**_CSV_TABLE, "description": "The training table as CSV."},
                     "query": {**_CSV_TABLE, "description": "The rows to judge, as CSV."},
                     **form_fields(LocalityFields()),
+                    **{
+                        p["name"]: {**p["schema"], "description": p["description"]}
+                        for p in DIALECT_PARAMETERS
+                    },
                 },
                 "required": ["train"],
             },
@@ -150,26 +155,55 @@ REQUEST_BODY: dict[str, Any] = {
             },
         },
         "text/csv": {"schema": {**_CSV_TABLE, "description": "The train table."}},
+        "text/plain": {
+            "schema": {
+                "type": "string",
+                "description": "JSON (first character other than spaces `{`) or a CSV train table.",
+            }
+        },
     },
 }
 
+_FIGURE_HEADERS = {
+    "Nearwise-Rows": ("Training rows (`n`).", "integer"),
+    "Nearwise-Features": ("Feature names, comma-separated (`features`).", "string"),
+    "Nearwise-Scale": ("Scaling of the distances (`scale`).", "string"),
+    "Nearwise-Typical-Spacing": ("`typical_spacing`, in scaled units.", "number"),
+    "Nearwise-Far-Threshold": ("`thresholds.far_from_data`.", "number"),
+    "Nearwise-Warnings": ("Data-set-level warning codes (`not_local`), comma-separated.", "string"),
+}
+
 RESPONSE_200: dict[str, Any] = {
-    "description": "The diagnostics. Distances and radii are in scaled units (see `scale`).",
-    "content": {"application/json": {"schema": LocalityResponse}},
+    "description": "The diagnostics. Distances and radii are in scaled units (see `scale`). "
+    "With `Accept: text/csv` (a `query` is then required): one row per query row, its "
+    "columns as sent, then `nearest`, `ratio` and `flags` (codes separated by spaces), in "
+    "the dialect of `delimiter` and `decimal`; the data-set figures go in the headers "
+    "(CSV answers only).",
+    "headers": {
+        name: {"description": "CSV answers only. " + text, "schema": {"type": kind}}
+        for name, (text, kind) in _FIGURE_HEADERS.items()
+    },
+    "content": {
+        "application/json": {"schema": LocalityResponse},
+        "text/csv": {"schema": {"type": "string", "contentMediaType": "text/csv"}},
+    },
 }
 
 
 def query_parameters() -> list[dict[str, Any]]:
     """The fields as query-string parameters (read with CSV and multipart bodies only)."""
     return [
-        {
-            "name": name,
-            "in": "query",
-            "required": False,
-            "description": "Only with a text/csv or multipart/form-data body. "
-            + spec.pop("description", ""),
-            "schema": spec,
-            **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
-        }
-        for name, spec in form_fields(LocalityFields()).items()
+        *(
+            {
+                "name": name,
+                "in": "query",
+                "required": False,
+                "description": "Only with a text/csv, text/plain CSV or multipart/form-data "
+                "body. " + spec.pop("description", ""),
+                "schema": spec,
+                **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
+            }
+            for name, spec in form_fields(LocalityFields()).items()
+        ),
+        *DIALECT_PARAMETERS,
     ]

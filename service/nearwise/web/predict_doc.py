@@ -23,6 +23,7 @@ def _multipart_schema(fields_schema=None, required=("method",)) -> dict[str, Any
             "train": {**_CSV_TABLE, "description": "The training table as CSV."},
             "query": {**_CSV_TABLE, "description": "The rows to predict at, as CSV."},
             **props,
+            **_DIALECT_FIELDS,
         },
         "patternProperties": {
             r"^params\.[^.]+$": {
@@ -39,8 +40,38 @@ def _multipart_schema(fields_schema=None, required=("method",)) -> dict[str, Any
     }
 
 
+DIALECT_PARAMETERS: list[dict[str, Any]] = [
+    {
+        "name": "delimiter",
+        "in": "query",
+        "required": False,
+        "description": "CSV cell separator of the parts read and of a CSV answer: `,` (comma), "
+        "`;` (semicolon), `tab` or `|`. Default `,`, or `;` with `decimal=comma`. Also a "
+        "form field.",
+        "schema": {"type": "string", "enum": [",", "comma", ";", "semicolon", "tab", "|"]},
+    },
+    {
+        "name": "decimal",
+        "in": "query",
+        "required": False,
+        "description": "Decimal mark of CSV numbers read and written: `point` (default) or "
+        "`comma`. Never guessed. Also a form field.",
+        "schema": {"type": "string", "enum": ["point", "comma"]},
+    },
+]
+_DIALECT_FIELDS = {
+    p["name"]: {**p["schema"], "description": p["description"]} for p in DIALECT_PARAMETERS
+}
+_PLAIN = {
+    "schema": {
+        "type": "string",
+        "description": "JSON (first character other than spaces `{`) or a CSV train table.",
+    }
+}
+
+
 def request_body(json_schema, fields_schema, required=("method",)) -> dict[str, Any]:
-    """The three request bodies (JSON, multipart CSV parts, a text/csv train table)."""
+    """The request bodies (JSON, multipart CSV parts, a text/csv train table, text/plain)."""
     return {
         "required": True,
         "description": "The request as JSON; or CSV tables as multipart parts `train` and "
@@ -60,31 +91,12 @@ def request_body(json_schema, fields_schema, required=("method",)) -> dict[str, 
                 "schema": {**_CSV_TABLE, "description": "The train table."},
                 "example": _EXAMPLE_CSV,
             },
+            "text/plain": _PLAIN,
         },
     }
 
 
-REQUEST_BODY: dict[str, Any] = {
-    "required": True,
-    "description": "The request as JSON; or CSV tables as multipart parts `train` and `query` "
-    "with the other fields as form fields or query-string parameters; or the "
-    "train table alone as a text/csv body with the other fields in the query "
-    "string. " + FORM_RULES,
-    "content": {
-        "application/json": {"schema": PredictRequest},
-        "multipart/form-data": {
-            "schema": _multipart_schema(),
-            "encoding": {
-                "train": {"contentType": "text/csv"},
-                "query": {"contentType": "text/csv"},
-            },
-        },
-        "text/csv": {
-            "schema": {**_CSV_TABLE, "description": "The train table."},
-            "example": _EXAMPLE_CSV,
-        },
-    },
-}
+REQUEST_BODY: dict[str, Any] = request_body(PredictRequest, PredictFields())
 
 RESPONSE_200: dict[str, Any] = {
     "description": "The tuned fit and its predictions. With `Accept: text/csv`: the query's "
@@ -108,15 +120,18 @@ RESPONSE_200: dict[str, Any] = {
 def query_parameters(fields_schema=None) -> list[dict[str, Any]]:
     """The fields as query-string parameters (read with CSV and multipart bodies only)."""
     return [
-        {
-            "name": name,
-            "in": "query",
-            "required": False,
-            "description": "Only with a text/csv or multipart/form-data body. "
-            + spec.pop("description", ""),
-            "schema": spec,
-            **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
-        }
-        for name, spec in form_fields(fields_schema or PredictFields()).items()
-        if ".NAME" not in name
+        *(
+            {
+                "name": name,
+                "in": "query",
+                "required": False,
+                "description": "Only with a text/csv, text/plain CSV or multipart/form-data "
+                "body. " + spec.pop("description", ""),
+                "schema": spec,
+                **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
+            }
+            for name, spec in form_fields(fields_schema or PredictFields()).items()
+            if ".NAME" not in name
+        ),
+        *DIALECT_PARAMETERS,
     ]

@@ -9,8 +9,8 @@ import numpy as np
 
 from nearwise.core.compare import CompareResult
 from nearwise.core.results import Predictions, PredictResult
-from nearwise.web.csvio import write_predictions
-from nearwise.web.jsonio import jsonable
+from nearwise.web.csvio import PLAIN, Dialect, texts, write_rows, write_table
+from nearwise.web.jsonio import dumps, jsonable
 from nearwise.web.tables import Parsed
 
 _OPTIONAL = ("residual", "cv_residual", "std_error", "lower", "upper")
@@ -90,26 +90,86 @@ def dataset_codes(result: PredictResult) -> list[str]:
     return list(dict.fromkeys(n.code for n in result.warnings if not n.rows))
 
 
-def predict_csv(result: PredictResult, rows: Parsed) -> str:
+def predict_csv(result: PredictResult, rows: Parsed, dialect: Dialect = PLAIN) -> str:
     """The CSV answer: the rows' own columns as sent, then the prediction columns.
 
     ``rows`` is the query table, or the training table when there is no query; in that case
-    ``residual`` and ``cv_residual`` columns follow ``prediction``.
+    ``residual`` and ``cv_residual`` columns follow ``prediction``. Numbers are written in
+    ``dialect`` (delimiter and decimal mark); echoed cells as sent.
     """
     preds = result.predictions
     n = len(preds.value)
-    extra: dict[str, list[Any]] = {"prediction": _texts(preds.value, n)}
+    extra: dict[str, list[Any]] = {"prediction": _texts(preds.value, n, dialect)}
     if preds.residual is not None:
-        extra["residual"] = _texts(preds.residual, n)
+        extra["residual"] = _texts(preds.residual, n, dialect)
     if preds.cv_residual is not None:
-        extra["cv_residual"] = _texts(preds.cv_residual, n)
+        extra["cv_residual"] = _texts(preds.cv_residual, n, dialect)
     for k in ("std_error", "lower", "upper"):
-        extra[k] = _texts(getattr(preds, k), n)
+        extra[k] = _texts(getattr(preds, k), n, dialect)
     extra["flags"] = [" ".join(f) for f in _flags(preds, n)]
-    return write_predictions(rows.table.columns, rows.cells, extra)
+    return write_rows(rows.table.columns, rows.cells, extra, dialect)
 
 
-def _texts(values: np.ndarray | None, n: int) -> list[str | None]:
+def _texts(values: np.ndarray | None, n: int, dialect: Dialect) -> list[str | None]:
     if values is None:
         return [None] * n
-    return [None if v is None else repr(v) for v in _column(values)]
+    return texts(_column(values), dialect)
+
+
+#: Columns of the CSV answer of ``/v1/compare``, one row per method, best first.
+COMPARE_COLUMNS = ("rank", "method", "params", "error", "error_se", "df", "cv_r2", "recommended")
+
+
+def compare_csv(result: CompareResult, dialect: Dialect = PLAIN) -> str:
+    """The ranking as CSV: ``COMPARE_COLUMNS``; ``params`` is compact JSON text (its numbers
+    always with a decimal point), ``recommended`` is ``true`` on the recommended method's row."""
+    rows = []
+    for i, r in enumerate(result.ranking, start=1):
+        params = dumps(jsonable(r.params)).decode()
+        figures = [_number(v) for v in (r.error, r.error_se, r.df, r.cv_r2)]
+        rows.append([i, r.method, params, *figures, r.method == result.recommended])
+    return write_table(COMPARE_COLUMNS, rows, dialect)
+
+
+def compare_codes(result: CompareResult) -> list[str]:
+    """Data-set-level warning codes of a comparison, in order, once each."""
+    return list(dict.fromkeys(n.code for n in result.warnings if not n.rows))
+
+
+#: Columns the CSV answer of ``/v1/locality`` adds after the query's own columns.
+LOCALITY_COLUMNS = ("nearest", "ratio", "flags")
+
+
+def locality_csv(doc: dict[str, Any], rows: Parsed, dialect: Dialect = PLAIN) -> str:
+    """Per query row: its cells as sent, then ``nearest``, ``ratio`` and ``flags``."""
+    query = doc["query"]
+    extra: dict[str, list[Any]] = {
+        "nearest": texts([_number(q["nearest"]) for q in query], dialect),
+        "ratio": texts([_number(q["ratio"]) for q in query], dialect),
+        "flags": [" ".join(q["flags"]) for q in query],
+    }
+    return write_rows(rows.table.columns, rows.cells, extra, dialect)
+
+
+def locality_headers(doc: dict[str, Any], dialect: Dialect = PLAIN) -> dict[str, str]:
+    """The data-set figures of a locality CSV answer, as response headers."""
+    spacing = _number(doc["typical_spacing"])
+    heads = {
+        "Nearwise-Rows": str(doc["n"]),
+        "Nearwise-Features": ",".join(doc["features"]),
+        "Nearwise-Scale": doc["scale"],
+        "Nearwise-Typical-Spacing": "" if spacing is None else repr(spacing),
+        "Nearwise-Far-Threshold": repr(float(doc["thresholds"]["far_from_data"])),
+    }
+    codes = list(dict.fromkeys(w["code"] for w in doc["warnings"] if not w["rows"]))
+    if codes:
+        heads["Nearwise-Warnings"] = ", ".join(codes)
+    return heads
+
+
+def _number(value: Any) -> float | None:
+    """A finite float, or None."""
+    if value is None:
+        return None
+    v = float(value)
+    return v if np.isfinite(v) else None

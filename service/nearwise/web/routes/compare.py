@@ -14,7 +14,7 @@ from nearwise.web.openapi_parts import problems
 from nearwise.web.predict_doc import query_parameters, request_body
 from nearwise.web.responses import CompareResponse
 from nearwise.web.routes import json_response, operation
-from nearwise.web.routes.predict import build_job
+from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER, build_job
 from nearwise.web.schemas import CompareFields, CompareRequest
 
 bp = Blueprint("compare", __name__, url_prefix="/v1")
@@ -28,15 +28,38 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
     responses={
         "200": {
             "description": "Every method tuned on the same folds, ranked, and the simplest "
-            "adequate one recommended; with a query, its predictions.",
-            "content": {"application/json": {"schema": CompareResponse}},
+            "adequate one recommended; with a query, its predictions. With `Accept: text/csv`: "
+            "the ranking alone, one row per method, best first, with the columns `rank`, "
+            "`method`, `params` (every parameter in force as compact JSON text), `error`, "
+            "`error_se`, `df`, `cv_r2` (empty where undefined) and `recommended` (`true` or "
+            "`false`), in the dialect of `delimiter` and `decimal`; for the recommended "
+            "method's predictions as CSV, call /v1/predict with `method=auto`.",
+            "headers": {
+                "Nearwise-Recommended": {
+                    "description": "CSV answers only: the recommended method.",
+                    "schema": {"type": "string"},
+                },
+                "Nearwise-Warnings": {
+                    "description": "CSV answers only: data-set-level warning codes, "
+                    "comma-separated.",
+                    "schema": {"type": "string"},
+                },
+            },
+            "content": {
+                "application/json": {"schema": CompareResponse},
+                "text/csv": {
+                    "schema": {"type": "string", "contentMediaType": "text/csv"},
+                    "example": "rank,method,params,error,error_se,df,cv_r2,recommended\r\n"
+                    '1,linear,"{""degree"":1}",0.41,0.03,2.0,0.93,true\r\n',
+                },
+            },
         },
         **problems(400, 401, 406, 413, 415, 422, 503),
     },
 )
 def compare() -> Response:
     """Tune every method on the same folds, rank them and recommend the simplest adequate one."""
-    negotiate(("application/json",))
+    answer = negotiate(ANSWERS)
     settings = current_app.extensions["nearwise"]
     intake = read_request(settings, CompareRequest(), CompareFields())
     job = build_job(intake, settings.time_budget_s, method="compare")
@@ -44,6 +67,13 @@ def compare() -> Response:
     tuning = {k: v for k, v in asdict(job.tuning).items()}
     if job.tuning.scheme != "kfold":
         tuning["folds"] = None
-    resp = json_response(serialize.compare_document(result, tuning))
+    if answer == "text/csv":
+        resp = Response(serialize.compare_csv(result, intake.dialect), content_type=CSV_ANSWER)
+        resp.headers["Nearwise-Recommended"] = result.recommended
+        codes = serialize.compare_codes(result)
+        if codes:
+            resp.headers["Nearwise-Warnings"] = ", ".join(codes)
+    else:
+        resp = json_response(serialize.compare_document(result, tuning))
     resp.vary.add("Accept")
     return resp

@@ -5,7 +5,9 @@ from __future__ import annotations
 from flask import Blueprint, Response, current_app
 
 from nearwise.core import columns
+from nearwise.core.errors import InvalidValue, Where
 from nearwise.core.locality import summary
+from nearwise.web import serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import read_request
 from nearwise.web.jsonio import jsonable
@@ -18,6 +20,7 @@ from nearwise.web.locality_doc import (
 )
 from nearwise.web.openapi_parts import problems
 from nearwise.web.routes import json_response, operation
+from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER
 
 bp = Blueprint("locality", __name__, url_prefix="/v1")
 
@@ -31,10 +34,16 @@ bp = Blueprint("locality", __name__, url_prefix="/v1")
 )
 def locality() -> Response:
     """Measure how well the training rows cover their space and where query rows fall."""
-    negotiate(["application/json"])
+    answer = negotiate(ANSWERS)
     intake = read_request(current_app.extensions["nearwise"], LocalityRequest(), LocalityFields())
     f = intake.fields
     query = intake.tables.get("query")
+    if answer == "text/csv" and query is None:
+        raise InvalidValue(
+            "A CSV answer lists the query rows with their distances and flags; send a `query` "
+            "table, or ask for JSON (Accept: application/json) for the data-set summary alone.",
+            [Where(("query",), "needed for a CSV answer")],
+        )
     names, X, Xq = columns.feature_arrays(
         intake.tables["train"].table, f.get("features"), query.table if query else None
     )
@@ -46,4 +55,12 @@ def locality() -> Response:
         Xq=Xq,
         scale=f.get("scale", "standard"),
     )
-    return json_response(jsonable(doc))
+    doc = jsonable(doc)
+    if answer == "text/csv" and query is not None:
+        text = serialize.locality_csv(doc, query, intake.dialect)
+        resp = Response(text, content_type=CSV_ANSWER)
+        resp.headers.update(serialize.locality_headers(doc))
+    else:
+        resp = json_response(doc)
+    resp.vary.add("Accept")
+    return resp

@@ -34,7 +34,8 @@ def predict() -> Response:
     result = pipeline.run(build_job(intake, budget))
     if answer == "text/csv":
         rows = intake.tables.get("query") or intake.tables["train"]
-        resp = Response(serialize.predict_csv(result, rows), content_type=CSV_ANSWER)
+        text = serialize.predict_csv(result, rows, intake.dialect)
+        resp = Response(text, content_type=CSV_ANSWER)
         codes = serialize.dataset_codes(result)
         if codes:
             resp.headers["Nearwise-Warnings"] = ", ".join(codes)
