@@ -209,3 +209,10 @@ def test_docs_page_is_open_and_sends_the_key_given_to_authorize(
         browser.find_element(by.CSS_SELECTOR, ".modal-ux button.btn-done").click()
 
         assert '"methods"' in _execute(block, "200")
+
+
+def test_a_missing_browser_is_named_with_how_to_install_it(monkeypatch, tmp_path: Path) -> None:
+    monkeypatch.setitem(globals(), "CHROMIUM", tmp_path / "no-chromium")
+    reason = _missing()
+    assert reason is not None and str(tmp_path / "no-chromium") in reason
+    assert "apt-get install -y chromium chromium-driver" in reason
