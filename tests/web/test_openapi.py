@@ -63,7 +63,11 @@ def test_paths_summaries_and_problem_responses() -> None:
     assert set(bodies) == {"application/json", "multipart/form-data", "text/csv", "text/plain"}
     form = bodies["multipart/form-data"]["schema"]["properties"]
     assert {"train", "query", "method", "target", "tuning.folds", "interval.level"} <= set(form)
-    assert set(predict["responses"]["200"]["content"]) == {"application/json", "text/csv"}
+    assert set(predict["responses"]["200"]["content"]) == {
+        "application/json",
+        "text/csv",
+        "image/svg+xml",
+    }
     for path in doc["paths"].values():
         for op in path.values():
             assert op["summary"] and "\n" not in op["summary"]

@@ -265,3 +265,23 @@ def test_missing_flags_or_a_mismatched_query_column_still_draw(wave):
     assert _marks(ids["query"]) == 4 and "flagged" not in ids
     ids = _ids(_parse(predict_svg(result, X[:, 0], y, QUERY[:2, 0])))
     assert "query" not in ids and {"data", "fit", "band"} <= set(ids)
+
+
+def test_predict_and_compare_answer_svg_over_http(client) -> None:
+    """Accept: image/svg+xml or format=svg on the routes; a one-feature fit draws its curve."""
+    import xml.etree.ElementTree as ET
+
+    from webhelpers import body
+
+    for kwargs in ({"headers": {"Accept": "image/svg+xml"}}, {"query_string": {"format": "svg"}}):
+        resp = client.post("/v1/predict", json=body("spline"), **kwargs)
+        assert resp.status_code == 200 and resp.mimetype == "image/svg+xml"
+        gids = {e.get("id") for e in ET.fromstring(resp.data).iter()}
+        assert {"data", "fit", "band", "cv-path"} <= gids
+    request = body()
+    request.pop("method")
+    resp = client.post("/v1/compare", json=request, query_string={"format": "svg"})
+    assert resp.status_code == 200 and resp.mimetype == "image/svg+xml"
+    assert b"fit-linear" in resp.data
+    bad = client.post("/v1/predict", json=body(), query_string={"format": "png"})
+    assert bad.status_code == 422

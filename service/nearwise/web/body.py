@@ -56,8 +56,27 @@ def _too_large(limit: int, found: str) -> Problem:
     )
 
 
+FORMATS = {"json": "application/json", "csv": "text/csv", "svg": "image/svg+xml"}
+
+
 def negotiate(offered: Sequence[str]) -> str:
-    """The offered media type the ``Accept`` header prefers (the first when absent), or 406."""
+    """The offered media type the ``Accept`` header prefers (the first when absent), or 406.
+
+    A ``format`` query-string parameter (``json``, ``csv`` or ``svg``), where the endpoint
+    offers that type, overrides the header: for clients that cannot set headers.
+    """
+    fmt = request.args.get("format")
+    if fmt is not None:
+        wanted = FORMATS.get(fmt)
+        if wanted is None or wanted not in offered:
+            names = [k for k, v in FORMATS.items() if v in offered]
+            raise Problem(
+                422,
+                f"`format` must be one of {', '.join(names)} here; got {fmt!r}.",
+                [{"parameter": "format", "message": "unknown format"}],
+                code="invalid_request",
+            )
+        return wanted
     if not request.headers.get("Accept"):
         return offered[0]
     best = request.accept_mimetypes.best_match(offered)

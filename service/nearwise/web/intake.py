@@ -37,6 +37,8 @@ READS = (JSON, MULTIPART, CSV, TEXT)
 TABLES = ("train", "query")
 #: Parameters that set the CSV dialect; read beside the fields, never part of the document.
 DIALECT = ("delimiter", "decimal")
+#: Query-string parameters that shape the answer, not the request: read by the route.
+ANSWER = ("format",)
 
 
 @dataclass(frozen=True)
@@ -90,12 +92,12 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
         ) from None
     except DuplicateKey as exc:
         raise InvalidValue(f"The body is ambiguous: {exc}.", [Where(exc.path, str(exc))]) from None
-    extra = [k for k in request.args if k not in DIALECT]
+    extra = [k for k in request.args if k not in DIALECT and k not in ANSWER]
     if extra:
         raise Problem(
             422,
             "With a JSON body every field goes in the body; query-string parameters are not read "
-            "(except `delimiter` and `decimal`, for a CSV answer).",
+            "(except `delimiter` and `decimal`, for a CSV answer, and `format`).",
             [{"parameter": k, "message": "not read with a JSON body"} for k in extra],
             code="invalid_request",
         )
@@ -159,9 +161,11 @@ def _split_parts(items: list[tuple[str, Any]]) -> tuple[dict[str, list[bytes]], 
 
 def _csv(parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema: Schema) -> Intake:
     dialect = _dialect(request.args, form)
-    merged = MultiDict([(k, v) for k, v in form.items(multi=True) if k not in DIALECT])
+    merged = MultiDict(
+        [(k, v) for k, v in form.items(multi=True) if k not in DIALECT and k not in ANSWER]
+    )
     for name in request.args:
-        if name in DIALECT:
+        if name in DIALECT or name in ANSWER:
             continue
         if name in TABLES:
             raise InvalidValue(

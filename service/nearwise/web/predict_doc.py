@@ -113,6 +113,16 @@ RESPONSE_200: dict[str, Any] = {
     "content": {
         "application/json": {"schema": PredictResponse},
         "text/csv": {"schema": {"type": "string", "contentMediaType": "text/csv"}},
+        "image/svg+xml": {
+            "schema": {
+                "type": "string",
+                "contentMediaType": "image/svg+xml",
+                "description": "With `Accept: image/svg+xml` or `format=svg`: a picture of the fit "
+                "(one feature: the data, the fitted curve, its interval band and the query points, "
+                "flagged ones marked) and of the tuning path (error +/- SE against df, best and "
+                "chosen marked).",
+            },
+        },
     },
 }
 

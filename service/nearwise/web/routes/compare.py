@@ -7,14 +7,14 @@ from dataclasses import asdict
 from flask import Blueprint, Response, current_app
 
 from nearwise.core import compare as core_compare
-from nearwise.web import serialize
+from nearwise.web import figures, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import read_request
 from nearwise.web.openapi_parts import problems
 from nearwise.web.predict_doc import query_parameters, request_body
 from nearwise.web.responses import CompareResponse
 from nearwise.web.routes import json_response, operation
-from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER, build_job
+from nearwise.web.routes.predict import CSV_ANSWER, PICTURE_ANSWERS, build_job
 from nearwise.web.schemas import CompareFields, CompareRequest
 
 bp = Blueprint("compare", __name__, url_prefix="/v1")
@@ -52,6 +52,15 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
                     "example": "rank,method,params,error,error_se,df,cv_r2,recommended\r\n"
                     '1,linear,"{""degree"":1}",0.41,0.03,2.0,0.93,true\r\n',
                 },
+                "image/svg+xml": {
+                    "schema": {
+                        "type": "string",
+                        "contentMediaType": "image/svg+xml",
+                        "description": "With `Accept: image/svg+xml` or `format=svg`: every "
+                        "method's fitted curve on one chart (one feature) and every method's "
+                        "tuning path, the recommended one marked.",
+                    },
+                },
             },
         },
         **problems(400, 401, 406, 413, 415, 422, 503),
@@ -59,10 +68,14 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
 )
 def compare() -> Response:
     """Tune every method on the same folds, rank them and recommend the simplest adequate one."""
-    answer = negotiate(ANSWERS)
+    answer = negotiate(PICTURE_ANSWERS)
     settings = current_app.extensions["nearwise"]
     intake = read_request(settings, CompareRequest(), CompareFields())
     job = build_job(intake, settings.time_budget_s, method="compare")
+    if answer == figures.SVG:
+        resp = figures.compare_answer(core_compare.compare(figures.with_curve(job)), intake)
+        resp.vary.add("Accept")
+        return resp
     result = core_compare.compare(job)
     tuning = {k: v for k, v in asdict(job.tuning).items()}
     if job.tuning.scheme != "kfold":

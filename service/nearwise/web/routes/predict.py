@@ -6,7 +6,7 @@ from flask import Blueprint, Response, current_app
 
 from nearwise.core import pipeline
 from nearwise.core.spec import IntervalSpec, Job, TuningSpec
-from nearwise.web import serialize
+from nearwise.web import figures, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import Intake, read_request
 from nearwise.web.openapi_parts import problems
@@ -16,6 +16,7 @@ from nearwise.web.schemas import PredictFields, PredictRequest
 
 bp = Blueprint("predict", __name__, url_prefix="/v1")
 ANSWERS = ("application/json", "text/csv")
+PICTURE_ANSWERS = (*ANSWERS, figures.SVG)
 CSV_ANSWER = "text/csv; charset=utf-8; header=present"
 
 
@@ -28,10 +29,15 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
 )
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
-    answer = negotiate(ANSWERS)
+    answer = negotiate(PICTURE_ANSWERS)
     intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
     budget = current_app.extensions["nearwise"].time_budget_s
-    result = pipeline.run(build_job(intake, budget))
+    job = build_job(intake, budget)
+    if answer == figures.SVG:
+        resp = figures.predict_answer(pipeline.run(figures.with_curve(job)), intake)
+        resp.vary.add("Accept")
+        return resp
+    result = pipeline.run(job)
     if answer == "text/csv":
         rows = intake.tables.get("query") or intake.tables["train"]
         text = serialize.predict_csv(result, rows, intake.dialect)
