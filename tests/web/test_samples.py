@@ -48,6 +48,7 @@ def server(tmp_path_factory):
         ("curl_predict.sh", ["linear"], "json"),
         ("curl_compare.sh", [], "json"),
         ("curl_csv.sh", [], "csv"),
+        ("curl_cell.sh", [], "text"),
     ],
 )
 def test_sample_scripts_get_answers(server: str, script: str, args: list[str], kind: str) -> None:
@@ -62,5 +63,8 @@ def test_sample_scripts_get_answers(server: str, script: str, args: list[str], k
     if kind == "json":
         doc = json.loads(out.stdout)
         assert "predictions" in doc or "recommended" in doc
+    elif kind == "text":
+        lines = out.stdout.splitlines()
+        assert lines[0] == "# value" and len([float(v) for v in lines[1:4]]) == 3
     else:
         assert out.stdout.splitlines()[0].endswith("prediction,std_error,lower,upper,flags")
