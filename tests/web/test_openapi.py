@@ -71,3 +71,12 @@ def test_paths_summaries_and_problem_responses() -> None:
     for path in doc["paths"].values():
         for op in path.values():
             assert op["summary"] and "\n" not in op["summary"]
+
+
+def test_request_examples_are_valid_requests(client) -> None:
+    """The docs page's Try it out starts from these bodies: each must get a 200."""
+    doc = json.loads(KEPT.read_text(encoding="utf-8"))
+    for path in ("/v1/predict", "/v1/compare"):
+        body = doc["paths"][path]["post"]["requestBody"]["content"]["application/json"]
+        resp = client.post(path, json=body["example"])
+        assert resp.status_code == 200, resp.get_data(as_text=True)
