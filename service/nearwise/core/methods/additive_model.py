@@ -7,10 +7,10 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from nearwise.core.methods.additive_basis import BLOCK, Basis, evaluate
 from nearwise.core.methods.additive_solve import Smoother
+from nearwise.core.methods.posterior import BayesianBand
 from nearwise.core.results import Notice
 
 CURVE_POINTS = 50
@@ -32,7 +32,7 @@ class FoldAdditive:
 
 
 @dataclass
-class FittedAdditive:
+class FittedAdditive(BayesianBand):
     """alpha + sum_j f_j(x_j) at one overall smoothing, fitted to all usable rows."""
 
     basis: Basis
@@ -82,19 +82,6 @@ class FittedAdditive:
             pieces = self.smoother.pieces(*self.basis.design(Xq[s : s + BLOCK]))
             out[s : s + BLOCK] = self.smoother.quad(*pieces, self.smoothing)
         return out
-
-    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
-        """Posterior standard deviation of the fitted mean (Wahba 1983; Wood 2017, 6.10)."""
-        with np.errstate(invalid="ignore"):
-            return np.sqrt(self.sigma2() * self.variance(Xq))
-
-    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
-        """The Bayesian band for a new observation: f +/- z sqrt(sigma^2 (1 + v(x0)))."""
-        z = stats.norm.ppf(0.5 + level / 2)
-        with np.errstate(invalid="ignore"):
-            half = z * np.sqrt(self.sigma2() * (1.0 + self.variance(Xq)))
-        f = self.predict(Xq)
-        return f - half, f + half
 
     def _train_pieces(self) -> tuple[np.ndarray, np.ndarray]:
         if self._train is None:

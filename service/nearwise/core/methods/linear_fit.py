@@ -18,7 +18,13 @@ import numpy as np
 from scipy import linalg, stats
 
 from nearwise.core.data import Scaler
-from nearwise.core.methods.polynomial import design, raw_transform, row_norms, term_name
+from nearwise.core.methods.polynomial import (
+    deletion_residuals,
+    design,
+    raw_transform,
+    row_norms,
+    term_name,
+)
 from nearwise.core.results import Notice
 
 
@@ -90,10 +96,7 @@ class FittedLinear:
 
     def loo_residuals(self) -> np.ndarray:
         """e_i / (1 - h_i); NaN where h_i = 1 (the row alone determines a term)."""
-        h = self._leverage_train()
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out = (self.y - self.fitted) / (1.0 - h)
-        return np.where(h < 1 - 1e-10, out, np.nan)
+        return deletion_residuals(self.y, self.fitted, self._leverage_train())
 
     def loo_predictions(self, Xq: np.ndarray):
         """mu_{-i}(x0) = mu(x0) - a0'q_i e_i / (1 - h_i) for every training row i (Belsley,

@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from nearwise.core.errors import NotApplicable, Where
-from nearwise.core.methods.polynomial import raw_transform, row_norms, term_name
+from nearwise.core.methods.polynomial import deletion_residuals, raw_transform, row_norms, term_name
 from nearwise.core.results import Notice
 
 
@@ -98,10 +98,7 @@ class FittedPenalized:
 
     def loo_residuals(self) -> np.ndarray:
         """e_i / (1 - h_ii), exact for ridge with the standardization fixed; NaN at h_ii = 1."""
-        h = self._leverage_train()
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out = (self.y - self.fitted) / (1.0 - h)
-        return np.where(h < 1 - 1e-10, out, np.nan)
+        return deletion_residuals(self.y, self.fitted, self._leverage_train())
 
     def loo_predictions(self, Xq: np.ndarray):
         """mu_{-i}(x0) = mu(x0) - s_i(x0) e_i / (1 - h_ii), with s_i(x0) = 1/n +

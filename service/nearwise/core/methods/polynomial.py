@@ -94,3 +94,11 @@ def row_norms(A: np.ndarray) -> np.ndarray:
     big = np.max(np.abs(A), axis=1)
     safe = np.where(big > 0, big, 1.0)
     return big * np.sqrt(np.sum((A / safe[:, None]) ** 2, axis=1))
+
+
+def deletion_residuals(y: np.ndarray, fitted: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """Leave-one-out residuals e_i / (1 - h_i) of a least-squares-type fit with leverages h;
+    NaN where h_i = 1 (the row alone determines a term)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = (y - fitted) / (1.0 - h)
+    return np.where(h < 1 - 1e-10, out, np.nan)

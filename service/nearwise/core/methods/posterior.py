@@ -20,7 +20,7 @@ the band's coverage holds on average over the design points, not at every point.
 from __future__ import annotations
 
 import numpy as np
-from scipy import linalg
+from scipy import linalg, stats
 
 
 class Posterior:
@@ -53,3 +53,21 @@ class Posterior:
 def cubic_phi(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """|a - b|^3 / 12: the generalized covariance of the cubic smoothing spline."""
     return np.abs(a[:, None] - b[None, :]) ** 3 / 12.0
+
+
+class BayesianBand:
+    """std_error and the model interval of a fit that offers ``predict``, ``sigma2()`` and
+    ``variance(Xq)`` (the posterior variance of f(x0) in units of sigma^2)."""
+
+    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
+        """Posterior standard deviation of the fitted mean (Wahba 1983)."""
+        with np.errstate(invalid="ignore"):
+            return np.sqrt(self.sigma2() * self.variance(Xq))
+
+    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
+        """The Bayesian band for a new observation: f +/- z sqrt(sigma^2 (1 + v(x0)))."""
+        z = stats.norm.ppf(0.5 + level / 2)
+        with np.errstate(invalid="ignore"):
+            half = z * np.sqrt(self.sigma2() * (1.0 + self.variance(Xq)))
+        f = self.predict(Xq)
+        return f - half, f + half

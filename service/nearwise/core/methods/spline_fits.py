@@ -6,11 +6,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 from nearwise.core.data import Scaler
 from nearwise.core.methods import spline1d, thinplate
-from nearwise.core.methods.posterior import Posterior, cubic_phi
+from nearwise.core.methods.posterior import BayesianBand, Posterior, cubic_phi
 from nearwise.core.results import Notice
 
 
@@ -56,7 +55,7 @@ def _interpolating(df: float | None, distinct: int, smoothing: float) -> list[No
     ]
 
 
-class _Bayes:
+class _Bayes(BayesianBand):
     """Error figures shared by both spline fits, from their posterior (Wahba 1983).
 
     Subclasses set ``y`` (rows), ``fit_rows`` (the smoother's fit at the rows), ``column``
@@ -82,19 +81,6 @@ class _Bayes:
         """Posterior variance of f(x0) in units of sigma^2."""
         Phi0, P0 = self._cross(Xq)
         return self.posterior().variance(Phi0, P0, np.zeros(Xq.shape[0]))
-
-    def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
-        """Posterior standard deviation of f(x0)."""
-        with np.errstate(invalid="ignore"):
-            return np.sqrt(self.sigma2() * self.variance(Xq))
-
-    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
-        """The Bayesian band for a new observation: f +/- z sqrt(sigma^2 (1 + v(x0)))."""
-        z = stats.norm.ppf(0.5 + level / 2)
-        with np.errstate(invalid="ignore"):
-            half = z * np.sqrt(self.sigma2() * (1.0 + self.variance(Xq)))
-        f = self.predict(Xq)
-        return f - half, f + half
 
     def loo_residuals(self) -> np.ndarray:
         h = self._diag()[self.column] / self.count[self.column]
