@@ -1,0 +1,380 @@
+"""The bad-input catalogue (issue 7, item 2): named malformed requests, each answered with its
+documented status as problem+json that names the place at fault, and never with a 500.
+
+Each case says where the fault must be named: an entry of ``errors`` (a JSON Pointer, a CSV
+``part``/``line``/``column``, or a query ``parameter``), or, for faults of the HTTP envelope that
+have no field (method, Accept, Content-Type, body size, JSON syntax), a phrase of ``detail``.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import pytest
+from flask.testing import FlaskClient
+from webhelpers import body, curve, problem
+from werkzeug.test import EnvironBuilder, TestResponse
+
+from nearwise.web.app import create_app
+from nearwise.web.settings import Settings
+
+Send = Callable[[FlaskClient], TestResponse]
+
+XY = '"columns":["x","y"]'
+ROWS = ",".join(f"[{x},{y}]" for x, y in curve(12))
+CSV_HEAD = "/v1/predict?method=knn&target=y"
+ANY = object()  # a key that must be present, with any value
+
+
+@dataclass(frozen=True)
+class Case:
+    send: Send
+    status: int
+    entry: dict[str, Any] = field(default_factory=dict)
+    detail: tuple[str, ...] = ()
+
+
+def post_json(doc: Any, path: str = "/v1/predict", **headers: str) -> Send:
+    return lambda c: c.post(
+        path, data=json.dumps(doc), content_type="application/json", headers=headers
+    )
+
+
+def post_raw(
+    text: str | bytes, content_type: str = "application/json", path: str = "/v1/predict"
+) -> Send:
+    data = text.encode() if isinstance(text, str) else text
+    return lambda c: c.post(path, data=data, content_type=content_type)
+
+
+def raw_train(rows: str, more: str = "", columns: str = XY) -> Send:
+    """A predict body whose train table is written by hand (for literals JSON cannot hold)."""
+    return post_raw(f'{{"method":"knn","target":"y"{more},"train":{{{columns},"rows":[{rows}]}}}}')
+
+
+def table(columns: list[str], rows: list[list[Any]]) -> dict[str, Any]:
+    return {"columns": columns, "rows": rows}
+
+
+def post_csv(data: bytes, query: str = CSV_HEAD) -> Send:
+    return lambda c: c.post(query, data=data, content_type="text/csv")
+
+
+def post_parts(train: bytes, query: bytes, url: str = CSV_HEAD) -> Send:
+    return lambda c: c.post(
+        url,
+        data={
+            "train": (io.BytesIO(train), "train.csv", "text/csv"),
+            "query": (io.BytesIO(query), "query.csv", "text/csv"),
+        },
+        content_type="multipart/form-data",
+    )
+
+
+def capped(send_with: Callable[[FlaskClient, bytes], TestResponse], spare: int) -> Send:
+    """Send the default body to an app whose body cap is ``spare`` bytes short of it."""
+    data = json.dumps(body()).encode()
+
+    def send(_: FlaskClient) -> TestResponse:
+        small = create_app(Settings(max_body_bytes=len(data) - spare)).test_client()
+        return send_with(small, data)
+
+    return send
+
+
+def with_length(c: FlaskClient, data: bytes) -> TestResponse:
+    return c.post("/v1/predict", data=data, content_type="application/json")
+
+
+def without_length(c: FlaskClient, data: bytes) -> TestResponse:
+    env = EnvironBuilder(
+        path="/v1/predict",
+        method="POST",
+        input_stream=io.BytesIO(data),
+        headers={"Content-Type": "application/json", "Transfer-Encoding": "chunked"},
+    ).get_environ()
+    del env["CONTENT_LENGTH"]
+    return c.open(env)
+
+
+def as_multipart(c: FlaskClient, data: bytes) -> TestResponse:
+    return c.post(CSV_HEAD, data={"train": (io.BytesIO(b"x,y\n" + b"1,2\n" * len(data)), "t.csv")})
+
+
+def at(path: str) -> dict[str, str]:
+    return {"pointer": path}
+
+
+def csv_at(line: object, column: str | None = None, part: str = "train") -> dict[str, Any]:
+    where: dict[str, Any] = {"part": part, "line": line}
+    if column is not None:
+        where["column"] = column
+    return where
+
+
+CONSTANT_X = [[2.0, float(i % 3)] for i in range(12)]
+CONSTANT_B = [[float(i), 2.0, float(i % 3)] for i in range(15)]
+FOUR = [[i, i % 3, i % 5, i % 7, float(i % 4)] for i in range(20)]
+
+CASES: dict[str, Case] = {
+    # malformed JSON
+    "json-unclosed-object": Case(post_raw('{"method":"knn"'), 400, detail=("line 1",)),
+    "json-trailing-comma": Case(post_raw('{"method":"knn",}'), 400, detail=("line 1",)),
+    "json-single-quotes": Case(post_raw("{'method':'knn'}"), 400, detail=("column 2",)),
+    "json-not-utf8": Case(post_raw(b'{"method":"kn\xff"}'), 400, detail=("UTF-8",)),
+    "json-body-an-array": Case(post_json([1, 2]), 422, at("")),
+    # NaN, Infinity and overflow literals
+    "nan-literal-in-feature": Case(raw_train(f"{ROWS},[NaN,1]"), 422, at("/train/rows/12/0")),
+    "nan-literal-in-target": Case(raw_train(f"[1,NaN],{ROWS}"), 422, at("/train/rows/0/1")),
+    "infinity-literal": Case(raw_train(f"{ROWS},[Infinity,1]"), 422, at("/train/rows/12/0")),
+    "minus-infinity-literal": Case(raw_train(f"[2,-Infinity],{ROWS}"), 422, at("/train/rows/0/1")),
+    "overflow-1e400": Case(raw_train(f"{ROWS},[1e400,1]"), 422, at("/train/rows/12/0")),
+    "overflow-huge-integer": Case(
+        raw_train(f"{ROWS},[{'9' * 400},1]"), 422, at("/train/rows/12/0")
+    ),
+    "nan-literal-in-query": Case(
+        post_raw(
+            '{"method":"knn","target":"y","train":{' + XY + ',"rows":[' + ROWS + "]},"
+            '"query":{"columns":["x"],"rows":[[1],[NaN]]}}'
+        ),
+        422,
+        at("/query/rows/1/0"),
+    ),
+    "nan-literal-in-interval-level": Case(
+        raw_train(ROWS, ',"interval":{"level":NaN}'), 422, at("/interval/level")
+    ),
+    "infinity-literal-in-grid": Case(
+        raw_train(ROWS, ',"grid":{"k":[1,Infinity]}'), 422, at("/grid/k/1")
+    ),
+    # duplicate keys
+    "duplicate-key-in-tuning": Case(
+        raw_train(ROWS, ',"tuning":{"folds":3,"folds":4}'), 422, at("/tuning/folds")
+    ),
+    "duplicate-key-at-top": Case(
+        post_raw(
+            '{"method":"knn","method":"linear","target":"y","train":{'
+            + XY
+            + ',"rows":['
+            + ROWS
+            + "]}}"
+        ),
+        422,
+        at("/method"),
+    ),
+    # form-encoded and XML bodies
+    "form-urlencoded": Case(
+        lambda c: c.post(CSV_HEAD, data={"train": "x,y\n1,2\n"}),
+        415,
+        detail=("application/x-www-form-urlencoded",),
+    ),
+    "xml-body": Case(
+        post_raw("<predict><method>knn</method></predict>", "application/xml"),
+        415,
+        detail=("application/xml",),
+    ),
+    "text-xml-body": Case(post_raw("<a/>", "text/xml"), 415, detail=("text/xml",)),
+    # a missing or unknown field
+    "missing-method": Case(
+        post_json({k: v for k, v in body().items() if k != "method"}), 422, at("/method")
+    ),
+    "missing-target": Case(
+        post_json({k: v for k, v in body().items() if k != "target"}), 422, at("/target")
+    ),
+    "missing-train": Case(post_json({"method": "knn", "target": "y"}), 422, at("/train")),
+    "missing-rows": Case(post_json(body(train={"columns": ["x", "y"]})), 422, at("/train/rows")),
+    "unknown-top-field": Case(post_json(body(bogus=1)), 422, at("/bogus")),
+    "unknown-tuning-field": Case(post_json(body(tuning={"fold": 3})), 422, at("/tuning/fold")),
+    "unknown-method": Case(post_json(body("lasso")), 422, at("/method")),
+    "compare-unknown-method": Case(
+        post_json(
+            {"methods": ["knn", "lasso"], "target": "y", "train": body()["train"]}, "/v1/compare"
+        ),
+        422,
+        at("/methods/1"),
+    ),
+    "target-also-a-feature": Case(post_json(body(features=["y"])), 422, at("/features/0")),
+    "target-not-a-column": Case(post_json(body(target="z")), 422, at("/target")),
+    "feature-not-a-column": Case(post_json(body(features=["w"])), 422, at("/features/0")),
+    # a text or boolean cell
+    "text-cell-in-target": Case(raw_train(f'{ROWS},[1,"a"]'), 422, at("/train/rows/12/1")),
+    "text-cell-in-feature": Case(raw_train(f'{ROWS},["abc",1]'), 422, at("/train/rows/12/0")),
+    "text-nan-cell": Case(raw_train(f'{ROWS},[1,"NaN"]'), 422, at("/train/rows/12/1")),
+    "boolean-cell": Case(raw_train(f"{ROWS},[true,1]"), 422, at("/train/rows/12/0")),
+    "nested-list-cell": Case(raw_train(f"{ROWS},[[1],1]"), 422, at("/train/rows/12/0")),
+    # ragged rows and duplicate column names
+    "ragged-short-row": Case(raw_train(f"{ROWS},[1]"), 422, at("/train/rows/12")),
+    "ragged-long-row": Case(raw_train(f"{ROWS},[1,2,3]"), 422, at("/train/rows/12")),
+    "row-not-a-list": Case(raw_train(f"{ROWS},7"), 422, at("/train/rows/12")),
+    "duplicate-column": Case(
+        raw_train(ROWS, columns='"columns":["y","y"]'), 422, at("/train/columns/1")
+    ),
+    # empty tables and a single row
+    "empty-rows": Case(post_json(body(train=table(["x", "y"], []))), 422, at("/train/rows")),
+    "empty-columns": Case(post_json(body(train=table([], []))), 422, at("/train/columns")),
+    "single-row": Case(
+        post_json(body(train=table(["x", "y"], [[1.0, 2.0]]))), 422, at("/tuning/folds")
+    ),
+    # fewer rows than folds
+    "three-rows-five-folds": Case(
+        post_json(body(train=table(["x", "y"], curve(3)))), 422, at("/tuning/folds")
+    ),
+    "ten-rows-twenty-folds": Case(
+        post_json(body(tuning={"folds": 20}, train=table(["x", "y"], curve(10)))),
+        422,
+        at("/tuning/folds"),
+    ),
+    # parameters out of range, of the wrong type, or unknown
+    "k-zero": Case(post_json(body(params={"k": 0})), 422, at("/params/k")),
+    "k-negative": Case(post_json(body(params={"k": -3})), 422, at("/params/k")),
+    "k-fractional": Case(post_json(body(params={"k": 2.5})), 422, at("/params/k")),
+    "k-a-string": Case(post_json(body(params={"k": "five"})), 422, at("/params/k")),
+    "degree-six": Case(post_json(body("linear", params={"degree": 6})), 422, at("/params/degree")),
+    "weights-unknown": Case(
+        post_json(body(params={"weights": "cosine"})), 422, at("/params/weights")
+    ),
+    "unknown-parameter": Case(
+        post_json(body(params={"smoothing": 1.0})), 422, at("/params/smoothing")
+    ),
+    "k-beyond-the-fold-size": Case(post_json(body(params={"k": 1000})), 422, at("/params/k")),
+    "k-fixed-and-tuned": Case(
+        post_json(body(params={"k": 3}, grid={"k": [1, 2]})), 422, at("/grid/k")
+    ),
+    "gcv-for-knn": Case(post_json(body(tuning={"scheme": "gcv"})), 422, at("/tuning/scheme")),
+    "folds-one": Case(post_json(body(tuning={"folds": 1})), 422, at("/tuning/folds")),
+    "folds-a-string": Case(post_json(body(tuning={"folds": "5"})), 422, at("/tuning/folds")),
+    "folds-boolean": Case(post_json(body(tuning={"folds": True})), 422, at("/tuning/folds")),
+    "repeats-zero": Case(post_json(body(tuning={"repeats": 0})), 422, at("/tuning/repeats")),
+    "seed-negative": Case(post_json(body(tuning={"seed": -1})), 422, at("/tuning/seed")),
+    "scheme-unknown": Case(
+        post_json(body(tuning={"scheme": "bootstrap"})), 422, at("/tuning/scheme")
+    ),
+    "level-one": Case(post_json(body(interval={"level": 1.0})), 422, at("/interval/level")),
+    "level-a-string": Case(post_json(body(interval={"level": "90%"})), 422, at("/interval/level")),
+    "group-by-unknown-column": Case(
+        post_json(body(tuning={"group_by": "g"})), 422, at("/tuning/group_by")
+    ),
+    "cell-parameter-out-of-range": Case(
+        lambda c: c.get("/v1/cell?x=1,2,3,4,5,6&y=1,2,3,4,5,6&at=2&level=7"),
+        422,
+        {"parameter": "level"},
+    ),
+    # empty and enormous grids
+    "grid-empty": Case(post_json(body(grid={"k": []})), 422, at("/grid/k")),
+    "grid-enormous": Case(post_json(body(grid={"k": list(range(1, 1002))})), 422, at("/grid/k")),
+    "grid-unknown-parameter": Case(
+        post_json(body(grid={"degree": [1, 2]})), 422, at("/grid/degree")
+    ),
+    "grid-text-values": Case(post_json(body(grid={"k": ["a", "b"]})), 422, at("/grid/k/0")),
+    # a query with the wrong columns
+    "query-missing-feature": Case(
+        post_json(body(query=table(["w"], [[1.0]]))), 422, at("/query/columns")
+    ),
+    "query-duplicate-column": Case(
+        post_json(body(query=table(["x", "x"], [[1.0, 2.0]]))), 422, at("/query/columns/1")
+    ),
+    "query-ragged": Case(
+        post_json(body(query=table(["x"], [[1.0], [1.0, 2.0]]))), 422, at("/query/rows/1")
+    ),
+    # spline: too many features, or x values all the same
+    "spline-four-features": Case(
+        post_json(body("spline", train=table(["a", "b", "c", "d", "y"], FOUR))),
+        422,
+        at("/features"),
+    ),
+    "spline-constant-x": Case(
+        post_json(body("spline", train=table(["x", "y"], CONSTANT_X))), 422, at("/train/rows")
+    ),
+    "spline-two-features-one-constant": Case(
+        post_json(body("spline", train=table(["a", "b", "y"], CONSTANT_B))), 422, at("/features")
+    ),
+    "compare-spline-constant-x": Case(
+        post_json(
+            {"methods": ["knn", "spline"], "target": "y", "train": table(["x", "y"], CONSTANT_X)},
+            "/v1/compare",
+        ),
+        422,
+        at("/train/rows"),
+    ),
+    # wrong HTTP method and unsupported Accept
+    "get-predict": Case(lambda c: c.get("/v1/predict"), 405, detail=("POST",)),
+    "put-compare": Case(lambda c: c.put("/v1/compare", json=body()), 405, detail=("POST",)),
+    "delete-locality": Case(lambda c: c.delete("/v1/locality"), 405, detail=("POST",)),
+    "post-methods": Case(lambda c: c.post("/v1/methods", json={}), 405, detail=("GET",)),
+    "accept-html": Case(post_json(body(), Accept="text/html"), 406, detail=("text/html",)),
+    "accept-xml": Case(
+        post_json(body(), Accept="application/xml"), 406, detail=("application/xml",)
+    ),
+    "accept-csv-on-methods": Case(
+        lambda c: c.get("/v1/methods", headers={"Accept": "text/csv"}), 406, detail=("text/csv",)
+    ),
+    # bodies over the cap
+    "over-cap-with-length": Case(capped(with_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
+    "over-cap-without-length": Case(
+        capped(without_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)
+    ),
+    "over-cap-multipart": Case(capped(as_multipart, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
+    # CSV with a broken encoding or quoting
+    "csv-latin1": Case(post_csv("x,y\n1,2\n2,3\ncaf\xe9,4\n".encode("latin-1")), 400, csv_at(4)),
+    "csv-utf16": Case(post_csv("x,y\n1,2\n".encode("utf-16")), 400, detail=("UTF-8",)),
+    "csv-unclosed-quote": Case(post_csv(b'x,y\n1,2\n"3,4\n5,6\n'), 400, csv_at(ANY)),
+    "csv-stray-quote": Case(post_csv(b'x,y\n1,2\n3,4"x"\n'), 422, csv_at(3, "y")),
+    "csv-text-cell": Case(post_csv(b"x,y\n1,2\n2,abc\n3,4\n"), 422, csv_at(3, "y")),
+    "csv-nan-cell": Case(post_csv(b"x,y\n1,2\nnan,3\n3,4\n"), 422, csv_at(3, "x")),
+    "csv-ragged": Case(post_csv(b"x,y\n1,2\n3\n4,5\n"), 422, csv_at(3)),
+    "csv-duplicate-column": Case(post_csv(b"x,x\n1,2\n"), 422, csv_at(1, "x")),
+    "csv-query-part-text": Case(
+        post_parts(b"x,y\n" + b"".join(b"%d,%d\n" % (i, i % 3) for i in range(12)), b"x\n1\nabc\n"),
+        422,
+        csv_at(3, "x", "query"),
+    ),
+}
+
+
+def entry_matches(entry: dict[str, Any], want: dict[str, Any]) -> bool:
+    return all(key in entry and value in (ANY, entry[key]) for key, value in want.items())
+
+
+@pytest.mark.parametrize("name", CASES, ids=list(CASES))
+def test_bad_input_names_its_place(client: FlaskClient, name: str) -> None:
+    case = CASES[name]
+    resp = case.send(client)
+    assert resp.status_code != 500, resp.get_data(as_text=True)
+    doc = problem(resp, case.status)
+    assert doc["detail"] and doc["title"] and doc["type"]
+    if case.entry:
+        assert any(entry_matches(e, case.entry) for e in doc["errors"]), doc
+    for phrase in case.detail:
+        assert phrase in doc["detail"], doc
+    assert all("message" in e for e in doc["errors"])
+
+
+def test_the_catalogue_is_large_enough() -> None:
+    assert len(CASES) >= 40
+
+
+# No value is silently altered: each non-finite cell is refused, and the same body with a plain
+# number in that cell fits, so the refusal is caused by the cell alone.
+NON_FINITE = ["NaN", "Infinity", "-Infinity", "1e400", '"NaN"', '"nan"', "true"]
+
+
+@pytest.mark.parametrize("literal", NON_FINITE)
+def test_a_non_finite_cell_is_refused_never_fitted(client: FlaskClient, literal: str) -> None:
+    bad = raw_train(f"{ROWS},[{literal},1]")(client)
+    doc = problem(bad, 422)
+    assert "/train/rows/12/0" in [e.get("pointer") for e in doc["errors"]]
+    assert "predictions" not in bad.get_data(as_text=True)
+    good = raw_train(f"{ROWS},[0,1]")(client)
+    assert good.status_code == 200, good.get_data(as_text=True)
+    assert good.get_json()["fit"]["rows_dropped"] == 0
+
+
+@pytest.mark.parametrize("cell", [b"nan", b"NaN", b"inf", b"-Infinity", b"1e999"])
+def test_a_non_finite_csv_cell_is_refused_never_fitted(client: FlaskClient, cell: bytes) -> None:
+    head = b"x,y\n" + b"".join(b"%d,%d\n" % (i, i % 3) for i in range(12))
+    doc = problem(post_csv(head + cell + b",1\n")(client), 422)
+    assert any(entry_matches(e, csv_at(14, "x")) for e in doc["errors"]), doc
+    assert post_csv(head + b"0,1\n")(client).status_code == 200
