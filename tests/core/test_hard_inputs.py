@@ -163,3 +163,10 @@ def test_targets_near_the_magnitude_limit_are_scored_without_overflow():
     y = (X[:, 0] + RNG.normal(0, 0.1, 60)) * 1e90
     result = run(_job("knn", X, y))
     assert np.isfinite(result.fit.cv_error_se) and result.fit.cv_error_se > 0
+
+
+@pytest.mark.parametrize("method", ["knn", "linear", "spline", "additive", "auto"])
+def test_an_empty_query_gets_an_empty_answer(method):
+    X = RNG.uniform(0, 1, (40, 1))
+    result = run(_job(method, X, X[:, 0] + RNG.normal(0, 0.1, 40), np.empty((0, 1))))
+    assert result.predictions.value.shape == (0,)

@@ -218,6 +218,8 @@ class FittedKNN:
     def query_notices(self, Xq: np.ndarray) -> list:
         """``wide_neighborhood``: the k neighbors of a query spread over more than half of a
         feature's training range."""
+        if Xq.shape[0] == 0:
+            return []
         Xs = self.scaler.transform(Xq)
         train = self.Xs
         span = train.max(axis=0) - train.min(axis=0)
