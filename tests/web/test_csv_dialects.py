@@ -296,3 +296,14 @@ def test_json_bodies_take_dialect_parameters_for_the_csv_answer(client) -> None:
     assert problem(resp, 422)["errors"] == [
         {"parameter": "method", "message": "not read with a JSON body"}
     ]
+
+
+def test_an_unclosed_quote_is_reported_where_it_opens(client) -> None:
+    text = 'x,y\n1,2\n"3,4\n5,6\n'
+    resp = client.post("/v1/predict?method=knn&target=y", data=text, content_type="text/csv")
+    assert resp.status_code == 400
+    assert resp.get_json()["errors"][0] == {
+        "part": "train",
+        "line": 3,
+        "message": "unexpected end of data",
+    }

@@ -172,6 +172,19 @@ def _check_header_dialect(name: str, text: str, dialect: Dialect) -> None:
     )
 
 
+def _open_quote_line(text: str) -> int | None:
+    """The line (1-based) where a quoted cell opens and never closes, if one does."""
+    inside, opened, line = False, None, 1
+    for ch in text:
+        if ch == '"':
+            inside = not inside  # a doubled quote "" toggles twice: no net change
+            if inside:
+                opened = line
+        elif ch == "\n":
+            line += 1
+    return opened if inside else None
+
+
 def read_csv(
     name: str,
     data: bytes,
@@ -192,10 +205,12 @@ def read_csv(
         header = next(reader, None)
         rows = list(reader)
     except csv.Error as exc:
+        line = _open_quote_line(text) if "end of data" in str(exc) else None
+        line = line or reader.line_num
         raise Problem(
             400,
-            f"The {name} part is not readable CSV at line {reader.line_num}: {exc}.",
-            [{"part": name, "line": reader.line_num, "message": str(exc)}],
+            f"The {name} part is not readable CSV at line {line}: {exc}.",
+            [{"part": name, "line": line, "message": str(exc)}],
         ) from None
     if not header:
         raise Problem(
