@@ -170,3 +170,18 @@ def test_an_empty_query_gets_an_empty_answer(method):
     X = RNG.uniform(0, 1, (40, 1))
     result = run(_job(method, X, X[:, 0] + RNG.normal(0, 0.1, 40), np.empty((0, 1))))
     assert result.predictions.value.shape == (0,)
+
+
+def test_a_constant_column_with_rounding_noise_has_no_spread():
+    """A constant feature whose mean is not exact (sd of 1e-17) must not swamp the others."""
+    n = 30
+    x0 = np.linspace(0, 1, n)
+    y = np.sin(6 * x0)
+    for const in (0.1, 0.5):
+        X = np.column_stack([x0, np.full(n, const)])
+        Xq = np.array([[0.0, const + 0.01], [1.0, const + 0.01]])
+        value = run(_job("knn", X, y, Xq, params={"k": 3})).predictions.value
+        assert abs(value[0] - value[1]) > 0.5  # the prediction still follows x0
+    tiny = np.full(30, 5.12007491e-110)
+    result = run(_job("linear", tiny[:, None], np.arange(30.0) % 3, [[1.0]]))
+    assert np.isfinite(result.predictions.value).all()

@@ -249,7 +249,8 @@ class Scaler:
 
     ``standard`` subtracts the mean and divides by the standard deviation (ddof 0);
     ``range`` maps the training minimum to 0 and maximum to 1; ``none`` leaves values as they
-    are. A feature with zero spread is divided by 1, as scikit-learn's scalers do.
+    are. A feature with zero spread (or spread within rounding of its magnitude) is divided by
+    1, as scikit-learn's scalers do.
     """
 
     shift: np.ndarray
@@ -268,7 +269,10 @@ class Scaler:
             scale = X.max(axis=0) - shift
         else:  # pragma: no cover - parameters are checked before
             raise ValueError(kind)
-        scale = np.where(scale > 0, scale, 1.0)
+        # A column whose spread is rounding noise (a few ulps of its magnitude: a constant
+        # column's mean is not exact) has no spread: dividing by the noise would blow it up.
+        noise = 64 * np.finfo(float).eps * np.max(np.abs(X), axis=0) if X.size else 0.0
+        scale = np.where(scale > noise, scale, 1.0)
         return cls(shift, scale)
 
     def transform(self, X: np.ndarray) -> np.ndarray:
