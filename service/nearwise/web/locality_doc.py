@@ -7,6 +7,7 @@ from typing import Any
 from marshmallow import fields, validate
 
 from nearwise.core.data import SCALES
+from nearwise.web import predict_doc
 from nearwise.web.fields import Number, StrictInteger
 from nearwise.web.openapi_parts import FORM_RULES, form_fields
 from nearwise.web.predict_doc import DIALECT_PARAMETERS
@@ -192,18 +193,4 @@ RESPONSE_200: dict[str, Any] = {
 
 def query_parameters() -> list[dict[str, Any]]:
     """The fields as query-string parameters (read with CSV and multipart bodies only)."""
-    return [
-        *(
-            {
-                "name": name,
-                "in": "query",
-                "required": False,
-                "description": "Only with a text/csv, text/plain CSV or multipart/form-data "
-                "body. " + spec.pop("description", ""),
-                "schema": spec,
-                **({"style": "form", "explode": True} if spec.get("type") == "array" else {}),
-            }
-            for name, spec in form_fields(LocalityFields()).items()
-        ),
-        *DIALECT_PARAMETERS,
-    ]
+    return predict_doc.query_parameters(LocalityFields())

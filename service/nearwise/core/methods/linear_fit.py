@@ -21,6 +21,7 @@ from nearwise.core.data import Scaler
 from nearwise.core.methods.polynomial import (
     deletion_residuals,
     design,
+    high_leverage,
     raw_transform,
     row_norms,
     term_name,
@@ -113,19 +114,7 @@ class FittedLinear:
     def query_notices(self, Xq: np.ndarray) -> list[Notice]:
         """``high_leverage``: h0 above the largest training leverage, the hidden
         extrapolation of Montgomery, Peck & Vining (2012, section 3.8)."""
-        h_max = float(np.max(self._leverage_train()))
-        rows = np.flatnonzero(self.leverage_root(Xq) > np.sqrt(h_max) * (1 + 1e-9))
-        if not rows.size:
-            return []
-        return [
-            Notice(
-                "high_leverage",
-                f"{rows.size} row(s) have leverage x0'(X'X)^-1 x0 above the largest among the "
-                f"training rows ({h_max:.3g}): the polynomial extrapolates there, even if each "
-                "feature lies inside its range.",
-                tuple(int(i) for i in rows),
-            )
-        ]
+        return high_leverage(self.leverage_root(Xq), self._leverage_train(), "x0'(X'X)^-1 x0")
 
     def aliased(self) -> list[str]:
         dropped = sorted(set(range(len(self.terms))) - set(self.kept.tolist()))

@@ -24,7 +24,13 @@ from typing import Any
 import numpy as np
 
 from nearwise.core.errors import NotApplicable, Where
-from nearwise.core.methods.polynomial import deletion_residuals, raw_transform, row_norms, term_name
+from nearwise.core.methods.polynomial import (
+    deletion_residuals,
+    high_leverage,
+    raw_transform,
+    row_norms,
+    term_name,
+)
 from nearwise.core.results import Notice
 
 
@@ -118,19 +124,9 @@ class FittedPenalized:
     def query_notices(self, Xq: np.ndarray) -> list[Notice]:
         """``high_leverage``: h0 = 1/n + z0'V diag(g_hat) V'z0 above the largest training
         leverage (the fit's own hat matrix)."""
-        h_max = float(np.max(self._leverage_train()))
-        rows = np.flatnonzero(self.leverage_root(Xq) > np.sqrt(h_max) * (1 + 1e-9))
-        if not rows.size:
-            return []
-        return [
-            Notice(
-                "high_leverage",
-                f"{rows.size} row(s) have leverage above the largest among the training rows "
-                f"({h_max:.3g}; the {self.penalty} fit's hat matrix): the polynomial "
-                "extrapolates there, even if each feature lies inside its range.",
-                tuple(int(i) for i in rows),
-            )
-        ]
+        return high_leverage(
+            self.leverage_root(Xq), self._leverage_train(), f"(the {self.penalty} fit's hat matrix)"
+        )
 
     def _names(self, idx, names) -> list[str]:
         return [term_name(self.basis.terms[1 + j], names) for j in idx]

@@ -20,6 +20,8 @@ from math import comb
 
 import numpy as np
 
+from nearwise.core.results import Notice
+
 ALIAS_TOL = 1e-9
 
 
@@ -102,3 +104,22 @@ def deletion_residuals(y: np.ndarray, fitted: np.ndarray, h: np.ndarray) -> np.n
     with np.errstate(divide="ignore", invalid="ignore"):
         out = (y - fitted) / (1.0 - h)
     return np.where(h < 1 - 1e-10, out, np.nan)
+
+
+def high_leverage(root_query: np.ndarray, h_train: np.ndarray, how: str) -> list[Notice]:
+    """The ``high_leverage`` notice: query rows whose leverage (given as its square root)
+    exceeds the largest training leverage, the hidden extrapolation of Montgomery, Peck &
+    Vining (2012, section 3.8). ``how`` names the leverage in the message."""
+    h_max = float(np.max(h_train))
+    rows = np.flatnonzero(root_query > np.sqrt(h_max) * (1 + 1e-9))
+    if not rows.size:
+        return []
+    return [
+        Notice(
+            "high_leverage",
+            f"{rows.size} row(s) have leverage {how} above the largest among the training "
+            f"rows ({h_max:.3g}): the polynomial extrapolates there, even if each feature lies "
+            "inside its range.",
+            tuple(int(i) for i in rows),
+        )
+    ]
