@@ -37,7 +37,12 @@ def _parser() -> argparse.ArgumentParser:
     serve = sub.add_parser("serve", help="serve the API with gunicorn (gthread workers)")
     serve.add_argument("--bind", help="HOST:PORT (default: NEARWISE_BIND or 127.0.0.1:8080)")
     serve.add_argument("--workers", help="worker processes (default: NEARWISE_WORKERS or 2)")
-    serve.add_argument("--threads", help="threads per worker (default: NEARWISE_THREADS or 4)")
+    serve.add_argument("--threads", help="threads per worker (default: NEARWISE_THREADS or 6)")
+    serve.add_argument(
+        "--print-config",
+        action="store_true",
+        help="print the effective settings (API keys masked) and exit without serving",
+    )
     serve.set_defaults(run=serve_command)
     doc = sub.add_parser("openapi", help="write the OpenAPI document")
     doc.add_argument(
@@ -70,6 +75,10 @@ def serve_command(args: argparse.Namespace) -> int:
         os.environ[var] = "1"  # one BLAS thread per worker: fair sharing, identical sums
     given = {k: getattr(args, k) for k in SERVE_FLAGS if getattr(args, k) is not None}
     settings = Settings.from_env().with_overrides({k: f"--{k}" for k in SERVE_FLAGS}, given)
+    if args.print_config:
+        for name, value in settings.variables(masked=True).items():
+            print(f"{name}={value}")
+        return 0
     Server(settings).run()
     return 0
 
@@ -93,7 +102,7 @@ class Server(BaseApplication):
             "errorlog": "-",
             "proc_name": "nearwise",
             "timeout": 30,
-            "graceful_timeout": 10,
+            "graceful_timeout": s.graceful_timeout_s,
         }
         if "control_socket_disable" in self.cfg.settings:  # gunicorn >= 25.1: no shared socket
             options["control_socket_disable"] = True

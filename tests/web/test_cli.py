@@ -67,7 +67,7 @@ def test_serve_sets_one_blas_thread_and_gunicorn_defaults(monkeypatch) -> None:
         "MKL_NUM_THREADS": "1",
         "bind": ["127.0.0.1:8080"],
         "workers": 3,
-        "threads": 4,
+        "threads": 6,
         "worker_class": "gthread",
     }
 
@@ -101,3 +101,22 @@ def test_serve_answers_and_refuses_oversized_chunked_bodies(served: int) -> None
     ).encode()
     status, data = request(served, "POST", "/v1/predict", small, chunked=True)
     assert status == 200, data
+
+
+def test_print_config_shows_every_setting_with_keys_masked(monkeypatch, capsys) -> None:
+    monkeypatch.setenv("NEARWISE_API_KEYS", "s3cret-one,s3cret-two")
+    monkeypatch.setenv("NEARWISE_MAX_ROWS", "1234")
+    assert cli.main(["serve", "--print-config", "--workers", "5"]) == 0
+    out = capsys.readouterr().out
+    shown = dict(line.split("=", 1) for line in out.splitlines())
+    assert "s3cret" not in out
+    assert shown["NEARWISE_API_KEYS"] == "****,****"
+    assert shown["NEARWISE_MAX_ROWS"] == "1234"
+    assert shown["NEARWISE_WORKERS"] == "5"
+    assert set(shown) == {"NEARWISE_" + f.upper() for f in Settings.__dataclass_fields__}
+
+
+def test_fits_must_leave_a_thread_free(monkeypatch, capsys) -> None:
+    monkeypatch.setenv("NEARWISE_FITS_PER_WORKER", "6")
+    assert cli.main(["serve", "--print-config"]) == 2
+    assert "NEARWISE_FITS_PER_WORKER" in capsys.readouterr().err

@@ -79,3 +79,26 @@ def test_ipv6_bind_is_accepted() -> None:
 def test_overrides_name_their_source() -> None:
     with pytest.raises(SettingsError, match="--workers"):
         Settings().with_overrides({"workers": "--workers"}, {"workers": "x"})
+
+
+@pytest.mark.parametrize(
+    ("name", "value"),
+    [
+        ("NEARWISE_FITS_PER_WORKER", "0"),
+        ("NEARWISE_MAX_QUERY_ROWS", "-5"),
+        ("NEARWISE_MAX_GRID", "lots"),
+        ("NEARWISE_MAX_FOLD_FITS", "2.5"),
+        ("NEARWISE_MAX_METHODS", ""),
+        ("NEARWISE_MAX_COST_S", "-1"),
+        ("NEARWISE_GRACEFUL_TIMEOUT_S", "10.5"),
+        ("NEARWISE_OPEN_ENDPOINTS", "/v1/predict"),
+        ("NEARWISE_METRICS_DIR", "relative/dir"),
+    ],
+)
+def test_bad_limits_name_the_variable(name: str, value: str) -> None:
+    with pytest.raises(SettingsError, match=name):
+        Settings.from_env({name: value})
+
+
+def test_open_endpoints_may_be_emptied() -> None:
+    assert Settings.from_env({"NEARWISE_OPEN_ENDPOINTS": ""}).open_endpoints == ()

@@ -14,6 +14,9 @@ from typing import Any
 
 PREFIX = "NEARWISE_"
 LOG_LEVELS = ("DEBUG", "INFO", "WARNING", "ERROR", "CRITICAL")
+OPEN_ENDPOINT_CHOICES = ("/healthz", "/readyz", "/metrics")
+#: Settings whose values are secrets: shown masked by ``nearwise serve --print-config``.
+SECRETS = ("api_keys",)
 
 
 class SettingsError(ValueError):
@@ -26,15 +29,33 @@ class Settings:
 
     bind: str = "127.0.0.1:8080"
     workers: int = 2
-    threads: int = 4
+    #: Threads per worker. ``fits_per_worker`` of them may fit at once; the others stay free for
+    #: health checks and fast 503 answers, so nothing queues behind a long fit.
+    threads: int = 6
+    fits_per_worker: int = 4
     max_body_bytes: int = 32 * 1024 * 1024
     max_rows: int = 250_000
     max_columns: int = 50
     max_cells: int = 2_000_000
-    time_budget_s: float = 60.0
+    max_query_rows: int = 100_000
+    #: Candidates in one method's grid.
+    max_grid: int = 200
+    #: Folds x repeats of k-fold tuning.
+    max_fold_fits: int = 100
+    #: Methods in one compare (or ``auto``).
+    max_methods: int = 4
+    #: The largest estimated fitting time accepted before any fitting starts (seconds on one core).
+    max_cost_s: float = 20.0
+    time_budget_s: float = 30.0
+    #: Seconds gunicorn lets in-flight requests finish after SIGTERM.
+    graceful_timeout_s: int = 35
     api_keys: tuple[str, ...] = ()
+    #: Service endpoints answered without an API key when keys are set (/v1/* always needs one).
+    open_endpoints: tuple[str, ...] = ("/healthz", "/readyz", "/metrics")
     cors_origins: tuple[str, ...] = ()
     log_level: str = "INFO"
+    #: Directory for the metrics of all workers; empty: a fresh one under the temp directory.
+    metrics_dir: str = ""
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None) -> Settings:
@@ -46,13 +67,37 @@ class Settings:
             raw = env.get(name)
             if raw is not None:
                 values[f.name] = _READERS[f.name](name, raw)
-        return cls(**values)
+        settings = cls(**values)
+        settings.check()
+        return settings
+
+    def check(self) -> None:
+        """Settings that only make sense together; an error names both variables."""
+        if self.fits_per_worker >= self.threads:
+            raise SettingsError(
+                f"{PREFIX}FITS_PER_WORKER ({self.fits_per_worker}) must be below "
+                f"{PREFIX}THREADS ({self.threads}): a thread must stay free for health checks."
+            )
+
+    def variables(self, masked: bool = True) -> dict[str, str]:
+        """Every setting as its variable name and the text that would set it; secrets masked."""
+        out: dict[str, str] = {}
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if isinstance(value, tuple):
+                shown = ",".join("****" if masked and f.name in SECRETS else v for v in value)
+            else:
+                shown = f"{value:g}" if isinstance(value, float) else str(value)
+            out[PREFIX + f.name.upper()] = shown
+        return out
 
     def with_overrides(self, names: Mapping[str, str], values: Mapping[str, str]) -> Settings:
         """A copy with some fields replaced by text values, each checked as if read from the
         environment; an error names the value's source from ``names`` (e.g. ``--bind``)."""
         checked = {k: read_value(k, names[k], raw) for k, raw in values.items()}
-        return replace(self, **checked)
+        settings = replace(self, **checked)
+        settings.check()
+        return settings
 
 
 def read_value(field: str, name: str, raw: str) -> Any:
@@ -100,6 +145,23 @@ def _list(name: str, raw: str) -> tuple[str, ...]:
     return items
 
 
+def _open_endpoints(name: str, raw: str) -> tuple[str, ...]:
+    items = _list(name, raw)
+    unknown = [item for item in items if item not in OPEN_ENDPOINT_CHOICES]
+    if unknown:
+        raise SettingsError(
+            f"{name} may list only {', '.join(OPEN_ENDPOINT_CHOICES)}; got {', '.join(unknown)}."
+        )
+    return items
+
+
+def _directory(name: str, raw: str) -> str:
+    text = raw.strip()
+    if text and not os.path.isabs(text):
+        raise SettingsError(f"{name} must be an absolute path or empty; got {raw!r}.")
+    return text
+
+
 def _log_level(name: str, raw: str) -> str:
     level = raw.strip().upper()
     if level not in LOG_LEVELS:
@@ -111,14 +173,23 @@ _READERS: dict[str, Callable[[str, str], Any]] = {
     "bind": _bind,
     "workers": _positive_int,
     "threads": _positive_int,
+    "fits_per_worker": _positive_int,
     "max_body_bytes": _positive_int,
     "max_rows": _positive_int,
     "max_columns": _positive_int,
     "max_cells": _positive_int,
+    "max_query_rows": _positive_int,
+    "max_grid": _positive_int,
+    "max_fold_fits": _positive_int,
+    "max_methods": _positive_int,
+    "max_cost_s": _positive_float,
     "time_budget_s": _positive_float,
+    "graceful_timeout_s": _positive_int,
     "api_keys": _list,
+    "open_endpoints": _open_endpoints,
     "cors_origins": _list,
     "log_level": _log_level,
+    "metrics_dir": _directory,
 }
 
 
