@@ -117,6 +117,6 @@ def test_print_config_shows_every_setting_with_keys_masked(monkeypatch, capsys) 
 
 
 def test_fits_must_leave_a_thread_free(monkeypatch, capsys) -> None:
-    monkeypatch.setenv("NEARWISE_FITS_PER_WORKER", "6")
+    monkeypatch.setenv("NEARWISE_FITS_PER_WORKER", "6")  # not below the 6 threads
     assert cli.main(["serve", "--print-config"]) == 2
     assert "NEARWISE_FITS_PER_WORKER" in capsys.readouterr().err

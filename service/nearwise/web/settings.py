@@ -29,10 +29,11 @@ class Settings:
 
     bind: str = "127.0.0.1:8080"
     workers: int = 2
-    #: Threads per worker. ``fits_per_worker`` of them may fit at once; the others stay free for
+    #: Threads per worker. ``fit_slots`` of them may fit at once; the others stay free for
     #: health checks and fast 503 answers, so nothing queues behind a long fit.
     threads: int = 6
-    fits_per_worker: int = 4
+    #: Fits one worker runs at once; None: two threads fewer than ``threads``, at least one.
+    fits_per_worker: int | None = None
     max_body_bytes: int = 32 * 1024 * 1024
     max_rows: int = 250_000
     max_columns: int = 50
@@ -71,9 +72,20 @@ class Settings:
         settings.check()
         return settings
 
+    @property
+    def fit_slots(self) -> int:
+        """Fits one worker runs at once."""
+        if self.fits_per_worker is not None:
+            return self.fits_per_worker
+        return max(1, self.threads - 2)
+
     def check(self) -> None:
         """Settings that only make sense together; an error names both variables."""
-        if self.fits_per_worker >= self.threads:
+        if self.threads == 1:
+            raise SettingsError(
+                f"{PREFIX}THREADS must be at least 2: one thread stays free for health checks."
+            )
+        if self.fits_per_worker is not None and self.fits_per_worker >= self.threads:
             raise SettingsError(
                 f"{PREFIX}FITS_PER_WORKER ({self.fits_per_worker}) must be below "
                 f"{PREFIX}THREADS ({self.threads}): a thread must stay free for health checks."
@@ -84,7 +96,9 @@ class Settings:
         out: dict[str, str] = {}
         for f in fields(self):
             value = getattr(self, f.name)
-            if isinstance(value, tuple):
+            if value is None:
+                shown = f"auto ({self.fit_slots})"
+            elif isinstance(value, tuple):
                 shown = ",".join("****" if masked and f.name in SECRETS else v for v in value)
             else:
                 shown = f"{value:g}" if isinstance(value, float) else str(value)
