@@ -7,7 +7,7 @@ from collections.abc import Callable
 
 from flask import Flask, Response
 
-from nearwise.web import guards, openapi, problems
+from nearwise.web import guards, openapi, problems, slots
 from nearwise.web.settings import Settings, log_level_number
 
 
@@ -20,6 +20,7 @@ def create_app(settings: Settings | None = None) -> Flask:
     logging.getLogger("nearwise").setLevel(log_level_number(settings))
     problems.install(app)
     guards.install(app, settings)
+    slots.install(app, settings.fit_slots)
 
     from nearwise.web.routes import catalogue, cell, compare, health, locality, predict
 

@@ -26,6 +26,7 @@ from nearwise.web.openapi_parts import problems
 from nearwise.web.problems import RETRY_AFTER_S, Problem
 from nearwise.web.routes import operation
 from nearwise.web.serialize import prediction_rows
+from nearwise.web.slots import fitting
 
 bp = Blueprint("cell", __name__, url_prefix="/v1")
 
@@ -131,6 +132,7 @@ _PARAMETERS = [
         **problems(400, 401, 406, 413, 422, 503),
     },
 )
+@fitting
 def cell() -> Response:
     """Predict from lists in the query string; answer plain text (for spreadsheet formulas).
 

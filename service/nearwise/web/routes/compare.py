@@ -16,6 +16,7 @@ from nearwise.web.responses import CompareResponse
 from nearwise.web.routes import json_response, operation
 from nearwise.web.routes.predict import CSV_ANSWER, PICTURE_ANSWERS, build_job
 from nearwise.web.schemas import CompareFields, CompareRequest
+from nearwise.web.slots import fitting
 
 bp = Blueprint("compare", __name__, url_prefix="/v1")
 
@@ -66,6 +67,7 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
         **problems(400, 401, 406, 413, 415, 422, 503),
     },
 )
+@fitting
 def compare() -> Response:
     """Tune every method on the same folds, rank them and recommend the simplest adequate one."""
     answer = negotiate(PICTURE_ANSWERS)

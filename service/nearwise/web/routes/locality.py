@@ -21,6 +21,7 @@ from nearwise.web.locality_doc import (
 from nearwise.web.openapi_parts import problems
 from nearwise.web.routes import json_response, operation
 from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER
+from nearwise.web.slots import fitting
 
 bp = Blueprint("locality", __name__, url_prefix="/v1")
 
@@ -30,8 +31,9 @@ bp = Blueprint("locality", __name__, url_prefix="/v1")
     tags=["locality"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422, 503)},
 )
+@fitting
 def locality() -> Response:
     """Measure how well the training rows cover their space and where query rows fall."""
     answer = negotiate(ANSWERS)

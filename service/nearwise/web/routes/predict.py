@@ -13,6 +13,7 @@ from nearwise.web.openapi_parts import problems
 from nearwise.web.predict_doc import REQUEST_BODY, RESPONSE_200, query_parameters
 from nearwise.web.routes import json_response, operation
 from nearwise.web.schemas import PredictFields, PredictRequest
+from nearwise.web.slots import fitting
 
 bp = Blueprint("predict", __name__, url_prefix="/v1")
 ANSWERS = ("application/json", "text/csv")
@@ -27,6 +28,7 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
     requestBody=REQUEST_BODY,
     responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422, 503)},
 )
+@fitting
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
     answer = negotiate(PICTURE_ANSWERS)
