@@ -140,4 +140,4 @@ def test_table_over_the_row_limit_is_413(client, app) -> None:
         {"max_rows": "NEARWISE_MAX_ROWS"}, {"max_rows": "10"}
     )
     doc = problem(client.post("/v1/predict", json=body()), 413)
-    assert pointers(doc) == ["/train"]
+    assert pointers(doc) == ["/train/rows"]

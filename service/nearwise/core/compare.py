@@ -20,8 +20,8 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import pipeline
-from nearwise.core.errors import InvalidValue, NearwiseError, UnknownName, Where
+from nearwise.core import cost, pipeline
+from nearwise.core.errors import InvalidValue, NearwiseError, OverLimit, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
 from nearwise.core.results import Notice, PredictResult, TuningReport
 from nearwise.core.spec import Job
@@ -62,10 +62,24 @@ def _methods(job: Job, p: int) -> tuple[list[Method], bool]:
             for m in METHODS.values()
             if m.min_features <= p and (m.max_features is None or p <= m.max_features)
         ]
+        cap = job.caps.methods
+        if cap is not None and len(chosen) > cap:
+            raise OverLimit(
+                f"{len(chosen)} methods apply to these data but the service compares at most "
+                f"{job.caps.label('methods')} at once; name at most {cap} in `methods`.",
+                [Where(("methods",), "needed: at most " + str(cap) + " methods")],
+            )
         return chosen, False
     if not job.methods:
         raise InvalidValue(
             "`methods` must name at least one method.", [Where(("methods",), "empty list")]
+        )
+    cap = job.caps.methods
+    if cap is not None and len(job.methods) > cap:
+        raise OverLimit(
+            f"`methods` names {len(job.methods)} methods; the service's limit is "
+            f"{job.caps.label('methods')}. Compare fewer at once.",
+            [Where(("methods",), f"{len(job.methods)} methods")],
         )
     out = []
     for i, name in enumerate(job.methods):
@@ -101,6 +115,31 @@ def _with_method(err: NearwiseError, name: str) -> NearwiseError:
     return err
 
 
+def _within_cost(ctx: pipeline.Context, checked: list, named: bool, skipped: list[Notice]) -> list:
+    """The checked methods whose estimated cost together fits the service's limit.
+
+    Methods the caller named are all kept or the request is refused; from the default set the
+    costliest are left out (with a ``method_skipped`` notice) until the rest fits.
+    """
+    s, cap = pipeline.shape(ctx), ctx.job.caps.cost_s
+    items = [cost.Item(m.name, settings, grid) for m, settings, grid in checked]
+    if not named and cap is not None:
+        while len(items) > 1 and cost.total(items, s) > cap:
+            worst = max(items, key=lambda item: item.seconds(s))
+            skipped.append(
+                Notice(
+                    "method_skipped",
+                    f"{worst.name} was left out: it is estimated at {worst.seconds(s):.3g} s of "
+                    f"fitting, which with the other methods is over the service's limit "
+                    f"{ctx.job.caps.label('cost_s')} s.",
+                )
+            )
+            items.remove(worst)
+    cost.check(items, s, ctx.job.caps)
+    kept = {item.name for item in items}
+    return [c for c in checked if c[0].name in kept]
+
+
 def tune_all(job: Job) -> tuple[pipeline.Context, dict[str, pipeline.Tuned], list[Notice]]:
     """Tune every compared method on one set of folds."""
     ctx = pipeline.setup(job)
@@ -109,9 +148,18 @@ def tune_all(job: Job) -> tuple[pipeline.Context, dict[str, pipeline.Tuned], lis
     grids = _route(dict(job.grid), methods, "grid")
     tuned: dict[str, pipeline.Tuned] = {}
     skipped: list[Notice] = []
+    checked: list[tuple[Method, dict[str, Any], Any]] = []
     for method, prm, grd in zip(methods, params, grids, strict=True):
         try:
             settings, grid = pipeline.check_method(method, job, prm, grd, intervals=False)
+            checked.append((method, settings, grid))
+        except NearwiseError as err:
+            if named or err.code == "over_limit":
+                raise _with_method(err, method.name) from None
+            skipped.append(Notice("method_skipped", f"{method.name} was left out: {err.detail}"))
+    checked = _within_cost(ctx, checked, named, skipped)
+    for method, settings, grid in checked:
+        try:
             tuned[method.name] = pipeline.tune(ctx, method, settings, grid)
         except NearwiseError as err:
             if named or err.code == "time_budget_exceeded":

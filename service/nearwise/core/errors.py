@@ -86,6 +86,14 @@ class NotApplicable(NearwiseError):
     title = "Option does not apply"
 
 
+class OverLimit(NearwiseError):
+    """The request asks for more work than the service's limits allow (grid, folds, methods,
+    or the cost estimated before fitting)."""
+
+    code = "over_limit"
+    title = "Over a service limit"
+
+
 class OverBudget(NearwiseError):
     """The fit ran past the time budget it was given."""
 

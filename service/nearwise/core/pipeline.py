@@ -7,10 +7,10 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import locality, tuning, uncertainty
+from nearwise.core import cost, locality, tuning, uncertainty
 from nearwise.core.budget import Deadline
 from nearwise.core.data import Prepared, prepare
-from nearwise.core.errors import BadCell, NotApplicable, UnknownName, Where
+from nearwise.core.errors import BadCell, NotApplicable, OverLimit, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
 from nearwise.core.results import (
     FitReport,
@@ -75,6 +75,7 @@ def setup(job: Job) -> Context:
     """Check the request's shared options and data, sort rows by content, assign folds."""
     deadline = Deadline(job.time_budget_s)
     tuning.check_spec(job.tuning)
+    check_fold_fits(job)
     data = prepare(job.train, job.target, job.features, job.query, job.tuning.group_by)
     # Work on the rows sorted by content, so that no answer depends on the order they came in.
     canon = np.lexsort((data.y, *data.X.T[::-1]))
@@ -84,10 +85,43 @@ def setup(job: Job) -> Context:
     return Context(job, data, canon, X, y, folds, deadline)
 
 
+def check_fold_fits(job: Job) -> None:
+    """Refuse more folds x repeats than the service allows."""
+    spec, cap = job.tuning, job.caps.fold_fits
+    if cap is None or spec.scheme != "kfold" or spec.folds * spec.repeats <= cap:
+        return
+    at = "repeats" if spec.repeats > 1 else "folds"
+    most = max(1, cap // spec.folds) if at == "repeats" else cap
+    raise OverLimit(
+        f"{spec.folds} folds x {spec.repeats} repeats make {spec.folds * spec.repeats} fits; the "
+        f"service's limit is {job.caps.label('fold_fits')}. Use fewer {at} (at most {most}).",
+        [Where(("tuning", at), "over the limit on folds x repeats")],
+    )
+
+
+def check_grid_size(job: Job, grid) -> None:
+    """Refuse a grid list longer than the service allows."""
+    cap = job.caps.grid
+    for key, values in (grid or {}).items():
+        if cap is not None and isinstance(values, (list, tuple)) and len(values) > cap:
+            raise OverLimit(
+                f"`grid.{key}` lists {len(values)} candidates; the service's limit is "
+                f"{job.caps.label('grid')}. Send a coarser grid.",
+                [Where(("grid", key), f"{len(values)} candidates")],
+            )
+
+
+def shape(ctx: Context) -> cost.Shape:
+    """The size of the request's work, for the cost estimate."""
+    q = 0 if ctx.data.X_query is None else int(ctx.data.X_query.shape[0])
+    return cost.Shape.of(ctx.X.shape[0], ctx.X.shape[1], q, ctx.job.tuning)
+
+
 def check_method(
     method: Method, job: Job, params, grid, intervals: bool = True
 ) -> tuple[dict[str, Any], Any]:
     """The method's settings and grid from the caller's values, and the options it supports."""
+    check_grid_size(job, grid)
     settings = method.settings(params)
     if intervals:
         uncertainty.check(job.interval, method, method.interval_kinds_for(settings))
@@ -128,6 +162,7 @@ def run(job: Job) -> PredictResult:
     method = get_method(job.method)
     settings, grid = check_method(method, job, job.params, job.grid)
     ctx = setup(job)
+    cost.check([cost.Item(method.name, settings, grid)], shape(ctx), job.caps)
     return answer(ctx, tune(ctx, method, settings, grid))
 
 

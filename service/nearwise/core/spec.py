@@ -38,6 +38,27 @@ class IntervalSpec:
 
 
 @dataclass(frozen=True)
+class Caps:
+    """Limits on the work one request may ask for, checked before any fitting (None: none).
+
+    ``names`` maps each limit to how the caller should refer to it in messages (the web layer
+    passes the names of its settings).
+    """
+
+    grid: int | None = None  # candidates in one grid list
+    fold_fits: int | None = None  # folds x repeats of kfold tuning
+    methods: int | None = None  # methods in one compare (or auto)
+    cost_s: float | None = None  # estimated seconds of fitting on one core
+    names: Mapping[str, str] = field(default_factory=dict)
+
+    def label(self, limit: str) -> str:
+        """How a message names ``limit``: ``max_grid = 200`` or the name passed in ``names``."""
+        value = getattr(self, limit)
+        shown = f"{value:g}" if isinstance(value, float) else str(value)
+        return f"{self.names.get(limit, 'max_' + limit)} = {shown}"
+
+
+@dataclass(frozen=True)
 class Job:
     """One predict request, after the envelope was checked and the tables parsed.
 
@@ -57,3 +78,4 @@ class Job:
     time_budget_s: float | None = None
     methods: Sequence[str] | None = None  # for compare: the methods to rank (None: all that apply)
     curve_points: int = 0  # one feature: also evaluate the fit on this many points (pictures)
+    caps: Caps = field(default_factory=Caps)

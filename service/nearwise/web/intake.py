@@ -57,7 +57,9 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
     if charset not in ("utf-8", "us-ascii"):
         raise Problem(415, f"Bodies are read as UTF-8; got charset={charset}.")
     body = read_body(settings.max_body_bytes)
-    limits = Limits(settings.max_rows, settings.max_columns, settings.max_cells)
+    limits = Limits(
+        settings.max_rows, settings.max_columns, settings.max_cells, settings.max_query_rows
+    )
     if mimetype == TEXT:
         mimetype = JSON if body.removeprefix(b"\xef\xbb\xbf").lstrip()[:1] == b"{" else CSV
         body = body.removeprefix(b"\xef\xbb\xbf") if mimetype == JSON else body

@@ -36,6 +36,7 @@ class Limits:
     max_rows: int
     max_columns: int
     max_cells: int
+    max_query_rows: int | None = None
 
 
 @dataclass(frozen=True)
@@ -49,12 +50,17 @@ class Parsed:
 def check_shape(name: str, columns: list[str], n_rows: int, limits: Limits) -> None:
     """Refuse tables over the limits (413) and duplicate column names (422)."""
     p = len(columns)
-    if n_rows > limits.max_rows or p > limits.max_columns or n_rows * p > limits.max_cells:
+    most = limits.max_rows
+    if name == "query" and limits.max_query_rows is not None:
+        most = min(most, limits.max_query_rows)
+    if n_rows > most or p > limits.max_columns or n_rows * p > limits.max_cells:
         raise Problem(
             413,
             f"The {name} table has {n_rows} rows x {p} columns; the limits are "
-            f"{limits.max_rows} rows, {limits.max_columns} columns and {limits.max_cells} cells.",
-            [Where((name,), "table over the size limits")],
+            f"{most} rows, {limits.max_columns} columns and {limits.max_cells} cells "
+            f"(NEARWISE_MAX_{'QUERY_' if most != limits.max_rows else ''}ROWS, "
+            "NEARWISE_MAX_COLUMNS, NEARWISE_MAX_CELLS).",
+            [Where((name, "rows") if n_rows > most else (name,), "table over the size limits")],
             code="table_too_large",
         )
     seen: dict[str, int] = {}

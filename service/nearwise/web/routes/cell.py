@@ -25,6 +25,7 @@ from nearwise.web.csvio import DECIMALS
 from nearwise.web.openapi_parts import problems
 from nearwise.web.problems import RETRY_AFTER_S, Problem
 from nearwise.web.routes import operation
+from nearwise.web.routes.predict import caps
 from nearwise.web.serialize import prediction_rows
 from nearwise.web.slots import fitting
 
@@ -154,13 +155,17 @@ def cell() -> Response:
             "y",
             f"{len(y)} values for {len(x)} x values",
         )
-    if len(x) > settings.max_rows or len(at) > settings.max_rows:
-        raise Problem(
-            413,
-            f"At most {settings.max_rows} values per list (NEARWISE_MAX_ROWS).",
-            [{"parameter": "x" if len(x) > settings.max_rows else "at", "message": "too long"}],
-            code="table_too_large",
-        )
+    for name, values, most, var in (
+        ("x", x, settings.max_rows, "NEARWISE_MAX_ROWS"),
+        ("at", at, settings.max_query_rows, "NEARWISE_MAX_QUERY_ROWS"),
+    ):
+        if len(values) > most:
+            raise Problem(
+                413,
+                f"`{name}` has {len(values)} values; at most {most} are allowed ({var}).",
+                [{"parameter": name, "message": "too long"}],
+                code="table_too_large",
+            )
     part = args.get("part", "value")
     if part not in PARTS:
         raise _bad(f"`part` is one of {', '.join(PARTS)}; got {part!r}.", "part", "unknown part")
@@ -177,6 +182,7 @@ def cell() -> Response:
         tuning=TuningSpec(**_tuning(args)),
         interval=IntervalSpec(**_interval(args)),
         time_budget_s=settings.time_budget_s,
+        caps=caps(settings),
     )
     try:
         result = pipeline.run(job)

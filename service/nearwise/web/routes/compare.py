@@ -73,7 +73,7 @@ def compare() -> Response:
     answer = negotiate(PICTURE_ANSWERS)
     settings = current_app.extensions["nearwise"]
     intake = read_request(settings, CompareRequest(), CompareFields())
-    job = build_job(intake, settings.time_budget_s, method="compare")
+    job = build_job(intake, settings, method="compare")
     if answer == figures.SVG:
         resp = figures.compare_answer(core_compare.compare(figures.with_curve(job)), intake)
         resp.vary.add("Accept")

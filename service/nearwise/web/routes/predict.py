@@ -5,7 +5,7 @@ from __future__ import annotations
 from flask import Blueprint, Response, current_app
 
 from nearwise.core import pipeline
-from nearwise.core.spec import IntervalSpec, Job, TuningSpec
+from nearwise.core.spec import Caps, IntervalSpec, Job, TuningSpec
 from nearwise.web import figures, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import Intake, read_request
@@ -13,6 +13,7 @@ from nearwise.web.openapi_parts import problems
 from nearwise.web.predict_doc import REQUEST_BODY, RESPONSE_200, query_parameters
 from nearwise.web.routes import json_response, operation
 from nearwise.web.schemas import PredictFields, PredictRequest
+from nearwise.web.settings import Settings
 from nearwise.web.slots import fitting
 
 bp = Blueprint("predict", __name__, url_prefix="/v1")
@@ -33,8 +34,7 @@ def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
     answer = negotiate(PICTURE_ANSWERS)
     intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
-    budget = current_app.extensions["nearwise"].time_budget_s
-    job = build_job(intake, budget)
+    job = build_job(intake, current_app.extensions["nearwise"])
     if answer == figures.SVG:
         resp = figures.predict_answer(pipeline.run(figures.with_curve(job)), intake)
         resp.vary.add("Accept")
@@ -53,8 +53,24 @@ def predict() -> Response:
     return resp
 
 
-def build_job(intake: Intake, time_budget_s: float | None = None, method: str | None = None) -> Job:
-    """The core's job from the checked fields and parsed tables."""
+def caps(settings: Settings) -> Caps:
+    """The work limits the core checks before fitting, named by their variables."""
+    return Caps(
+        grid=settings.max_grid,
+        fold_fits=settings.max_fold_fits,
+        methods=settings.max_methods,
+        cost_s=settings.max_cost_s,
+        names={
+            "grid": "NEARWISE_MAX_GRID",
+            "fold_fits": "NEARWISE_MAX_FOLD_FITS",
+            "methods": "NEARWISE_MAX_METHODS",
+            "cost_s": "NEARWISE_MAX_COST_S",
+        },
+    )
+
+
+def build_job(intake: Intake, settings: Settings | None = None, method: str | None = None) -> Job:
+    """The core's job from the checked fields and parsed tables, within ``settings``' limits."""
     f = intake.fields
     query = intake.tables.get("query")
     return Job(
@@ -68,5 +84,6 @@ def build_job(intake: Intake, time_budget_s: float | None = None, method: str | 
         grid=f.get("grid", {}),
         tuning=TuningSpec(**f.get("tuning", {})),
         interval=IntervalSpec(**f.get("interval", {})),
-        time_budget_s=time_budget_s,
+        time_budget_s=settings.time_budget_s if settings else None,
+        caps=caps(settings) if settings else Caps(),
     )

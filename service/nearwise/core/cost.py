@@ -1,0 +1,246 @@
+"""Cost estimates made before any fitting, so that a request that cannot finish is refused
+at once and told what would fit.
+
+Each method's estimate counts its dominant operations (neighbor searches, least-squares
+factorizations, smoothing solves) for the rows, features, query rows, folds and candidates of
+the request, times seconds per operation measured on the reference machine (one core, one BLAS
+thread). ``tests/benchmarks/calibrate_cost.py`` measures requests of many shapes again and prints
+the ratio of estimate to measured time; the estimates aim at a factor of 2 either way, which is
+enough to tell a 2 s request from a 200 s one. What the estimate lets through and then overruns
+is stopped by the time budget between folds.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, replace
+from itertools import pairwise
+from math import comb, log2
+from typing import Any
+
+from nearwise.core.errors import OverLimit, Where
+from nearwise.core.spec import Caps, TuningSpec
+
+#: Per-row work every method shares: parsing into arrays, sorting by content, locality flags.
+ROW_S = 2.0e-6
+
+
+@dataclass(frozen=True)
+class Shape:
+    """The size of one request's work.
+
+    ``fits`` counts the training fits of tuning (folds x repeats for kfold; 1 for loo and gcv,
+    whose closed forms cost about one fit on all rows); ``models`` counts the fitted models a
+    query row is predicted by (the final one, plus one per fold for CV+ intervals).
+    """
+
+    n: int
+    p: int
+    q: int
+    fits: int
+    train_share: float
+    models: int
+
+    @classmethod
+    def of(cls, n: int, p: int, q: int, spec: TuningSpec) -> Shape:
+        if spec.scheme == "kfold":
+            fits = spec.folds * spec.repeats
+            return cls(n, p, q, fits, 1 - 1 / spec.folds, 1 + fits)
+        return cls(n, p, q, 1, 1.0, 2)
+
+    def rows(self, n: int) -> Shape:
+        return replace(self, n=n)
+
+
+def _count(grid: Sequence[Any] | None, settings: Mapping[str, Any], name: str, default: int):
+    if settings.get(name) is not None:
+        return 1
+    return len(grid) if grid is not None else default
+
+
+# ---------------------------------------------------------------------------------------------
+# kNN: one neighbor search per fold for every candidate k at once.
+
+#: Seconds per neighbor found, for the window of all candidate k (sorting, running sums).
+KNN_NEIGHBOR_S = 0.12e-6
+#: Seconds of tree search per query point against 100,000 indexed points, by feature count, and
+#: how that grows with the indexed points (exponent); measured with k = 50 on uniform data.
+KNN_TREE_S = {1: 7e-6, 2: 12e-6, 3: 21e-6, 4: 40e-6, 6: 170e-6, 10: 970e-6, 15: 8000e-6}
+KNN_TREE_GROWTH = {1: 0.30, 3: 0.25, 6: 0.38, 10: 0.50, 15: 0.60}
+#: Above this many features the search compares with every indexed point.
+KNN_BRUTE_P = 15
+KNN_BRUTE_S = 0.7e-9  # seconds per indexed point and feature, per query point
+
+
+def _interp(table: Mapping[int, float], p: int) -> float:
+    keys = sorted(table)
+    if p <= keys[0]:
+        return table[keys[0]]
+    for lo, hi in pairwise(keys):
+        if p <= hi:
+            w = (p - lo) / (hi - lo)
+            return table[lo] ** (1 - w) * table[hi] ** w  # geometric: costs grow exponentially
+    lo, hi = keys[-2], keys[-1]
+    return table[hi] * (table[hi] / table[lo]) ** ((p - hi) / (hi - lo))
+
+
+def _knn_point(index_rows: float, p: int, kmax: int) -> float:
+    """Seconds to find the kmax nearest of index_rows points for one query point."""
+    index_rows = max(index_rows, 2.0)
+    if p > KNN_BRUTE_P:
+        search = KNN_BRUTE_S * index_rows * p
+    else:
+        growth = (index_rows / 1e5) ** _interp(KNN_TREE_GROWTH, p)
+        search = _interp(KNN_TREE_S, p) * growth * (kmax + 20) / 70
+    return search + KNN_NEIGHBOR_S * kmax * 2
+
+
+def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
+    if settings.get("k") is not None:
+        kmax = int(settings["k"])
+    elif grid is not None:
+        kmax = int(max(grid))
+    else:
+        kmax = min(50, max(1, int(s.n * s.train_share) - 1))
+    index = s.n * s.train_share
+    per_point = _knn_point(index, s.p, kmax + 1)
+    tuning = s.n * (s.fits * (1 - s.train_share) if s.train_share < 1 else 1) * per_point
+    queries = s.q * s.models * _knn_point(s.n, s.p, kmax)
+    build = s.fits * index * log2(index + 2) * s.p * 5e-8
+    return tuning + queries + build
+
+
+# ---------------------------------------------------------------------------------------------
+# Least squares: one QR (or SVD) of the design per fold; lasso: coordinate descent per alpha.
+
+LSQ_TERM_S = 1.1e-7  # per row, term and fit: building the design, residuals, deletion formulas
+RIDGE_TERM_S = 3.0e-7  # the same with a penalty (standardizing, the path over alpha)
+LSQ_FACTOR_S = 1.6e-9  # per row, squared term count and fit: the QR or SVD itself
+LASSO_S = 4.0e-9  # per row, term, alpha and fit: coordinate-descent passes
+
+
+def _terms(p: int, degree: int, interactions: bool) -> int:
+    return comb(p + degree, degree) if interactions else p * degree + 1
+
+
+def linear(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
+    penalty = settings.get("penalty") or "none"
+    if penalty == "none":
+        degree = settings.get("degree") or (max(grid) if grid is not None else 3)
+        interactions = settings.get("interactions")
+        t = _terms(s.p, int(degree), True if interactions is None else bool(interactions))
+    else:
+        degree = settings.get("degree") or 1
+        interactions = settings.get("interactions")
+        inter = int(degree) > 1 if interactions is None else bool(interactions)
+        t = _terms(s.p, int(degree), inter)
+    rows = s.n * s.train_share
+    fits = s.fits + 1
+    per_term = LSQ_TERM_S if penalty == "none" else RIDGE_TERM_S
+    cost = fits * rows * (per_term * t + LSQ_FACTOR_S * t * t) + s.q * s.models * t * 1e-8
+    if penalty == "lasso":
+        cost += fits * rows * t * _count(grid, settings, "alpha", 30) * LASSO_S * 10
+    return cost
+
+
+# ---------------------------------------------------------------------------------------------
+# Splines: 1-D smoothing spline on at most MAX_KNOTS knots (banded solves per candidate);
+# thin-plate: an eigendecomposition per fold, cubic in the rows.
+
+SPLINE_ROW_S = 1.0e-6  # per row and fit: binning onto the knots, residuals
+SPLINE_SOLVE_S = 2.0e-6  # per knot, candidate and fit: the banded solves
+THIN_PLATE_S = 2.0e-10  # per cubed row and fit: eigendecomposition, posterior factor
+THIN_PLATE_KERNEL_S = 2.0e-9  # per squared row, feature and fit: the kernel matrix
+
+
+def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
+    m = _count(grid, settings, "smoothing", 20)
+    fits = s.fits + 1
+    if s.p == 1:
+        knots = min(s.n, 1000)
+        return fits * (s.n * SPLINE_ROW_S + knots * m * SPLINE_SOLVE_S) + s.q * s.models * 1e-6
+    rows = s.n * s.train_share
+    kernel = fits * rows * rows * s.p * THIN_PLATE_KERNEL_S
+    return (
+        fits * rows**3 * THIN_PLATE_S + s.n**3 * THIN_PLATE_S + kernel + s.q * s.n * s.models * 2e-8
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# Additive: per fold, a penalized least-squares basis of B columns and REML steps (B^3).
+
+ADDITIVE_COLUMN_S = 8.0e-8  # per row, basis column and fit: the basis, projections, residuals
+ADDITIVE_ROW_S = 1.0e-10  # per row, squared basis column and fit: the factorization
+ADDITIVE_REML_S = 1.0e-8  # per cubed basis column and fit: the smoothing steps
+
+
+def additive(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
+    from nearwise.core.methods.additive_basis import default_knots
+
+    knots = settings.get("knots") or default_knots(s.p)
+    b = s.p * (int(knots) - 2) + s.p + 1
+    fits = s.fits + 1
+    rows = s.n * s.train_share
+    queries = s.q * s.models * b * 1e-8
+    per_fit = rows * b * (ADDITIVE_COLUMN_S + b * ADDITIVE_ROW_S) + b**3 * ADDITIVE_REML_S
+    return fits * per_fit + queries
+
+
+ESTIMATES: dict[str, Callable[[Mapping[str, Any], Sequence[Any] | None, Shape], float]] = {
+    "knn": knn,
+    "linear": linear,
+    "spline": spline,
+    "additive": additive,
+}
+
+
+@dataclass(frozen=True)
+class Item:
+    """One method's share of a request: its settings and grid as checked."""
+
+    name: str
+    settings: Mapping[str, Any]
+    grid: Sequence[Any] | None
+
+    def seconds(self, s: Shape) -> float:
+        return ESTIMATES[self.name](self.settings, self.grid, s) + s.n * ROW_S
+
+
+def total(items: Sequence[Item], s: Shape) -> float:
+    return sum(item.seconds(s) for item in items)
+
+
+def rows_under(items: Sequence[Item], s: Shape, limit: float) -> int:
+    """The most training rows whose estimate stays within ``limit`` (0 when none does)."""
+    lo, hi = 0, s.n
+    while lo < hi:
+        mid = (lo + hi + 1) // 2
+        if total(items, s.rows(mid)) <= limit:
+            lo = mid
+        else:
+            hi = mid - 1
+    return lo
+
+
+def check(items: Sequence[Item], s: Shape, caps: Caps) -> float:
+    """Refuse the request when its estimate exceeds ``caps.cost_s``; returns the estimate."""
+    estimate = total(items, s)
+    if caps.cost_s is None or estimate <= caps.cost_s:
+        return estimate
+    parts = ", ".join(f"{i.name} {i.seconds(s):.3g} s" for i in items) if len(items) > 1 else ""
+    fit = rows_under(items, s, caps.cost_s)
+    if fit >= 10:
+        advice = (
+            f"About {fit:,} training rows fit under it with these settings; or use fewer folds "
+            "or repeats, a smaller grid"
+        )
+    else:
+        advice = "Even a few rows do not fit under it with these settings: use fewer folds"
+    advice += ", fewer query rows" if s.q else ""
+    advice += ", or fewer methods." if len(items) > 1 else ", or another method."
+    raise OverLimit(
+        f"this request is estimated at {estimate:.3g} s of fitting on one core"
+        f"{f' ({parts})' if parts else ''}, over the service's limit {caps.label('cost_s')} s. "
+        + advice,
+        [Where(("train", "rows"), f"{s.n} rows: estimated {estimate:.3g} s")],
+    )

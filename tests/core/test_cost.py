@@ -1,0 +1,163 @@
+"""Work limits checked before fitting: grid size, folds x repeats, methods, estimated cost.
+
+The estimates' accuracy against measured times is a benchmark
+(tests/benchmarks/calibrate_cost.py), not a timed test; here the checks are on behaviour: the
+limits refuse what they should, name the limit and what would fit, and the estimate grows with
+every dimension of the work.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from nearwise.core import cost, pipeline
+from nearwise.core.compare import compare
+from nearwise.core.data import Table
+from nearwise.core.errors import OverLimit
+from nearwise.core.spec import Caps, Job, TuningSpec
+
+NAMES = {"grid": "MAX_GRID", "fold_fits": "MAX_FOLD_FITS", "methods": "MAX_METHODS"}
+
+
+def _job(n=200, p=1, q=0, method="knn", seed=0, **kw) -> Job:
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(0, 1, (n, p))
+    y = np.sin(6 * X[:, 0]) + rng.normal(0, 0.2, n)
+    cols = (*[f"x{j}" for j in range(p)], "y")
+    query = Table("query", cols[:-1], rng.uniform(0, 1, (q, p))) if q else None
+    return Job(method, Table("train", cols, np.column_stack([X, y])), "y", query=query, **kw)
+
+
+def test_a_grid_longer_than_the_limit_is_refused_naming_it() -> None:
+    job = _job(grid={"k": list(range(1, 12))}, caps=Caps(grid=10, names=NAMES))
+    with pytest.raises(OverLimit, match=r"11 candidates; the service's limit is MAX_GRID = 10"):
+        pipeline.run(job)
+    try:
+        pipeline.run(job)
+    except OverLimit as err:
+        assert err.where[0].path == ("grid", "k")
+    assert pipeline.run(_job(grid={"k": list(range(1, 11))}, caps=Caps(grid=10))).method == "knn"
+
+
+def test_folds_times_repeats_over_the_limit_points_at_repeats() -> None:
+    job = _job(tuning=TuningSpec(folds=10, repeats=11), caps=Caps(fold_fits=100, names=NAMES))
+    with pytest.raises(OverLimit, match=r"110 fits.*MAX_FOLD_FITS = 100.*at most 10\)") as info:
+        pipeline.run(job)
+    assert info.value.where[0].path == ("tuning", "repeats")
+    # loo is one closed-form pass whatever the limit on folds x repeats.
+    loo = _job(tuning=TuningSpec(scheme="loo"), caps=Caps(fold_fits=1))
+    assert pipeline.run(loo).tuning.scheme == "loo"
+
+
+def test_folds_alone_over_the_limit_points_at_folds() -> None:
+    job = _job(tuning=TuningSpec(folds=20), caps=Caps(fold_fits=10))
+    with pytest.raises(OverLimit, match=r"max_fold_fits = 10") as info:
+        pipeline.run(job)
+    assert info.value.where[0].path == ("tuning", "folds")
+
+
+def test_more_methods_than_the_limit_are_refused() -> None:
+    named = _job(methods=["knn", "linear", "spline"], caps=Caps(methods=2, names=NAMES))
+    with pytest.raises(OverLimit, match=r"names 3 methods.*MAX_METHODS = 2") as info:
+        compare(named)
+    assert info.value.where[0].path == ("methods",)
+    # Unnamed: every method that applies would be compared; the caller must choose.
+    with pytest.raises(OverLimit, match="name at most 2 in `methods`"):
+        compare(_job(caps=Caps(methods=2)))
+    assert len(compare(_job(methods=["knn", "linear"], caps=Caps(methods=2))).ranking) == 2
+
+
+def _items(job: Job) -> tuple[list[cost.Item], cost.Shape]:
+    method = pipeline.get_method(job.method)
+    settings, grid = pipeline.check_method(method, job, job.params, job.grid)
+    ctx = pipeline.setup(job)
+    return [cost.Item(method.name, settings, grid)], pipeline.shape(ctx)
+
+
+def test_an_expensive_request_is_refused_before_fitting_with_what_would_fit() -> None:
+    job = _job(n=3000, p=8, q=50, caps=Caps(cost_s=0.05, names={"cost_s": "MAX_COST_S"}))
+    items, shape = _items(job)
+    estimate = cost.total(items, shape)
+    assert estimate > 0.05
+    with pytest.raises(OverLimit) as info:
+        pipeline.run(job)
+    err = info.value
+    assert err.code == "over_limit"
+    assert err.where[0].path == ("train", "rows")
+    assert f"estimated at {estimate:.3g} s" in err.detail
+    assert "MAX_COST_S = 0.05 s" in err.detail
+    fit = int(err.detail.split("About ")[1].split(" training rows")[0].replace(",", ""))
+    # The advice is exact for the estimate: that many rows fit, one more does not.
+    assert cost.total(items, shape.rows(fit)) <= 0.05 < cost.total(items, shape.rows(fit + 1))
+    assert fit == cost.rows_under(items, shape, 0.05)
+
+
+def test_a_request_under_the_limit_runs() -> None:
+    job = _job(n=300, caps=Caps(cost_s=20.0))
+    assert pipeline.run(job).method == "knn"
+
+
+@pytest.mark.parametrize(
+    ("method", "params", "p"),
+    [
+        ("knn", {}, 1),
+        ("knn", {}, 6),
+        ("knn", {}, 20),
+        ("linear", {}, 3),
+        ("linear", {"penalty": "ridge"}, 3),
+        ("linear", {"penalty": "lasso"}, 3),
+        ("spline", {}, 1),
+        ("spline", {}, 2),
+        ("additive", {}, 3),
+    ],
+)
+def test_the_estimate_grows_with_rows_folds_queries_and_features(method, params, p) -> None:
+    item = cost.Item(method, params, None)
+    base = cost.Shape.of(2000, p, 10, TuningSpec())
+    more_rows = cost.Shape.of(4000, p, 10, TuningSpec())
+    more_folds = cost.Shape.of(2000, p, 10, TuningSpec(folds=10, repeats=2))
+    more_queries = cost.Shape.of(2000, p, 10_000, TuningSpec())
+    more_features = cost.Shape.of(2000, p + 2, 10, TuningSpec())
+    e = item.seconds(base)
+    assert e > 0
+    assert item.seconds(more_rows) > e
+    assert item.seconds(more_folds) > e
+    assert item.seconds(more_queries) > e
+    if method != "spline" or p > 1:  # a 1-D spline has one feature by definition
+        assert item.seconds(more_features) > e
+
+
+def test_a_larger_grid_costs_more_where_candidates_cost_work() -> None:
+    s = cost.Shape.of(5000, 3, 0, TuningSpec())
+    one = cost.Shape.of(5000, 1, 0, TuningSpec())  # a 1-D spline: banded solves per candidate
+    lasso = {"penalty": "lasso"}
+    pairs = [
+        ("knn", {}, list(range(1, 201)), None, s),
+        ("linear", lasso, [1.0] * 100, None, s),
+        ("spline", {}, [1.0] * 100, None, one),
+        ("linear", {}, [1, 2, 3, 4, 5], [1], s),  # a higher degree has more terms to factor
+    ]
+    for name, settings, big, small, shape in pairs:
+        assert cost.Item(name, settings, big).seconds(shape) > cost.Item(
+            name, settings, small
+        ).seconds(shape), name
+
+
+def test_the_default_compare_leaves_out_the_costliest_method_to_fit_the_limit() -> None:
+    # In 12 dimensions a cubic polynomial has 455 terms and kNN's neighbor search suffers from
+    # the dimension: with a limit just above the cheaper methods' sum, the costliest is left out
+    # with a notice and the rest are ranked.
+    shape = cost.Shape.of(600, 12, 0, TuningSpec())
+    names = ("knn", "linear", "additive")  # spline does not apply in 12-D
+    by_name = {m: cost.Item(m, {}, None).seconds(shape) + 600 * cost.ROW_S for m in names}
+    worst = max(by_name, key=by_name.get)
+    cap = sum(v for k, v in by_name.items() if k != worst) * 1.05
+    assert cap < sum(by_name.values())
+    result = compare(_job(n=600, p=12, caps=Caps(cost_s=cap)))
+    assert sorted(r.method for r in result.ranking) == sorted(set(names) - {worst})
+    skipped = [w.message for w in result.warnings if w.code == "method_skipped"]
+    assert any(m.startswith(f"{worst} was left out: it is estimated at") for m in skipped)
+    # Named methods are never dropped: the request is refused instead.
+    with pytest.raises(OverLimit):
+        compare(_job(n=600, p=12, methods=list(names), caps=Caps(cost_s=cap)))
