@@ -116,7 +116,7 @@ def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> fl
 LSQ_TERM_S = 1.1e-7  # per row, term and fit: building the design, residuals, deletion formulas
 RIDGE_TERM_S = 3.0e-7  # the same with a penalty (standardizing, the path over alpha)
 LSQ_FACTOR_S = 1.6e-9  # per row, squared term count and fit: the QR or SVD itself
-LASSO_S = 4.0e-9  # per row, term, alpha and fit: coordinate-descent passes
+LASSO_S = 2.5e-8  # per row, term, alpha and fit: coordinate-descent passes
 
 
 def _terms(p: int, degree: int, interactions: bool) -> int:
@@ -139,7 +139,7 @@ def linear(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
     per_term = LSQ_TERM_S if penalty == "none" else RIDGE_TERM_S
     cost = fits * rows * (per_term * t + LSQ_FACTOR_S * t * t) + s.q * s.models * t * 1e-8
     if penalty == "lasso":
-        cost += fits * rows * t * _count(grid, settings, "alpha", 30) * LASSO_S * 10
+        cost += fits * rows * t * _count(grid, settings, "alpha", 30) * LASSO_S
     return cost
 
 
