@@ -102,3 +102,29 @@ def test_bad_limits_name_the_variable(name: str, value: str) -> None:
 
 def test_open_endpoints_may_be_emptied() -> None:
     assert Settings.from_env({"NEARWISE_OPEN_ENDPOINTS": ""}).open_endpoints == ()
+
+
+def test_the_readme_documents_every_setting() -> None:
+    from pathlib import Path
+
+    readme = (Path(__file__).parents[2] / "README.md").read_text(encoding="utf-8")
+    table = readme.split("## Settings", 1)[1].split("\n## ", 1)[0]
+    documented = {
+        line.split("`")[1] for line in table.splitlines() if line.startswith("| `NEARWISE_")
+    }
+    assert documented == set(Settings().variables())
+
+
+def test_the_readme_cost_example_is_what_the_service_says() -> None:
+    from pathlib import Path
+
+    from nearwise.core import cost
+    from nearwise.core.errors import OverLimit
+    from nearwise.core.spec import TuningSpec
+    from nearwise.web.routes.predict import caps
+
+    shape = cost.Shape.of(250_000, 6, 100, TuningSpec())
+    with pytest.raises(OverLimit) as info:
+        cost.check([cost.Item("knn", {}, None)], shape, caps(Settings()))
+    readme = (Path(__file__).parents[2] / "README.md").read_text(encoding="utf-8")
+    assert " ".join(info.value.detail.split()) in " ".join(readme.split())
