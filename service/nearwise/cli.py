@@ -7,7 +7,9 @@ from __future__ import annotations
 
 import argparse
 import os
+import shutil
 import sys
+import tempfile
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -87,7 +89,13 @@ class Server(BaseApplication):
     """gunicorn with options from :class:`Settings`; each worker builds its own app."""
 
     def __init__(self, settings: Settings) -> None:
+        from nearwise.web.slots import make_pool
+
         self.settings = settings
+        # The fit slots all workers share: lock files made here, before the workers fork.
+        self.fit_pool = make_pool(
+            Path(tempfile.mkdtemp(prefix="nearwise-slots-")), settings.fit_slots
+        )
         super().__init__()
 
     def load_config(self) -> None:
@@ -103,13 +111,17 @@ class Server(BaseApplication):
             "proc_name": "nearwise",
             "timeout": 30,
             "graceful_timeout": s.graceful_timeout_s,
+            "on_exit": self._remove_pool,
         }
         if "control_socket_disable" in self.cfg.settings:  # gunicorn >= 25.1: no shared socket
             options["control_socket_disable"] = True
         for key, value in options.items():
             self.cfg.set(key, value)
 
+    def _remove_pool(self, arbiter: Any) -> None:
+        shutil.rmtree(self.fit_pool, ignore_errors=True)
+
     def load(self) -> Any:
         from nearwise.web.app import create_app
 
-        return create_app(self.settings)
+        return create_app(self.settings, self.fit_pool)

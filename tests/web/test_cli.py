@@ -67,7 +67,7 @@ def test_serve_sets_one_blas_thread_and_gunicorn_defaults(monkeypatch) -> None:
         "MKL_NUM_THREADS": "1",
         "bind": ["127.0.0.1:8080"],
         "workers": 3,
-        "threads": 6,
+        "threads": 8,
         "worker_class": "gthread",
     }
 
@@ -116,7 +116,7 @@ def test_print_config_shows_every_setting_with_keys_masked(monkeypatch, capsys) 
     assert set(shown) == {"NEARWISE_" + f.upper() for f in Settings.__dataclass_fields__}
 
 
-def test_fits_must_leave_a_thread_free(monkeypatch, capsys) -> None:
-    monkeypatch.setenv("NEARWISE_FITS_PER_WORKER", "6")  # not below the 6 threads
+def test_one_thread_per_worker_is_refused(monkeypatch, capsys) -> None:
+    monkeypatch.setenv("NEARWISE_THREADS", "1")  # no thread would stay free for health checks
     assert cli.main(["serve", "--print-config"]) == 2
-    assert "NEARWISE_FITS_PER_WORKER" in capsys.readouterr().err
+    assert "NEARWISE_THREADS" in capsys.readouterr().err

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 from webhelpers import request, serving
 
-WORKERS, THREADS, SLOTS = 2, 3, 1
+WORKERS, THREADS, SLOTS = 2, 4, 1  # 2 fits in the service; 2 threads per worker stay free
 HEALTH_GOAL_S = 0.100  # the liveness goal
 PROBE_TIMEOUT_S = 1.0  # Kubernetes' default probe timeout, which the manifests keep
 

@@ -11,6 +11,7 @@ from webhelpers import body, problem
 from nearwise.core import pipeline
 from nearwise.web.app import create_app
 from nearwise.web.settings import Settings
+from nearwise.web.slots import FitSlots, make_pool
 
 
 @pytest.fixture
@@ -40,7 +41,7 @@ def _post_in_thread(app, results: list, path: str = "/v1/predict") -> threading.
 
 def test_a_request_beyond_the_slots_gets_a_fast_503(blocked) -> None:
     started, release = blocked
-    app = create_app(Settings(threads=4, fits_per_worker=2))
+    app = create_app(Settings(workers=1, threads=6, fits_per_worker=2))
     results: list = []
     threads = [_post_in_thread(app, results) for _ in range(2)]
     for _ in threads:
@@ -54,7 +55,7 @@ def test_a_request_beyond_the_slots_gets_a_fast_503(blocked) -> None:
     doc = problem(resp, 503)
     assert doc["code"] == "busy"
     assert resp.headers["Retry-After"] == "2"
-    assert "NEARWISE_FITS_PER_WORKER" in doc["detail"]
+    assert "NEARWISE_WORKERS x NEARWISE_FITS_PER_WORKER" in doc["detail"]
     # Refused without waiting for a slot: the blocked fits hold theirs for up to 30 s.
     assert waited < 5
     # Health and the catalogue need no slot.
@@ -73,7 +74,7 @@ def test_a_request_beyond_the_slots_gets_a_fast_503(blocked) -> None:
 
 
 def test_a_failed_fit_gives_its_slot_back() -> None:
-    app = create_app(Settings(threads=2, fits_per_worker=1))
+    app = create_app(Settings(workers=1, threads=2, fits_per_worker=1))
     client = app.test_client()
     for _ in range(3):
         assert problem(client.post("/v1/predict", json=body(method="nope")), 422)
@@ -81,8 +82,62 @@ def test_a_failed_fit_gives_its_slot_back() -> None:
     assert client.post("/v1/predict", json=body()).status_code == 200
 
 
-def test_each_app_has_its_own_slots() -> None:
-    # gunicorn builds one app per worker process, so the slots are per worker.
+def test_the_worker_cap_leaves_threads_free_even_with_a_larger_pool(blocked) -> None:
+    started, release = blocked
+    # The service-wide pool has 8 slots, but one worker with 4 threads fits on 2 at most.
+    app = create_app(Settings(workers=2, threads=4, fits_per_worker=4))
+    results: list = []
+    threads = [_post_in_thread(app, results) for _ in range(2)]
+    for _ in threads:
+        assert started.acquire(timeout=30)
+    assert problem(app.test_client().post("/v1/predict", json=body()), 503)["code"] == "busy"
+    release.set()
+    for t in threads:
+        t.join(30)
+    assert [r.status_code for r in results] == [200, 200]
+
+
+def test_pool_slots_are_shared_between_processes_and_freed_when_a_holder_dies(tmp_path) -> None:
+    import subprocess
+    import sys
+
+    pool = make_pool(tmp_path / "pool", 2)
+    mine = FitSlots(worker_cap=4, total=2, pool=pool)
+    # Another process (a worker) holds one slot's lock until it is killed.
+    holder = subprocess.Popen(
+        [
+            sys.executable,
+            "-c",
+            "import fcntl, os, sys, time\n"
+            f"fd = os.open({str(pool / 'slot-0000')!r}, os.O_RDONLY)\n"
+            "fcntl.flock(fd, fcntl.LOCK_EX)\n"
+            "print('held', flush=True)\n"
+            "time.sleep(60)\n",
+        ],
+        stdout=subprocess.PIPE,
+        text=True,
+    )
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        first = mine.try_acquire()
+        assert first is not None
+        assert mine.try_acquire() is None  # one slot held elsewhere, one here: none left
+        holder.kill()  # a worker killed mid-fit: the kernel drops its lock
+        holder.wait(30)
+        second = mine.try_acquire()
+        assert second is not None
+        mine.release(first)
+        mine.release(second)
+        assert mine.in_use == 0
+    finally:
+        holder.kill()
+        holder.wait(30)
+        holder.stdout.close()
+
+
+def test_each_app_has_its_own_worker_cap() -> None:
+    # gunicorn builds one app per worker process; each caps its own threads.
     a, b = create_app(Settings()), create_app(Settings())
     assert a.extensions["nearwise_slots"] is not b.extensions["nearwise_slots"]
-    assert a.extensions["nearwise_slots"].slots == Settings().fit_slots == 4
+    assert a.extensions["nearwise_slots"].worker_cap == Settings().worker_fit_cap == 6
+    assert Settings().fit_slots == 8

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Callable
+from pathlib import Path
 
 from flask import Flask, Response
 
@@ -11,8 +12,12 @@ from nearwise.web import guards, openapi, problems, slots
 from nearwise.web.settings import Settings, log_level_number
 
 
-def create_app(settings: Settings | None = None) -> Flask:
-    """A configured app; ``settings`` default to the ``NEARWISE_*`` environment variables."""
+def create_app(settings: Settings | None = None, fit_pool: Path | None = None) -> Flask:
+    """A configured app; ``settings`` default to the ``NEARWISE_*`` environment variables.
+
+    ``fit_pool`` is the directory of the service-wide fit slots that ``nearwise serve`` makes
+    before forking its workers; without it the slots are this process's own.
+    """
     settings = settings if settings is not None else Settings.from_env()
     app = Flask("nearwise", static_folder=None)
     app.config["MAX_CONTENT_LENGTH"] = settings.max_body_bytes
@@ -20,7 +25,7 @@ def create_app(settings: Settings | None = None) -> Flask:
     logging.getLogger("nearwise").setLevel(log_level_number(settings))
     problems.install(app)
     guards.install(app, settings)
-    slots.install(app, settings.fit_slots)
+    slots.install(app, settings.worker_fit_cap, settings.fit_slots, fit_pool)
 
     from nearwise.web.routes import catalogue, cell, compare, health, locality, predict
 

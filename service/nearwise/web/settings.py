@@ -29,11 +29,12 @@ class Settings:
 
     bind: str = "127.0.0.1:8080"
     workers: int = 2
-    #: Threads per worker. ``fit_slots`` of them may fit at once; the others stay free for
-    #: health checks and fast 503 answers, so nothing queues behind a long fit.
-    threads: int = 6
-    #: Fits one worker runs at once; None: two threads fewer than ``threads``, at least one.
-    fits_per_worker: int | None = None
+    #: Threads per worker. At most ``worker_fit_cap`` of them fit at once; the others stay
+    #: free for health checks and fast 503 answers, so nothing queues behind a long fit.
+    threads: int = 8
+    #: Fits per worker: the service runs at most ``workers * fits_per_worker`` fits at once,
+    #: shared by its workers (one worker may run more than its share while another is idle).
+    fits_per_worker: int = 4
     max_body_bytes: int = 32 * 1024 * 1024
     max_rows: int = 250_000
     max_columns: int = 50
@@ -74,21 +75,19 @@ class Settings:
 
     @property
     def fit_slots(self) -> int:
-        """Fits one worker runs at once."""
-        if self.fits_per_worker is not None:
-            return self.fits_per_worker
+        """Fits the whole service runs at once."""
+        return self.workers * self.fits_per_worker
+
+    @property
+    def worker_fit_cap(self) -> int:
+        """Fits one worker runs at once: two threads stay free (one with only two threads)."""
         return max(1, self.threads - 2)
 
     def check(self) -> None:
-        """Settings that only make sense together; an error names both variables."""
+        """Settings that only make sense together; an error names the variables."""
         if self.threads == 1:
             raise SettingsError(
                 f"{PREFIX}THREADS must be at least 2: one thread stays free for health checks."
-            )
-        if self.fits_per_worker is not None and self.fits_per_worker >= self.threads:
-            raise SettingsError(
-                f"{PREFIX}FITS_PER_WORKER ({self.fits_per_worker}) must be below "
-                f"{PREFIX}THREADS ({self.threads}): a thread must stay free for health checks."
             )
 
     def variables(self, masked: bool = True) -> dict[str, str]:
@@ -96,9 +95,7 @@ class Settings:
         out: dict[str, str] = {}
         for f in fields(self):
             value = getattr(self, f.name)
-            if value is None:
-                shown = f"auto ({self.fit_slots})"
-            elif isinstance(value, tuple):
+            if isinstance(value, tuple):
                 shown = ",".join("****" if masked and f.name in SECRETS else v for v in value)
             else:
                 shown = f"{value:g}" if isinstance(value, float) else str(value)
