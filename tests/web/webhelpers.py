@@ -71,7 +71,9 @@ def request(
 
 
 @contextmanager
-def serving(log_path: Path, env: dict[str, str] | None = None) -> Iterator[int]:
+def serving(
+    log_path: Path, env: dict[str, str] | None = None, workers: int = 1, threads: int = 2
+) -> Iterator[int]:
     """``python -m nearwise serve`` on a free 127.0.0.1 port until the block ends; yields
     the port once /healthz answers (at most 60 s)."""
     port = free_port()
@@ -86,9 +88,9 @@ def serving(log_path: Path, env: dict[str, str] | None = None) -> Iterator[int]:
                 "--bind",
                 f"127.0.0.1:{port}",
                 "--workers",
-                "1",
+                str(workers),
                 "--threads",
-                "2",
+                str(threads),
             ],
             stdout=log,
             stderr=subprocess.STDOUT,
