@@ -10,10 +10,10 @@ method from the catalogue, a problem code and a status.
 from __future__ import annotations
 
 import os
+import threading
 import time
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
-from functools import cache
 from typing import Any
 
 from flask import Flask, has_request_context, request
@@ -76,10 +76,18 @@ class _Metrics:
         )
 
 
-@cache
+_created: list[_Metrics] = []
+_creating = threading.Lock()
+
+
 def collected() -> _Metrics:
-    """This process's metrics."""
-    return _Metrics()
+    """This process's metrics, created once (two metrics of one name would overwrite each
+    other's values in the shared files)."""
+    if not _created:
+        with _creating:
+            if not _created:
+                _created.append(_Metrics())
+    return _created[0]
 
 
 def multiprocess() -> bool:
@@ -203,4 +211,5 @@ def install(app: Flask) -> None:
     def note_route() -> None:
         request.environ[ENV_ROUTE] = current_route() if request.url_rule is not None else None
 
+    collected()  # now, in the worker, before any request thread runs
     app.wsgi_app = RequestMetrics(app.wsgi_app)  # type: ignore[method-assign]
