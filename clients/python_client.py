@@ -4,6 +4,7 @@
     python clients/python_client.py samples/predict_warehouse.json
     python clients/python_client.py samples/compare_warehouse.json compare
     NEARWISE_URL=http://host:9000 python clients/python_client.py
+    NEARWISE_API_KEY=your-key python clients/python_client.py       # sent as a bearer token
 
 Needs `requests`. Exits with 1 when the service answers with an error.
 """
@@ -18,6 +19,7 @@ from pathlib import Path
 import requests
 
 BASE = os.environ.get("NEARWISE_URL", "http://127.0.0.1:8080").rstrip("/")
+KEY = os.environ.get("NEARWISE_API_KEY", "")
 DEFAULT_BODY = Path(__file__).resolve().parents[1] / "samples" / "predict_spline.json"
 
 
@@ -53,11 +55,11 @@ def show_answer(answer: dict) -> None:
 def main() -> int:
     body = Path(sys.argv[1]) if len(sys.argv) > 1 else DEFAULT_BODY
     endpoint = sys.argv[2] if len(sys.argv) > 2 else "predict"
+    headers = {"Content-Type": "application/json"}
+    if KEY:
+        headers["Authorization"] = f"Bearer {KEY}"
     resp = requests.post(
-        f"{BASE}/v1/{endpoint}",
-        data=body.read_bytes(),
-        headers={"Content-Type": "application/json"},
-        timeout=120,
+        f"{BASE}/v1/{endpoint}", data=body.read_bytes(), headers=headers, timeout=120
     )
     if resp.headers.get("Content-Type", "").startswith("application/problem+json"):
         show_problem(resp.json())

@@ -4,6 +4,7 @@
 #   Rscript clients/r_client.R samples/predict_warehouse.json
 #   Rscript clients/r_client.R samples/compare_warehouse.json compare
 #   NEARWISE_URL=http://host:9000 Rscript clients/r_client.R
+#   NEARWISE_API_KEY=your-key Rscript clients/r_client.R          # sent as a bearer token
 #
 # Needs R 4.1 or newer and the httr2 package. Run it from the repository root (the default body
 # path is relative). Exits with status 1 when the service answers with an error.
@@ -13,6 +14,7 @@ args <- commandArgs(trailingOnly = TRUE)
 body_path <- if (length(args) >= 1) args[[1]] else "samples/predict_spline.json"
 endpoint <- if (length(args) >= 2) args[[2]] else "predict"
 base <- sub("/+$", "", Sys.getenv("NEARWISE_URL", "http://127.0.0.1:8080"))
+key <- Sys.getenv("NEARWISE_API_KEY", "")
 
 fmt <- function(x) if (is.null(x)) "-" else format(signif(x, 6))
 
@@ -40,9 +42,11 @@ show_answer <- function(answer) {
   for (w in doc$warnings) cat(sprintf("warning %s: %s\n", w$code, w$message))
 }
 
-resp <- request(base) |>
+req <- request(base) |>
   req_url_path_append("v1", endpoint) |>
-  req_body_file(body_path, type = "application/json") |>
+  req_body_file(body_path, type = "application/json")
+if (nzchar(key)) req <- req_auth_bearer_token(req, key)
+resp <- req |>
   req_timeout(120) |>
   req_error(is_error = \(resp) FALSE) |>  # read problem+json ourselves
   req_perform()

@@ -13,6 +13,9 @@
 // The script runs on the spreadsheet provider's servers, not on your computer: NEARWISE_URL
 // must be an address those servers can reach (a public HTTPS address, not 127.0.0.1).
 const NEARWISE_URL = "https://nearwise.example.org";
+// The service's API key when it runs with NEARWISE_API_KEYS (sent as a bearer token), or "".
+// Anyone who can edit the spreadsheet's script can read it.
+const NEARWISE_API_KEY = "";
 
 /**
  * Predictions, error bounds and flags from nearwise for the rows of a query range.
@@ -36,6 +39,7 @@ function NEARWISE_PREDICT(train, query, target, method) {
     contentType: "application/json",
     payload: JSON.stringify(body),
     muteHttpExceptions: true, // read problem+json answers instead of failing
+    headers: NEARWISE_API_KEY ? { Authorization: "Bearer " + NEARWISE_API_KEY } : {},
   });
   const answer = JSON.parse(resp.getContentText());
   if (resp.getResponseCode() >= 400) {

@@ -20,6 +20,8 @@ from nearwise.web.settings import Settings, SettingsError
 
 DEFAULT_OPENAPI = Path("openapi") / "openapi.json"
 BLAS_THREADS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+#: Read by prometheus_client when a worker first imports it: where each worker keeps its values.
+METRICS_VARIABLE = "PROMETHEUS_MULTIPROC_DIR"
 SERVE_FLAGS = ("bind", "workers", "threads")
 
 
@@ -85,8 +87,29 @@ def serve_command(args: argparse.Namespace) -> int:
     return 0
 
 
+def prepare_metrics_dir(configured: str) -> tuple[str, bool]:
+    """The directory the workers share their metrics through, emptied of earlier values, and
+    whether it was created here (a fresh one under the temp directory when none is set).
+
+    Only the value files (``*.db``) of an earlier run are removed from a configured directory.
+    """
+    if not configured:
+        return tempfile.mkdtemp(prefix="nearwise-metrics-"), True
+    os.makedirs(configured, exist_ok=True)
+    for entry in os.scandir(configured):
+        if entry.name.endswith(".db") and entry.is_file(follow_symlinks=False):
+            os.remove(entry.path)
+    return configured, False
+
+
 class Server(BaseApplication):
-    """gunicorn with options from :class:`Settings`; each worker builds its own app."""
+    """gunicorn with options from :class:`Settings`; each worker builds its own app.
+
+    Hooks: ``on_starting`` (in the master, before any worker exists) prepares the metrics
+    directory and sets ``PROMETHEUS_MULTIPROC_DIR`` for the workers to inherit; ``child_exit``
+    marks a worker's metrics dead; ``on_exit`` removes the directories created at start (the
+    metrics directory unless configured, and the fit slots' lock files).
+    """
 
     def __init__(self, settings: Settings) -> None:
         from nearwise.web.slots import make_pool
@@ -96,7 +119,24 @@ class Server(BaseApplication):
         self.fit_pool = make_pool(
             Path(tempfile.mkdtemp(prefix="nearwise-slots-")), settings.fit_slots
         )
+        self.metrics_dir: str | None = None
+        self.metrics_dir_created = False
         super().__init__()
+
+    def on_starting(self, server: Any) -> None:
+        self.metrics_dir, self.metrics_dir_created = prepare_metrics_dir(self.settings.metrics_dir)
+        os.environ[METRICS_VARIABLE] = self.metrics_dir
+        server.log.info("metrics of all workers are kept in %s", self.metrics_dir)
+
+    def child_exit(self, server: Any, worker: Any) -> None:
+        from prometheus_client import multiprocess
+
+        multiprocess.mark_process_dead(worker.pid, self.metrics_dir)
+
+    def on_exit(self, server: Any) -> None:
+        shutil.rmtree(self.fit_pool, ignore_errors=True)
+        if self.metrics_dir_created and self.metrics_dir:
+            shutil.rmtree(self.metrics_dir, ignore_errors=True)
 
     def load_config(self) -> None:
         s = self.settings
@@ -108,18 +148,18 @@ class Server(BaseApplication):
             "loglevel": s.log_level.lower(),
             "accesslog": "-",
             "errorlog": "-",
+            "logger_class": "nearwise.jsonlog.GunicornLogger",  # JSON lines on stdout
+            "on_starting": self.on_starting,
+            "child_exit": self.child_exit,
+            "on_exit": self.on_exit,
             "proc_name": "nearwise",
             "timeout": 30,
             "graceful_timeout": s.graceful_timeout_s,
-            "on_exit": self._remove_pool,
         }
         if "control_socket_disable" in self.cfg.settings:  # gunicorn >= 25.1: no shared socket
             options["control_socket_disable"] = True
         for key, value in options.items():
             self.cfg.set(key, value)
-
-    def _remove_pool(self, arbiter: Any) -> None:
-        shutil.rmtree(self.fit_pool, ignore_errors=True)
 
     def load(self) -> Any:
         from nearwise.web.app import create_app

@@ -198,7 +198,7 @@ def test_docs_page_is_open_and_sends_the_key_given_to_authorize(
         origin = f"http://127.0.0.1:{port}"
         assert "/v1/methods" in _open_docs(browser, origin)
         block = _try_out(browser, "get", "/v1/methods")
-        assert "X-API-Key" in _execute(block, "401")
+        assert "Authorization: Bearer" in _execute(block, "401")
 
         browser.find_element(by.CSS_SELECTOR, ".auth-wrapper button.authorize").click()
         dialog = _wait(browser).until(

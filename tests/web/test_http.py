@@ -175,9 +175,14 @@ def test_unexpected_errors_are_500_without_a_trace(app, caplog) -> None:
 def test_api_keys_guard_v1_only() -> None:
     client = create_app(Settings(api_keys=("k1", "k2"))).test_client()
     assert problem(client.get("/v1/methods"), 401)["code"] == "unauthorized"
-    problem(client.get("/v1/methods", headers={"X-API-Key": "nope"}), 401)
-    assert client.get("/v1/methods", headers={"X-API-Key": "k2"}).status_code == 200
+    problem(client.get("/v1/methods", headers={"Authorization": "Bearer nope"}), 401)
+    assert client.get("/v1/methods", headers={"Authorization": "Bearer k2"}).status_code == 200
     assert client.get("/healthz").status_code == 200
+
+
+def test_the_old_key_header_is_not_read() -> None:
+    client = create_app(Settings(api_keys=("k1",))).test_client()
+    problem(client.get("/v1/methods", headers={"X-API-Key": "k1"}), 401)
 
 
 def test_cors_headers_for_allowed_origins_only() -> None:
@@ -186,7 +191,10 @@ def test_cors_headers_for_allowed_origins_only() -> None:
     assert ok.headers["Access-Control-Allow-Origin"] == "https://a.example"
     other = client.get("/healthz", headers={"Origin": "https://b.example"})
     assert "Access-Control-Allow-Origin" not in other.headers
-    pre = client.options("/v1/predict", headers={"Origin": "https://a.example"})
+    pre = client.options(
+        "/v1/predict",
+        headers={"Origin": "https://a.example", "Access-Control-Request-Method": "POST"},
+    )
     assert "POST" in pre.headers["Access-Control-Allow-Methods"]
 
 

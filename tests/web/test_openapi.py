@@ -50,6 +50,7 @@ def test_paths_summaries_and_problem_responses() -> None:
         "/v1/cell",
         "/healthz",
         "/readyz",
+        "/metrics",
         "/openapi.json",
         "/",
         "/docs",
@@ -80,3 +81,24 @@ def test_request_examples_are_valid_requests(client) -> None:
         body = doc["paths"][path]["post"]["requestBody"]["content"]["application/json"]
         resp = client.post(path, json=body["example"])
         assert resp.status_code == 200, resp.get_data(as_text=True)
+
+
+def test_bearer_scheme_guards_v1_and_metrics_is_prometheus_text() -> None:
+    doc = json.loads(KEPT.read_text(encoding="utf-8"))
+    assert doc["components"]["securitySchemes"] == {
+        "bearerAuth": {
+            "type": "http",
+            "scheme": "bearer",
+            "description": doc["components"]["securitySchemes"]["bearerAuth"]["description"],
+        }
+    }
+    for path, item in doc["paths"].items():
+        for op in item.values():
+            keyed = path.startswith("/v1/") or path in ("/healthz", "/readyz", "/metrics")
+            assert (op.get("security") == [{}, {"bearerAuth": []}]) == keyed, path
+    assert "X-API-Key" not in KEPT.read_text(encoding="utf-8")
+    metrics = doc["paths"]["/metrics"]["get"]
+    assert list(metrics["responses"]["200"]["content"]) == [
+        "text/plain; version=0.0.4; charset=utf-8"
+    ]
+    assert "nearwise_http_requests_total" in metrics["responses"]["200"]["description"]

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from flask import Flask, Response
 
-from nearwise.web import guards, openapi, problems, slots
+from nearwise.web import guards, logs, metrics, openapi, problems, slots
 from nearwise.web.settings import Settings, log_level_number
 
 
@@ -24,12 +24,16 @@ def create_app(settings: Settings | None = None, fit_pool: Path | None = None) -
     app.extensions["nearwise"] = settings
     logging.getLogger("nearwise").setLevel(log_level_number(settings))
     problems.install(app)
+    metrics.install(app)  # first: its hook notes the URL rule before any check can refuse
     guards.install(app, settings)
     slots.install(app, settings.worker_fit_cap, settings.fit_slots, fit_pool)
+    app.wsgi_app = logs.RequestIds(app.wsgi_app)  # type: ignore[method-assign]
 
     from nearwise.web.routes import catalogue, cell, compare, health, locality, predict
+    from nearwise.web.routes import metrics as metrics_route
 
-    for bp in (predict.bp, compare.bp, locality.bp, cell.bp, catalogue.bp, health.bp):
+    blueprints = (predict, compare, locality, cell, catalogue, health, metrics_route)
+    for bp in (m.bp for m in blueprints):
         app.register_blueprint(bp)
     app.add_url_rule("/openapi.json", "openapi", _openapi_view(app))
     from nearwise.web.routes import docs  # / and /docs, open without an API key

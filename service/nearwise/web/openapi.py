@@ -13,6 +13,7 @@ from flask import Flask
 
 from nearwise import __version__
 from nearwise.web import responses, schemas
+from nearwise.web.settings import OPEN_ENDPOINT_CHOICES
 
 _METHODS = ("get", "post", "put", "patch", "delete")
 _SCHEMAS = {  # nested schemas before the schemas that hold them
@@ -32,10 +33,19 @@ _SCHEMAS = {  # nested schemas before the schemas that hold them
     "ErrorEntry": responses.ErrorEntrySchema,
     "Problem": responses.ProblemSchema,
 }
+SCHEME = "bearerAuth"
+BEARER = {
+    "type": "http",
+    "scheme": "bearer",
+    "description": "One of the keys in NEARWISE_API_KEYS, sent as `Authorization: Bearer <key>`.",
+}
 DESCRIPTION = (
     "Fits kNN, linear and spline models to a table, tunes their flexibility by "
     "cross-validation and returns predictions. Every error is application/problem+json "
-    "(RFC 9457). When NEARWISE_API_KEYS is set, /v1 endpoints need the `X-API-Key` header."
+    "(RFC 9457). When NEARWISE_API_KEYS is set, /v1 endpoints need an API key sent as "
+    "`Authorization: Bearer <key>`; so do /healthz, /readyz and /metrics when left out of "
+    "NEARWISE_OPEN_ENDPOINTS. Every answer carries an `X-Request-ID` header: the one sent, "
+    "when it is printable ASCII of at most 128 characters, or a new one."
 )
 
 
@@ -50,9 +60,7 @@ def build(app: Flask) -> dict[str, Any]:
     )
     for name, schema in _SCHEMAS.items():
         spec.components.schema(name, schema=schema)
-    spec.components.security_scheme(
-        "apiKey", {"type": "apiKey", "in": "header", "name": "X-API-Key"}
-    )
+    spec.components.security_scheme(SCHEME, BEARER)
     rules = sorted(app.url_map.iter_rules(), key=lambda r: r.rule)
     for rule in rules:
         if rule.endpoint == "static" or rule.endpoint.endswith(".static"):  # files, not API
@@ -76,8 +84,8 @@ def _operation(view: Any, path: str) -> dict[str, Any]:
     op["operationId"] = view.__name__
     if rest.strip():
         op["description"] = rest.strip()
-    if path.startswith("/v1/"):
-        op["security"] = [{}, {"apiKey": []}]
+    if path.startswith("/v1/") or path in OPEN_ENDPOINT_CHOICES:
+        op["security"] = [{}, {SCHEME: []}]  # no key needed while NEARWISE_API_KEYS is unset
     return op
 
 

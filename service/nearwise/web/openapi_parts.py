@@ -10,7 +10,7 @@ from nearwise.web.responses import ProblemSchema
 
 PROBLEM_WHEN = {
     400: "Unreadable body: not JSON, not CSV, not UTF-8, or a malformed multipart body.",
-    401: "An API key is required (NEARWISE_API_KEYS is set): send it in `X-API-Key`.",
+    401: "An API key is required (NEARWISE_API_KEYS is set): send `Authorization: Bearer <key>`.",
     406: "The Accept header allows none of the media types this endpoint answers.",
     413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked), or a table is "
     "over NEARWISE_MAX_ROWS, NEARWISE_MAX_COLUMNS or NEARWISE_MAX_CELLS.",

@@ -17,6 +17,7 @@ from werkzeug.exceptions import HTTPException
 
 from nearwise.core.errors import NearwiseError, OverBudget, Where
 from nearwise.web.jsonio import dumps
+from nearwise.web.metrics import note_problem
 
 PROBLEM_JSON = "application/problem+json"
 #: Seconds a client is asked to wait after a 503.
@@ -104,6 +105,7 @@ def problem_response(
         "code": code,
         "errors": list(errors),
     }
+    note_problem(code)
     resp = Response(dumps(body), status=status, mimetype=PROBLEM_JSON)
     resp.headers.update(dict(headers or {}))
     return resp

@@ -20,6 +20,7 @@ from nearwise.core import pipeline
 from nearwise.core.data import Table
 from nearwise.core.errors import NearwiseError, OverBudget, Where
 from nearwise.core.spec import SCHEMES, IntervalSpec, Job, TuningSpec
+from nearwise.web import metrics
 from nearwise.web.body import negotiate
 from nearwise.web.csvio import DECIMALS
 from nearwise.web.openapi_parts import problems
@@ -185,7 +186,8 @@ def cell() -> Response:
         caps=caps(settings),
     )
     try:
-        result = pipeline.run(job)
+        with metrics.fitting(method, len(x)):
+            result = pipeline.run(job)
     except NearwiseError as exc:
         raise _cell_problem(exc) from None
     rows = prediction_rows(result.predictions)

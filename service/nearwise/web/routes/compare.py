@@ -7,7 +7,7 @@ from dataclasses import asdict
 from flask import Blueprint, Response, current_app
 
 from nearwise.core import compare as core_compare
-from nearwise.web import figures, serialize
+from nearwise.web import figures, metrics, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import read_request
 from nearwise.web.openapi_parts import problems
@@ -75,10 +75,13 @@ def compare() -> Response:
     intake = read_request(settings, CompareRequest(), CompareFields())
     job = build_job(intake, settings, method="compare")
     if answer == figures.SVG:
-        resp = figures.compare_answer(core_compare.compare(figures.with_curve(job)), intake)
+        with metrics.fitting("compare", job.train.n_rows):
+            fitted = core_compare.compare(figures.with_curve(job))
+        resp = figures.compare_answer(fitted, intake)
         resp.vary.add("Accept")
         return resp
-    result = core_compare.compare(job)
+    with metrics.fitting("compare", job.train.n_rows):
+        result = core_compare.compare(job)
     tuning = {k: v for k, v in asdict(job.tuning).items()}
     if job.tuning.scheme != "kfold":
         tuning["folds"] = None

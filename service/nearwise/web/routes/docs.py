@@ -134,7 +134,7 @@ spline of power against wind speed, and eight query rows):</p>
 data: it comes back flagged <code>outside_range</code> and <code>far_from_data</code>, with a
 warning that names the row. Add <code>-H 'Accept: text/csv'</code> to get the answer as CSV.
 When the service runs with <code>NEARWISE_API_KEYS</code> set, add
-<code>-H 'X-API-Key: your-key'</code>.</p>
+<code>-H 'Authorization: Bearer your-key'</code>.</p>
 
 <h2>Cautions</h2>
 <div class="caution">

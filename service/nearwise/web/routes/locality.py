@@ -7,7 +7,7 @@ from flask import Blueprint, Response, current_app
 from nearwise.core import columns
 from nearwise.core.errors import InvalidValue, Where
 from nearwise.core.locality import summary
-from nearwise.web import serialize
+from nearwise.web import metrics, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import read_request
 from nearwise.web.jsonio import jsonable
@@ -46,6 +46,7 @@ def locality() -> Response:
             "table, or ask for JSON (Accept: application/json) for the data-set summary alone.",
             [Where(("query",), "needed for a CSV answer")],
         )
+    metrics.training_rows(intake.tables["train"].table.n_rows)
     names, X, Xq = columns.feature_arrays(
         intake.tables["train"].table, f.get("features"), query.table if query else None
     )

@@ -6,7 +6,7 @@ from flask import Blueprint, Response, current_app
 
 from nearwise.core import pipeline
 from nearwise.core.spec import Caps, IntervalSpec, Job, TuningSpec
-from nearwise.web import figures, serialize
+from nearwise.web import figures, metrics, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import Intake, read_request
 from nearwise.web.openapi_parts import problems
@@ -36,10 +36,13 @@ def predict() -> Response:
     intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
     job = build_job(intake, current_app.extensions["nearwise"])
     if answer == figures.SVG:
-        resp = figures.predict_answer(pipeline.run(figures.with_curve(job)), intake)
+        with metrics.fitting(job.method, job.train.n_rows):
+            fitted = pipeline.run(figures.with_curve(job))
+        resp = figures.predict_answer(fitted, intake)
         resp.vary.add("Accept")
         return resp
-    result = pipeline.run(job)
+    with metrics.fitting(job.method, job.train.n_rows):
+        result = pipeline.run(job)
     if answer == "text/csv":
         rows = intake.tables.get("query") or intake.tables["train"]
         text = serialize.predict_csv(result, rows, intake.dialect)
