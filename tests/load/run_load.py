@@ -39,7 +39,7 @@ import sys
 import threading
 import time
 from collections import Counter
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -49,6 +49,9 @@ import numpy as np
 HOST = "127.0.0.1"
 TIMEOUT_S = 60.0  # per request: the service's own time budget is 30 s
 HEALTH_EVERY_S = 0.15
+#: Seconds between the start of one client and the next. Connections opened all at once tend
+#: to be accepted by one worker (see ``phase_burst``); opened in turn, they spread over both.
+RAMP_S = 0.1
 
 
 # -- request bodies ---------------------------------------------------------------------
@@ -89,21 +92,29 @@ class Kind:
     weight: float
 
 
-def standard_kinds() -> dict[str, Kind]:
-    """Every kind of request the runs use, by name. ``weight`` is its share in the mixed load."""
+def standard_kinds(slow_rows: int = 2000) -> dict[str, Kind]:
+    """Every kind of request the runs use, by name. ``weight`` is its share in the mixed load.
+    ``slow_rows``: training rows of the thin-plate request of the SIGTERM phase."""
     return {
         "small": Kind("small", "POST", "/v1/predict", predict_body("knn", 200, 2, 5, 1), 0.85),
-        "spline": Kind("spline", "POST", "/v1/predict", predict_body("spline", 2000, 1, 5, 2), 0.05),
+        "spline": Kind(
+            "spline", "POST", "/v1/predict", predict_body("spline", 2000, 1, 5, 2), 0.05
+        ),
         "additive": Kind(
             "additive", "POST", "/v1/predict", predict_body("additive", 2000, 3, 5, 3), 0.05
         ),
         "compare": Kind(
-            "compare", "POST", "/v1/compare", compare_body(["knn", "linear", "spline"], 2000, 1, 4),
+            "compare",
+            "POST",
+            "/v1/compare",
+            compare_body(["knn", "linear", "spline"], 2000, 1, 4),
             0.05,
         ),
         "healthz": Kind("healthz", "GET", "/healthz", None, 1.0),
-        # Thin-plate spline on 2,000 rows: a few seconds of fitting, for the SIGTERM phase.
-        "slow": Kind("slow", "POST", "/v1/predict", predict_body("spline", 2000, 2, 5, 5), 1.0),
+        # Thin-plate spline, tuned: seconds of fitting on 2,000 rows, for the SIGTERM phase.
+        "slow": Kind(
+            "slow", "POST", "/v1/predict", predict_body("spline", slow_rows, 2, 5, 5), 1.0
+        ),
     }
 
 
@@ -149,12 +160,25 @@ def get(port: int, path: str, timeout: float = 5.0) -> tuple[int, bytes]:
 class Server:
     """``python -m nearwise serve`` (gunicorn master and workers) on a free loopback port."""
 
-    def __init__(self, log_path: Path, workers: int = 2, threads: int | None = None,
-                 env: Mapping[str, str] | None = None) -> None:
+    def __init__(
+        self,
+        log_path: Path,
+        workers: int = 2,
+        threads: int | None = None,
+        env: Mapping[str, str] | None = None,
+    ) -> None:
         self.port = free_port()
         self.log_path = log_path
-        args = [sys.executable, "-m", "nearwise", "serve", "--bind", f"{HOST}:{self.port}",
-                "--workers", str(workers)]
+        args = [
+            sys.executable,
+            "-m",
+            "nearwise",
+            "serve",
+            "--bind",
+            f"{HOST}:{self.port}",
+            "--workers",
+            str(workers),
+        ]
         if threads is not None:
             args += ["--threads", str(threads)]
         clean = {k: v for k, v in os.environ.items() if not k.startswith("NEARWISE_")}
@@ -211,8 +235,12 @@ class Server:
 
 
 @contextmanager
-def serving(log_path: Path, workers: int = 2, threads: int | None = None,
-            env: Mapping[str, str] | None = None) -> Iterator[Server]:
+def serving(
+    log_path: Path,
+    workers: int = 2,
+    threads: int | None = None,
+    env: Mapping[str, str] | None = None,
+) -> Iterator[Server]:
     server = Server(log_path, workers, threads, env)
     try:
         server.wait_ready()
@@ -256,8 +284,15 @@ def send(conn: http.client.HTTPConnection, kind: Kind) -> tuple[int, bytes, str]
     return resp.status, body, resp.getheader("Retry-After") or ""
 
 
-def client_loop(port: int, kinds: Sequence[Kind], until: float, seed: int,
-                out: list[Sample], stop: threading.Event) -> None:
+def client_loop(
+    port: int,
+    kinds: Sequence[Kind],
+    until: float,
+    seed: int,
+    out: list[Sample],
+    stop: threading.Event,
+    delay: float = 0.0,
+) -> None:
     """One client: one keep-alive connection, requests back to back until ``until``.
 
     After a connection error it opens a new connection. After a 503 it waits the smaller of
@@ -265,6 +300,7 @@ def client_loop(port: int, kinds: Sequence[Kind], until: float, seed: int,
     the worker that accepted it, and only a new one can reach a worker with a free fit slot."""
     pick = random.Random(seed)
     weights = [k.weight for k in kinds]
+    stop.wait(delay)
     conn = http.client.HTTPConnection(HOST, port, timeout=TIMEOUT_S)
     try:
         while time.monotonic() < until and not stop.is_set():
@@ -313,8 +349,15 @@ class HealthPoller:
 
     def __init__(self, port: int, seconds: float, every: float = HEALTH_EVERY_S) -> None:
         self.proc = subprocess.Popen(
-            [sys.executable, __file__, "--poll-health", str(port), f"{seconds:.3f}",
-             "--every", str(every)],
+            [
+                sys.executable,
+                __file__,
+                "--poll-health",
+                str(port),
+                f"{seconds:.3f}",
+                "--every",
+                str(every),
+            ],
             stdin=subprocess.PIPE,
             stdout=subprocess.PIPE,
             text=True,
@@ -378,7 +421,8 @@ class LoadResult:
 
     def errors(self, after: float | None = None) -> Counter:
         return Counter(
-            s.outcome for s in self.samples
+            s.outcome
+            for s in self.samples
             if s.outcome != "200" and (after is None or s.start >= after)
         )
 
@@ -390,8 +434,10 @@ class LoadResult:
         return 1000 * pct([s.latency for s in self.ok(kind)], q)
 
     def table(self) -> str:
-        head = "| kind | sent | ok/s | p50 (ms) | p99 (ms) | max (ms) | errors |\n|---|---|---|---|---|---|---|"
-        lines = [head]
+        lines = [
+            "| kind | sent | ok/s | p50 (ms) | p99 (ms) | max (ms) | errors |",
+            "|---|---|---|---|---|---|---|",
+        ]
         for kind in [*sorted({s.kind for s in self.samples}), None]:
             errs = Counter(s.outcome for s in self.of(kind) if s.outcome != "200")
             lat = [s.latency for s in self.ok(kind)]
@@ -404,11 +450,19 @@ class LoadResult:
         return "\n".join(lines)
 
 
-def run_load(port: int, kinds: Sequence[Kind], seconds: float, concurrency: int = 8,
-             seed: int = 0, health: bool = True,
-             during: callable | None = None) -> LoadResult:  # type: ignore[valid-type]
-    """``concurrency`` client threads for at most ``seconds``. ``during(start)``, when given,
-    runs in this thread while the load goes on; the load stops when it returns."""
+def run_load(
+    port: int,
+    kinds: Sequence[Kind],
+    seconds: float,
+    concurrency: int = 8,
+    seed: int = 0,
+    health: bool = True,
+    during: Callable[[float], None] | None = None,
+    ramp_s: float = RAMP_S,
+) -> LoadResult:
+    """``concurrency`` client threads for at most ``seconds``, client i starting after
+    i x ``ramp_s``. ``during(start)``, when given, runs in this thread while the load goes on;
+    the load stops when it returns."""
     samples: list[Sample] = []
     stop = threading.Event()
     poller = HealthPoller(port, seconds) if health else None
@@ -416,7 +470,9 @@ def run_load(port: int, kinds: Sequence[Kind], seconds: float, concurrency: int 
     until = start + seconds
     threads = [
         threading.Thread(
-            target=client_loop, args=(port, kinds, until, seed + i, samples, stop), daemon=True
+            target=client_loop,
+            args=(port, kinds, until, seed + i, samples, stop, i * ramp_s),
+            daemon=True,
         )
         for i in range(concurrency)
     ]
@@ -465,8 +521,9 @@ class Phase:
                 fails = ", ".join(f"{k}: {v}" for k, v in sorted(h.failures.items())) or "0"
                 parts += [
                     f"/healthz polled {len(h.latencies) + sum(h.failures.values())} times: "
-                    f"p50 {h.p50_ms:.1f} ms, p99 {h.p99_ms:.1f} ms, max {h.max_ms:.1f} ms, "
-                    f"failures {fails}",
+                    f"p50 {h.p50_ms:.1f} ms, p99 {h.p99_ms:.1f} ms, max {h.max_ms:.1f} ms "
+                    f"(slowest: {', '.join(f'{1000 * v:.0f}' for v in sorted(h.latencies)[-5:])} "
+                    f"ms), failures {fails}",
                     "",
                 ]
         parts += [f"- {n}" for n in self.notes]
@@ -489,27 +546,74 @@ def health_check(phase: Phase, bound_ms: float, allowed_failures: int = 0) -> No
     )
     failed = sum(h.failures.values())
     phase.check(
-        f"/healthz failures <= {allowed_failures}", failed <= allowed_failures,
+        f"/healthz failures <= {allowed_failures}",
+        failed <= allowed_failures,
         f"{failed} ({dict(h.failures) or 'none'})",
     )
 
 
-def phase_clean(server: Server, kinds: Mapping[str, Kind], seconds: float, concurrency: int,
-                health_max_ms: float) -> Phase:
+def phase_clean(
+    server: Server,
+    kinds: Mapping[str, Kind],
+    seconds: float,
+    concurrency: int,
+    health_max_ms: float,
+) -> Phase:
     """(a) Mixed load, no fault: no error of any kind."""
     phase = Phase(f"(a) clean: {seconds:g} s, concurrency {concurrency}")
     phase.load = run_load(server.port, mixed(kinds), seconds, concurrency, seed=100)
     errs = phase.load.errors()
-    phase.check("no errors (503 busy included)", not errs,
-                f"{sum(errs.values())} {dict(errs) or ''}".strip())
-    phase.check("every kind was sent", {s.kind for s in phase.load.samples} == set(MIXED),
-                ", ".join(sorted({s.kind for s in phase.load.samples})))
+    phase.check(
+        "no errors (503 busy included)",
+        not errs,
+        f"{sum(errs.values())} {dict(errs) or ''}".strip(),
+    )
+    phase.check(
+        "every kind was sent",
+        {s.kind for s in phase.load.samples} == set(MIXED),
+        ", ".join(sorted({s.kind for s in phase.load.samples})),
+    )
     health_check(phase, health_max_ms)
     return phase
 
 
-def phase_kill(server: Server, kinds: Mapping[str, Kind], before_s: float, after_s: float,
-               concurrency: int, health_max_ms: float) -> Phase:
+def phase_burst(
+    server: Server, kinds: Mapping[str, Kind], seconds: float, concurrency: int
+) -> Phase:
+    """All clients open their connections at the same moment and send small fits. A kept-alive
+    connection stays with the worker that accepted it, so when one worker accepts more
+    connections than it has fit slots, the excess get 503 ``busy`` until they reconnect. The
+    check expects none; it fails while one worker can take the whole burst."""
+    phase = Phase(
+        f"(a2) burst: {concurrency} connections opened at once, small fits, {seconds:g} s"
+    )
+    phase.load = run_load(
+        server.port, [kinds["small"]], seconds, concurrency, seed=300, health=False, ramp_s=0.0
+    )
+    errs = phase.load.errors()
+    busy = [s for s in phase.load.samples if s.outcome == "503 busy"]
+    t0 = min(s.start for s in phase.load.samples)
+    if busy:
+        phase.notes.append(
+            f"503 busy sent within {max(s.start for s in busy) - t0:.2f} s of the start; "
+            "each client reconnects after one"
+        )
+    phase.check(
+        "no errors (503 busy included)",
+        not errs,
+        f"{sum(errs.values())} {dict(errs) or ''}".strip(),
+    )
+    return phase
+
+
+def phase_kill(
+    server: Server,
+    kinds: Mapping[str, Kind],
+    before_s: float,
+    after_s: float,
+    concurrency: int,
+    health_max_ms: float,
+) -> Phase:
     """(b) Mixed load; after ``before_s`` one worker gets SIGKILL. Only the requests it held
     may fail, the master starts a new worker, and once that worker has loaded the app (and
     one second more, for the clients to reconnect) every request succeeds for ``after_s``."""
@@ -536,8 +640,9 @@ def phase_kill(server: Server, kinds: Mapping[str, Kind], before_s: float, after
         when["ready"] = time.monotonic()
         time.sleep(1.0 + after_s)
 
-    phase.load = run_load(server.port, mixed(kinds), before_s + 70 + after_s, concurrency,
-                          seed=200, during=fault)
+    phase.load = run_load(
+        server.port, mixed(kinds), before_s + 70 + after_s, concurrency, seed=200, during=fault
+    )
     after = server.worker_pids()
     kill, ready = when["kill"], when["ready"]
     t0 = min(s.start for s in phase.load.samples)
@@ -546,16 +651,28 @@ def phase_kill(server: Server, kinds: Mapping[str, Kind], before_s: float, after
         f"{when['spawned'] - kill:.2f} s and was accepting connections after {ready - kill:.2f} s "
         f"(it imports the app first); workers before {before}, after {after}"
     )
-    phase.check("the master replaced the killed worker",
-                len(after) == len(before) and victim not in after, f"{before} -> {after}")
+    phase.check(
+        "the master replaced the killed worker",
+        len(after) == len(before) and victim not in after,
+        f"{before} -> {after}",
+    )
     errs = phase.load.errors()
     conn_errors = sum(v for k, v in errs.items() if not k[:1].isdigit())
-    phase.check(f"connection errors <= concurrency ({concurrency})",
-                conn_errors <= concurrency, f"{conn_errors}")
-    early = Counter(
-        s.outcome for s in phase.load.samples if s.outcome != "200" and s.start + s.latency < kill
+    phase.check(
+        f"connection errors <= concurrency ({concurrency})",
+        conn_errors <= concurrency,
+        f"{conn_errors}",
     )
-    phase.check("no error before the kill", not early, f"{dict(early) or 'none'}")
+    early = Counter(
+        s.outcome
+        for s in phase.load.samples
+        if s.outcome not in ("200", "503 busy") and s.start + s.latency < kill
+    )
+    phase.check(
+        "no error but 503 busy before the kill (see phase a2)",
+        not early,
+        f"{dict(early) or 'none'}",
+    )
     other = {k: v for k, v in errs.items() if k[:1].isdigit() and k != "503 busy"}
     phase.check("no HTTP error other than 503 busy", not other, f"{other or 'none'}")
     busy = [s for s in phase.load.samples if s.outcome == "503 busy"]
@@ -625,11 +742,15 @@ def phase_term(server: Server, kinds: Mapping[str, Kind], slow: int) -> Phase:
     exited = time.monotonic()
     in_flight = [r for r in results if r[1] > term]
     phase.notes.append(
-        f"SIGTERM {term - t0:.2f} s after sending; answers came {', '.join(f'{r[1] - term:.2f}' for r in results)} "
-        f"s after it; the master exited {exited - term:.2f} s after it"
+        f"SIGTERM {term - t0:.2f} s after sending; answers came "
+        f"{', '.join(f'{r[1] - term:.2f}' for r in results)} s after it; the master exited "
+        f"{exited - term:.2f} s after it"
     )
-    phase.check("every slow request was still in flight at SIGTERM", len(in_flight) == slow,
-                f"{len(in_flight)} of {slow}")
+    phase.check(
+        "every slow request was still in flight at SIGTERM",
+        len(in_flight) == slow,
+        f"{len(in_flight)} of {slow}",
+    )
     outs = Counter(r[0] for r in results)
     phase.check("each completed with 200", outs == Counter({"200": slow}), f"{dict(outs)}")
     phase.check("the master exited with status 0", rc == 0, f"exit status {rc}")
@@ -638,22 +759,37 @@ def phase_term(server: Server, kinds: Mapping[str, Kind], slow: int) -> Phase:
         refused = False
     except OSError:
         refused = True
-    phase.check("the port is closed afterwards", refused, "connection refused" if refused else "open")
+    phase.check(
+        "the port is closed afterwards", refused, "connection refused" if refused else "open"
+    )
     return phase
 
 
-def run_all(log_dir: Path, seconds: float, kill_before_s: float, kill_after_s: float,
-            concurrency: int = 8,
-            workers: int = 2, threads: int | None = None, slow: int = 4,
-            health_max_ms: float = 100.0) -> list[Phase]:
-    """The three phases on one server: clean, then kill, then term (which stops it)."""
-    kinds = standard_kinds()
+def run_all(
+    log_dir: Path,
+    seconds: float,
+    kill_before_s: float,
+    kill_after_s: float,
+    concurrency: int = 8,
+    workers: int = 2,
+    threads: int | None = None,
+    slow: int = 4,
+    health_max_ms: float = 100.0,
+    slow_rows: int = 2000,
+    burst_s: float = 0.0,
+) -> list[Phase]:
+    """The phases on one server: clean, burst (when ``burst_s`` > 0), kill, then term (which
+    stops the server)."""
+    kinds = standard_kinds(slow_rows)
     phases: list[Phase] = []
     with serving(log_dir / "load-server.log", workers, threads) as server:
         server.warm([kinds[k] for k in MIXED])
         phases.append(phase_clean(server, kinds, seconds, concurrency, health_max_ms))
-        phases.append(phase_kill(server, kinds, kill_before_s, kill_after_s, concurrency,
-                                 health_max_ms))
+        if burst_s > 0:
+            phases.append(phase_burst(server, kinds, burst_s, concurrency))
+        phases.append(
+            phase_kill(server, kinds, kill_before_s, kill_after_s, concurrency, health_max_ms)
+        )
         server.wait_ready()
         server.warm([kinds["small"]], rounds=2)
         phases.append(phase_term(server, kinds, slow))
@@ -663,13 +799,21 @@ def run_all(log_dir: Path, seconds: float, kill_before_s: float, kill_after_s: f
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--duration", type=float, default=60.0, help="seconds of clean load (60)")
-    ap.add_argument("--kill-before", type=float, default=10.0,
-                    help="seconds of load before the SIGKILL (10)")
-    ap.add_argument("--kill-after", type=float, default=20.0,
-                    help="seconds of load once the new worker is ready (20)")
+    ap.add_argument(
+        "--kill-before", type=float, default=10.0, help="seconds of load before the SIGKILL (10)"
+    )
+    ap.add_argument(
+        "--kill-after",
+        type=float,
+        default=20.0,
+        help="seconds of load once the new worker is ready (20)",
+    )
     ap.add_argument("--concurrency", type=int, default=8)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--threads", type=int, default=None, help="default: the service's own")
+    ap.add_argument(
+        "--burst", type=float, default=3.0, help="seconds of the burst phase, 0 to leave it out (3)"
+    )
     ap.add_argument("--slow", type=int, default=4, help="slow requests in flight at SIGTERM")
     ap.add_argument("--health-max-ms", type=float, default=100.0)
     ap.add_argument("--log-dir", type=Path, default=Path("/tmp"))
@@ -680,9 +824,18 @@ def main(argv: list[str] | None = None) -> int:
         port, seconds = int(args.poll_health[0]), float(args.poll_health[1])
         print(json.dumps(poll_health(port, min(seconds, 3600.0), args.every)), flush=True)
         return 0
-    phases = run_all(args.log_dir, args.duration, args.kill_before, args.kill_after,
-                     args.concurrency, args.workers,
-                     args.threads, args.slow, args.health_max_ms)
+    phases = run_all(
+        args.log_dir,
+        args.duration,
+        args.kill_before,
+        args.kill_after,
+        args.concurrency,
+        args.workers,
+        args.threads,
+        args.slow,
+        args.health_max_ms,
+        burst_s=args.burst,
+    )
     print(f"## Load run: {args.workers} workers, concurrency {args.concurrency}\n")
     for phase in phases:
         print(phase.markdown())
