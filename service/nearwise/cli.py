@@ -23,6 +23,7 @@ BLAS_THREADS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 #: Read by prometheus_client when a worker first imports it: where each worker keeps its values.
 METRICS_VARIABLE = "PROMETHEUS_MULTIPROC_DIR"
 SERVE_FLAGS = ("bind", "workers", "threads")
+GIL_SWITCH_S = 0.001
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -164,4 +165,7 @@ class Server(BaseApplication):
     def load(self) -> Any:
         from nearwise.web.app import create_app
 
+        # Fitting threads hold the GIL between native calls; a short switch interval lets a
+        # health check or a refusal on another thread through within a few milliseconds.
+        sys.setswitchinterval(GIL_SWITCH_S)
         return create_app(self.settings, self.fit_pool)

@@ -67,7 +67,7 @@ def test_serve_sets_one_blas_thread_and_gunicorn_defaults(monkeypatch) -> None:
         "MKL_NUM_THREADS": "1",
         "bind": ["127.0.0.1:8080"],
         "workers": 3,
-        "threads": 8,
+        "threads": 10,
         "worker_class": "gthread",
     }
 

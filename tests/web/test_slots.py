@@ -139,5 +139,5 @@ def test_each_app_has_its_own_worker_cap() -> None:
     # gunicorn builds one app per worker process; each caps its own threads.
     a, b = create_app(Settings()), create_app(Settings())
     assert a.extensions["nearwise_slots"] is not b.extensions["nearwise_slots"]
-    assert a.extensions["nearwise_slots"].worker_cap == Settings().worker_fit_cap == 6
+    assert a.extensions["nearwise_slots"].worker_cap == Settings().worker_fit_cap == 8
     assert Settings().fit_slots == 8

@@ -31,7 +31,7 @@ class Settings:
     workers: int = 2
     #: Threads per worker. At most ``worker_fit_cap`` of them fit at once; the others stay
     #: free for health checks and fast 503 answers, so nothing queues behind a long fit.
-    threads: int = 8
+    threads: int = 10
     #: Fits per worker: the service runs at most ``workers * fits_per_worker`` fits at once,
     #: shared by its workers (one worker may run more than its share while another is idle).
     fits_per_worker: int = 4

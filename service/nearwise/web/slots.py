@@ -19,6 +19,7 @@ import functools
 import os
 import random
 import threading
+import time
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TypeVar
@@ -30,6 +31,11 @@ from nearwise.web.problems import Problem
 View = TypeVar("View", bound=Callable[..., Any])
 #: Seconds a refused client is asked to wait: short, since slots free up as fits finish.
 BUSY_RETRY_AFTER_S = 2
+#: Passes over the pool's files before refusing, a short pause apart: under load, a slot is
+#: sometimes freed a moment after a pass has found every file locked (measured at 8 clients on
+#: 8 slots: 1 refusal in about 1,900 requests with a single pass, none in 6,600 with three).
+POOL_PASSES = 3
+POOL_PAUSE_S = 0.01
 
 
 def make_pool(directory: Path, slots: int) -> Path:
@@ -69,6 +75,15 @@ class FitSlots:
     def _take_shared(self) -> int | None:
         if self._shared is not None:
             return -1 if self._shared.acquire(blocking=False) else None
+        for attempt in range(POOL_PASSES):
+            if attempt:
+                time.sleep(POOL_PAUSE_S)
+            token = self._lock_a_file()
+            if token is not None:
+                return token
+        return None
+
+    def _lock_a_file(self) -> int | None:
         start = random.randrange(len(self._files))  # spread the attempts over the files
         for i in range(len(self._files)):
             fd = os.open(self._files[(start + i) % len(self._files)], os.O_RDONLY)
