@@ -143,3 +143,12 @@ def test_a_name_at_the_length_limit_is_read(client) -> None:
     body = {"method": "linear", "target": name, "train": {"columns": ["x", name], "rows": rows}}
     resp = client.post("/v1/predict", json=body)
     assert resp.status_code == 200, resp.get_data(as_text=True)
+
+
+def test_cell_folds_state_the_bounds_they_are_checked_against(doc, client) -> None:
+    folds = {p["name"]: p for p in doc["paths"]["/v1/cell"]["get"]["parameters"]}["folds"]
+    assert (folds["schema"]["minimum"], folds["schema"]["maximum"]) == (2, 50)
+    data = "x=1,2,3,4,5,6,7,8&y=1,2,3,4,5,6,7,9&at=4.5"
+    assert client.get(f"/v1/cell?{data}&folds=51").status_code == 422
+    assert client.get(f"/v1/cell?{data}&folds=1").status_code == 422
+    assert client.get(f"/v1/cell?{data}&folds=2").status_code == 200

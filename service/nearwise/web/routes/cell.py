@@ -92,7 +92,12 @@ _PARAMETERS = [
         default="point",
     ),
     _parameter(
-        "folds", "Folds of the cross-validation (`tuning.folds`).", type="integer", default=5
+        "folds",
+        "Folds of the cross-validation (`tuning.folds`).",
+        type="integer",
+        default=5,
+        minimum=2,
+        maximum=50,
     ),
     _parameter(
         "scheme",
