@@ -90,9 +90,28 @@ def _repaired(draw: st.DrawFn, body: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
+@st.composite
+def _cell_query(draw: st.DrawFn, query: dict[str, Any]) -> dict[str, Any]:
+    """GET /v1/cell parameters with x, y and at as lists of numbers, y as long as x."""
+    n = draw(st.integers(6, MAX_REPAIRED_ROWS))
+    numbers = st.lists(_NUMBERS.map(repr), min_size=n, max_size=n)
+    out = {k: v for k, v in query.items() if k not in ("decimal", "level") or draw(st.booleans())}
+    out["x"] = ",".join(draw(numbers))
+    out["y"] = ",".join(draw(numbers))
+    out["at"] = ",".join(draw(st.lists(_NUMBERS.map(repr), min_size=1, max_size=5)))
+    out.pop("decimal", None)
+    if "method" in out:
+        out["method"] = draw(st.sampled_from([*METHODS, "auto"]))
+    return out
+
+
 def repair_case(context: Any, case: Any) -> st.SearchStrategy[Any]:
     """A ``flatmap_case`` hook: the case as drawn, or one with a repaired JSON body and no
-    query-string fields (they are not read with a JSON body; see the module doc)."""
+    query-string fields (they are not read with a JSON body; see the module doc), or for
+    GET /v1/cell lists of numbers in x, y and at."""
+    if case.operation.path == "/v1/cell" and isinstance(case.query, dict):
+        repaired_query = _cell_query(case.query).map(lambda q: case.derive(query=q, keep_auth=True))
+        return st.one_of(repaired_query, repaired_query, st.just(case))
     body = case.body
     repairable = (
         case.media_type == "application/json"
