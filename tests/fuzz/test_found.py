@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import sys
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -12,6 +14,9 @@ from nearwise.web.app import create_app
 from nearwise.web.openapi import build
 from nearwise.web.schemas import MAX_NAME
 from nearwise.web.settings import Settings
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "web"))
+from webhelpers import request, serving
 
 BOUNDARY = "fuzzboundary"
 DEFAULTS = Settings()
@@ -152,3 +157,15 @@ def test_cell_folds_state_the_bounds_they_are_checked_against(doc, client) -> No
     assert client.get(f"/v1/cell?{data}&folds=51").status_code == 422
     assert client.get(f"/v1/cell?{data}&folds=1").status_code == 422
     assert client.get(f"/v1/cell?{data}&folds=2").status_code == 200
+
+
+def test_an_over_long_request_line_is_a_documented_414(doc, tmp_path) -> None:
+    """Found by the long run: a query string of long `features` names passed gunicorn's
+    request-line limit, and its 414 (its own text/html page) was not in the document."""
+    for path, ops in doc["paths"].items():
+        for op in ops.values():
+            if any(p["in"] == "query" for p in op.get("parameters", ())):
+                assert "text/html" in op["responses"]["414"]["content"], path
+    with serving(tmp_path / "server.log") as port:
+        status, body = request(port, "POST", "/v1/predict?" + "&".join(["features=abcdefgh"] * 500))
+    assert status == 414, body[:200]

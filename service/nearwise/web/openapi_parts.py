@@ -15,6 +15,9 @@ PROBLEM_WHEN = {
     413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked), or a table is "
     "over NEARWISE_MAX_ROWS (NEARWISE_MAX_QUERY_ROWS for a query), NEARWISE_MAX_COLUMNS or "
     "NEARWISE_MAX_CELLS.",
+    414: "The request line (path and query string) is over the HTTP server's limit (4094 "
+    "bytes under `nearwise serve`): the server answers before the service, with its own "
+    "text/html page. Send long field lists as form fields or in a JSON body.",
     415: "The body's media type is not one this endpoint reads.",
     422: "Readable but invalid: unknown field, method or parameter, a bad cell (pointer to "
     "its row and column), too few rows for the folds, an unsupported dimension, a request "
@@ -42,14 +45,16 @@ PROBLEM_HEADERS = {
 }
 
 
+#: Statuses the HTTP server answers itself, before the service sees the request.
+SERVER_ANSWERS = {414: {"text/html": {"schema": {"type": "string"}}}}
+
+
 def problems(*statuses: int) -> dict[str, Any]:
     """``responses`` entries for the given problem statuses."""
     out: dict[str, Any] = {}
     for s in statuses:
-        entry: dict[str, Any] = {
-            "description": PROBLEM_WHEN[s],
-            "content": {"application/problem+json": {"schema": ProblemSchema}},
-        }
+        content = SERVER_ANSWERS.get(s, {"application/problem+json": {"schema": ProblemSchema}})
+        entry: dict[str, Any] = {"description": PROBLEM_WHEN[s], "content": content}
         if s in PROBLEM_HEADERS:
             entry["headers"] = PROBLEM_HEADERS[s]
         out[str(s)] = entry

@@ -133,7 +133,7 @@ _PARAMETERS = [
             },
             "content": {"text/plain": {"schema": {"type": "string"}, "example": "4.48"}},
         },
-        **problems(400, 401, 406, 413, 422, 503),
+        **problems(400, 401, 406, 413, 414, 422, 503),
     },
 )
 def cell() -> Response:

@@ -25,7 +25,7 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
     tags=["predict"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422, 503)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
 )
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
