@@ -107,7 +107,7 @@ def fuzz_operation(
             tally.statuses[response.status_code] += 1
             try:
                 case.validate_response(response, checks=CHECKS)
-            except Exception as exc:  # a check failed: keep one report per kind of failure
+            except (Exception, BaseExceptionGroup) as exc:  # keep one report per kind of failure
                 text = str(exc)
                 key = f"{response.status_code} {text.strip().splitlines()[0]}"
                 tally.failures.setdefault(key, f"[{case.meta.generation.mode.value}] {text}")
