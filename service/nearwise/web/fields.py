@@ -55,17 +55,20 @@ class Scalar(fields.Field):
 
 
 class Rows(fields.Field):
-    """Table rows: an array of arrays of cells, parsed later in one vectorised pass."""
+    """Table rows: an array of arrays of cells, parsed later in one vectorised pass.
+
+    ``width`` is the most cells per row the document states (the table's column limit); the
+    rows are checked against the columns when parsed.
+    """
 
     default_error_messages = {"invalid": "Not a valid list of rows."}  # noqa: RUF012
 
-    def __init__(self, **kwargs: Any) -> None:
+    def __init__(self, width: int | None = None, **kwargs: Any) -> None:
         cell = {"type": ["number", "string", "null"]}
-        kwargs["metadata"] = {
-            "type": "array",
-            "items": {"type": "array", "items": cell},
-            **kwargs.get("metadata", {}),
-        }
+        row: dict[str, Any] = {"type": "array", "items": cell}
+        if width is not None:
+            row["maxItems"] = width
+        kwargs["metadata"] = {"type": "array", "items": row, **kwargs.get("metadata", {})}
         super().__init__(**kwargs)
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> list[Any]:

@@ -148,6 +148,12 @@ def _split_parts(items: list[tuple[str, Any]]) -> tuple[dict[str, list[bytes]], 
     parts: dict[str, list[bytes]] = {}
     rest = MultiDict()
     for name, item in items:
+        if not name:
+            raise Problem(
+                400,
+                "A multipart part has no readable name: its Content-Disposition header needs "
+                'name="..." (train, query or a field name) on one line.',
+            )
         if name in TABLES:
             data = item.read() if isinstance(item, FileStorage) else item.encode()
             parts.setdefault(name, []).append(data)

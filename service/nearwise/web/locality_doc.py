@@ -12,16 +12,19 @@ from nearwise.web.fields import Number, StrictInteger
 from nearwise.web.openapi_parts import FORM_RULES, form_fields
 from nearwise.web.predict_doc import DIALECT_PARAMETERS
 from nearwise.web.responses import WarningSchema
-from nearwise.web.schemas import Strict, TableSchema, _doc
+from nearwise.web.schemas import DEFAULTS, QueryTableSchema, Strict, TableSchema, _doc, _name
 
 
 class LocalityFields(Strict):
     """Every request field except the tables (the form-field view of a request)."""
 
     features = fields.List(
-        fields.String(),
+        _name(),
         validate=validate.Length(min=1),
-        metadata=_doc("Columns to measure; default: every column of `train`."),
+        metadata=_doc(
+            "Columns to measure; default: every column of `train`.",
+            maxItems=DEFAULTS.max_columns,
+        ),
     )
     k = StrictInteger(
         validate=validate.Range(min=1),
@@ -29,6 +32,7 @@ class LocalityFields(Strict):
             "A neighborhood of k rows (at most the training rows) to add to the table and "
             "judge for `not_local`. Not with `fraction`.",
             example=10,
+            maximum=DEFAULTS.max_rows,
         ),
     )
     fraction = Number(
@@ -51,7 +55,9 @@ class LocalityFields(Strict):
 
 class LocalityRequest(LocalityFields):
     train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
-    query = fields.Nested(TableSchema, metadata=_doc("Rows to judge; holds the feature columns."))
+    query = fields.Nested(
+        QueryTableSchema, metadata=_doc("Rows to judge; holds the feature columns.")
+    )
 
 
 def _num(text: str, nullable: bool = False) -> fields.Float:

@@ -4,45 +4,109 @@ from __future__ import annotations
 
 from typing import Any
 
-from marshmallow import Schema, fields
+from marshmallow import Schema, fields, validate
 
 from nearwise.web.responses import ProblemSchema
 
 PROBLEM_WHEN = {
     400: "Unreadable body: not JSON, not CSV, not UTF-8, or a malformed multipart body.",
-    401: "An API key is required (NEARWISE_API_KEYS is set): send `Authorization: Bearer <key>`.",
+    401: "An API key is required (NEARWISE_API_KEYS is set) and none or a wrong one was sent: "
+    "send `Authorization: Bearer <key>`.",
     406: "The Accept header allows none of the media types this endpoint answers.",
     413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked), or a table is "
-    "over NEARWISE_MAX_ROWS, NEARWISE_MAX_COLUMNS or NEARWISE_MAX_CELLS.",
+    "over NEARWISE_MAX_ROWS (NEARWISE_MAX_QUERY_ROWS for a query), NEARWISE_MAX_COLUMNS or "
+    "NEARWISE_MAX_CELLS.",
+    414: "The request line (path and query string) is over the HTTP server's limit (4094 "
+    "bytes under `nearwise serve`): the server answers before the service, with its own "
+    "text/html page. Send long field lists as form fields or in a JSON body.",
     415: "The body's media type is not one this endpoint reads.",
     422: "Readable but invalid: unknown field, method or parameter, a bad cell (pointer to "
-    "its row and column), too few rows for the folds, an unsupported dimension, ...",
-    503: "The fit ran past NEARWISE_TIME_BUDGET_S (code `time_budget_exceeded`); the "
+    "its row and column), too few rows for the folds, an unsupported dimension, a request "
+    "over a limit of the service (code `over_limit`: grid size, folds x repeats, methods, "
+    "estimated cost; the problem names the limit), ...",
+    503: "Try again later: the fit ran past NEARWISE_TIME_BUDGET_S (code "
+    "`time_budget_exceeded`), or every fit slot of the worker is taken (code `busy`). The "
     "`Retry-After` header gives the seconds to wait.",
 }
+#: Response headers of a problem, by status.
+PROBLEM_HEADERS = {
+    401: {
+        "WWW-Authenticate": {
+            "description": "How to authenticate: the `X-API-Key` header.",
+            "schema": {"type": "string"},
+        }
+    },
+    503: {
+        "Retry-After": {
+            "description": "Seconds to wait before trying again.",
+            "required": True,
+            "schema": {"type": "integer", "minimum": 0},
+        }
+    },
+}
+
+
+#: Statuses the HTTP server answers itself, before the service sees the request.
+SERVER_ANSWERS = {414: {"text/html": {"schema": {"type": "string"}}}}
 
 
 def problems(*statuses: int) -> dict[str, Any]:
     """``responses`` entries for the given problem statuses."""
-    return {
-        str(s): {
-            "description": PROBLEM_WHEN[s],
-            "content": {"application/problem+json": {"schema": ProblemSchema}},
-        }
-        for s in statuses
-    }
+    out: dict[str, Any] = {}
+    for s in statuses:
+        content = SERVER_ANSWERS.get(s, {"application/problem+json": {"schema": ProblemSchema}})
+        entry: dict[str, Any] = {"description": PROBLEM_WHEN[s], "content": content}
+        if s in PROBLEM_HEADERS:
+            entry["headers"] = PROBLEM_HEADERS[s]
+        out[str(s)] = entry
+    return out
 
 
 def _kind(field: fields.Field) -> dict[str, Any]:
+    """The JSON Schema of a form field or query parameter, with the field's bounds."""
     if isinstance(field, fields.String):
-        return {"type": "string"}
-    if isinstance(field, fields.Integer):
-        return {"type": "integer"}
-    if isinstance(field, fields.Number):
-        return {"type": "number"}
-    if isinstance(field, fields.List):
-        return {"type": "array", "items": _kind(field.inner)}
-    return {"type": ["string", "number", "boolean"]}
+        out: dict[str, Any] = {"type": "string"}
+    elif isinstance(field, fields.Integer):
+        out = {"type": "integer"}
+    elif isinstance(field, fields.Number):
+        out = {"type": "number"}
+    elif isinstance(field, fields.Boolean):
+        out = {"type": "boolean"}
+    elif isinstance(field, fields.List):
+        out = {"type": "array", "items": _kind(field.inner)}
+    else:
+        out = {"type": ["string", "number", "boolean"]}
+    array = out["type"] == "array"
+    for v in field.validators:
+        if isinstance(v, validate.Range):
+            if v.min is not None:
+                out["minimum" if v.min_inclusive else "exclusiveMinimum"] = v.min
+            if v.max is not None:
+                out["maximum" if v.max_inclusive else "exclusiveMaximum"] = v.max
+        elif isinstance(v, validate.Length):
+            low, high = ("minItems", "maxItems") if array else ("minLength", "maxLength")
+            if v.min is not None:
+                out[low] = v.min
+            if v.max is not None:
+                out[high] = v.max
+        elif isinstance(v, validate.OneOf):
+            out["enum"] = list(v.choices)
+    out.update({k: field.metadata[k] for k in _BOUNDS if k in field.metadata})
+    return out
+
+
+_BOUNDS = (
+    "enum",
+    "minimum",
+    "maximum",
+    "exclusiveMinimum",
+    "exclusiveMaximum",
+    "minItems",
+    "maxItems",
+    "uniqueItems",
+    "minLength",
+    "maxLength",
+)
 
 
 def form_fields(schema: Schema) -> dict[str, dict[str, Any]]:

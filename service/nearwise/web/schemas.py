@@ -1,18 +1,34 @@
 """Request, response and problem schemas. Unknown fields are refused everywhere.
 
-The request schemas check the envelope only (types, required fields, size caps); the core
-checks method names, parameter values and the numbers. Response schemas document the answers;
-predictions are written directly (not through marshmallow) for speed.
+The request schemas check the envelope only (types, required fields, name lengths, grid
+size); the core checks method names, parameter values and the numbers. The size bounds the
+document states (``maxItems`` of rows, columns, query rows, grid values and methods) are those of
+the default :class:`Settings`, the ones the document is generated with; the service checks
+the limits in force (table sizes give a 413 naming the table). Response schemas document the
+answers; predictions are written directly (not through marshmallow) for speed.
 """
 
 from __future__ import annotations
 
 from marshmallow import RAISE, Schema, fields, validate
 
+from nearwise.core.methods import METHODS
 from nearwise.core.spec import INTERVAL_KINDS, METRICS, RULES, SCHEMES
 from nearwise.web.fields import Number, Rows, Scalar, StrictInteger
+from nearwise.web.settings import Settings
 
-MAX_GRID = 200
+#: The limits the document states: those of the default settings.
+DEFAULTS = Settings()
+MAX_GRID = DEFAULTS.max_grid
+#: Longest name (column, target, feature, method, parameter) in a JSON request, in characters.
+MAX_NAME = 256
+#: The method names ``method`` accepts.
+METHOD_NAMES = (*METHODS, "auto")
+
+
+def _name(**kwargs: object) -> fields.String:
+    """A column, method or parameter name: at most MAX_NAME characters."""
+    return fields.String(validate=validate.Length(max=MAX_NAME), **kwargs)  # type: ignore[arg-type]
 
 
 def _doc(text: str, **more: object) -> dict[str, object]:
@@ -24,20 +40,42 @@ class Strict(Schema):
         unknown = RAISE
 
 
+def _rows_doc(limit: int, setting: str) -> dict[str, object]:
+    return _doc(
+        "One array per row, one cell per column: a number, null (missing) or text (only in "
+        f"the `tuning.group_by` column). At most {limit} rows ({setting}), at most "
+        f"{DEFAULTS.max_columns} cells per row and {DEFAULTS.max_cells} cells in all "
+        "(NEARWISE_MAX_CELLS); a larger table is a 413.",
+        example=[[7.1, 812.0], [7.4, None]],
+        maxItems=limit,
+    )
+
+
 class TableSchema(Strict):
     columns = fields.List(
-        fields.String(),
+        _name(),
         required=True,
         validate=validate.Length(min=1),
-        metadata=_doc("Column names, unique.", example=["wind_ms", "power_kw"]),
+        metadata=_doc(
+            f"Column names, unique; at most {DEFAULTS.max_columns} (NEARWISE_MAX_COLUMNS).",
+            example=["wind_ms", "power_kw"],
+            maxItems=DEFAULTS.max_columns,
+        ),
     )
     rows = Rows(
+        DEFAULTS.max_columns,
         required=True,
-        metadata=_doc(
-            "One array per row, one cell per column: a number, null (missing) or text (only in "
-            "the `tuning.group_by` column).",
-            example=[[7.1, 812.0], [7.4, None]],
-        ),
+        metadata=_rows_doc(DEFAULTS.max_rows, "NEARWISE_MAX_ROWS"),
+    )
+
+
+class QueryTableSchema(TableSchema):
+    """A query table: the same shape, with its own row limit."""
+
+    rows = Rows(
+        DEFAULTS.max_columns,
+        required=True,
+        metadata=_rows_doc(DEFAULTS.max_query_rows, "NEARWISE_MAX_QUERY_ROWS"),
     )
 
 
@@ -71,7 +109,7 @@ class TuningSchema(Strict):
         validate=validate.OneOf(METRICS),
         metadata=_doc("Cross-validated error measure.", default="rmse"),
     )
-    group_by = fields.String(
+    group_by = _name(
         metadata=_doc(
             "A train column; rows sharing a value stay in one fold. Not a feature by default."
         )
@@ -104,22 +142,25 @@ class IntervalSchema(Strict):
 class _JobFields(Strict):
     """The fields predict and compare share, except the tables."""
 
-    target = fields.String(required=True, metadata=_doc("Column of `train` to predict."))
+    target = _name(required=True, metadata=_doc("Column of `train` to predict."))
     features = fields.List(
-        fields.String(),
+        _name(),
         validate=validate.Length(min=1),
-        metadata=_doc("Input columns; default: all but `target` and `tuning.group_by`."),
+        metadata=_doc(
+            "Input columns; default: all but `target` and `tuning.group_by`.",
+            maxItems=DEFAULTS.max_columns,
+        ),
     )
     params = fields.Dict(
-        keys=fields.String(),
+        keys=_name(),
         values=Scalar(),
         metadata=_doc("Fixed parameter values; a fixed parameter is not tuned.", example={"k": 10}),
     )
     grid = fields.Dict(
-        keys=fields.String(),
+        keys=_name(),
         values=fields.List(Number(), validate=validate.Length(1, MAX_GRID)),
         metadata=_doc(
-            f"Candidate values per tunable parameter (at most {MAX_GRID} each).",
+            f"Candidate values per tunable parameter (at most {MAX_GRID} each, NEARWISE_MAX_GRID).",
             example={"k": [1, 3, 5, 9, 15]},
         ),
     )
@@ -136,6 +177,7 @@ class PredictFields(_JobFields):
             "`knn`, `linear`, `spline` or `additive`, or `auto` (compare them on the same "
             "folds and use the recommended one); see GET /v1/methods.",
             example="spline",
+            enum=list(METHOD_NAMES),
         ),
     )
 
@@ -144,11 +186,14 @@ class CompareFields(_JobFields):
     """Every compare field except the tables."""
 
     methods = fields.List(
-        fields.String(),
-        validate=validate.Length(1, 10),
+        fields.String(metadata={"enum": list(METHODS)}),
+        validate=validate.Length(min=1),
         metadata=_doc(
-            "Methods to compare; default: every method that applies to the number of features.",
+            "Methods to compare, each once; default: every method that applies to the number "
+            f"of features. At most {DEFAULTS.max_methods} (NEARWISE_MAX_METHODS).",
             example=["knn", "linear", "spline", "additive"],
+            maxItems=DEFAULTS.max_methods,
+            uniqueItems=True,
         ),
     )
 
@@ -156,7 +201,7 @@ class CompareFields(_JobFields):
 class _Tables(Strict):
     train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
     query = fields.Nested(
-        TableSchema,
+        QueryTableSchema,
         metadata=_doc(
             "Rows to predict at; it holds at least the feature columns. Absent: predict at the "
             "training rows (fitted values, with `residual`)."
@@ -171,7 +216,7 @@ class CompareRequest(CompareFields, _Tables):
 class PredictRequest(PredictFields):
     train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
     query = fields.Nested(
-        TableSchema,
+        QueryTableSchema,
         metadata=_doc(
             "Rows to predict at; it holds at least the feature columns. Absent: predict at the "
             "training rows (fitted values, with `residual`)."

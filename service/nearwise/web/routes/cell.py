@@ -95,7 +95,12 @@ _PARAMETERS = [
         default="point",
     ),
     _parameter(
-        "folds", "Folds of the cross-validation (`tuning.folds`).", type="integer", default=5
+        "folds",
+        "Folds of the cross-validation (`tuning.folds`).",
+        type="integer",
+        default=5,
+        minimum=2,
+        maximum=50,
     ),
     _parameter(
         "scheme",
@@ -131,7 +136,7 @@ _PARAMETERS = [
             },
             "content": {"text/plain": {"schema": {"type": "string"}, "example": "4.48"}},
         },
-        **problems(400, 401, 406, 413, 422, 503),
+        **problems(400, 401, 406, 413, 414, 422, 503),
     },
 )
 @fitting

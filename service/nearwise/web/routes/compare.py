@@ -64,7 +64,7 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
                 },
             },
         },
-        **problems(400, 401, 406, 413, 415, 422, 503),
+        **problems(400, 401, 406, 413, 414, 415, 422, 503),
     },
 )
 @fitting

@@ -31,7 +31,7 @@ bp = Blueprint("locality", __name__, url_prefix="/v1")
     tags=["locality"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422, 503)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
 )
 @fitting
 def locality() -> Response:

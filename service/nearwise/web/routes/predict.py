@@ -27,7 +27,7 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
     tags=["predict"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 415, 422, 503)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
 )
 @fitting
 def predict() -> Response:
