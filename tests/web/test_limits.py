@@ -75,3 +75,11 @@ def test_an_over_cost_request_is_422_with_the_rows_that_would_fit(path: str) -> 
 
 def test_the_default_limits_let_the_samples_through(client) -> None:
     assert client.post("/v1/predict", json=body()).status_code == 200
+
+
+def test_a_raised_grid_limit_is_honoured() -> None:
+    grid = {"k": list(range(1, 251))}  # over the default 200
+    assert problem(_client().post("/v1/predict", json=body(grid=grid)), 422)["code"] == "over_limit"
+    rows = curve(400)
+    req = body(grid=grid, train={"columns": ["x", "y"], "rows": rows})
+    assert _client(max_grid=300).post("/v1/predict", json=req).status_code == 200

@@ -25,14 +25,14 @@ PROBLEM_WHEN = {
     "over a limit of the service (code `over_limit`: grid size, folds x repeats, methods, "
     "estimated cost; the problem names the limit), ...",
     503: "Try again later: the fit ran past NEARWISE_TIME_BUDGET_S (code "
-    "`time_budget_exceeded`), or every fit slot of the worker is taken (code `busy`). The "
+    "`time_budget_exceeded`), or every fit slot of the service is taken (code `busy`). The "
     "`Retry-After` header gives the seconds to wait.",
 }
 #: Response headers of a problem, by status.
 PROBLEM_HEADERS = {
     401: {
         "WWW-Authenticate": {
-            "description": "How to authenticate: the `X-API-Key` header.",
+            "description": "How to authenticate: `Bearer` with one of the keys.",
             "schema": {"type": "string"},
         }
     },

@@ -158,7 +158,11 @@ class _JobFields(Strict):
     )
     grid = fields.Dict(
         keys=_name(),
-        values=fields.List(Number(), validate=validate.Length(1, MAX_GRID)),
+        # The length is checked against the live NEARWISE_MAX_GRID by the core (422
+        # over_limit); the document states the default.
+        values=fields.List(
+            Number(), validate=validate.Length(min=1), metadata={"maxItems": MAX_GRID}
+        ),
         metadata=_doc(
             f"Candidate values per tunable parameter (at most {MAX_GRID} each, NEARWISE_MAX_GRID).",
             example={"k": [1, 3, 5, 9, 15]},
