@@ -334,8 +334,6 @@ def test_resources_have_requests_and_limits() -> None:
         request = quantity(resources["requests"][kind])
         limit = quantity(resources["limits"][kind])
         assert 0 < request <= limit, kind
-    # Each worker's fits use one BLAS thread, so the workers are what can use the CPU limit.
-    assert quantity(resources["limits"]["cpu"]) <= KUBE_SETTINGS.workers
 
 
 def test_service_hpa_and_budget_point_at_the_deployment() -> None:
