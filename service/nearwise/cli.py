@@ -156,6 +156,7 @@ class Server(BaseApplication):
             "proc_name": "nearwise",
             "timeout": 30,
             "graceful_timeout": s.graceful_timeout_s,
+            "worker_tmp_dir": "/dev/shm" if os.path.isdir("/dev/shm") else None,  # heartbeat in RAM
         }
         if "control_socket_disable" in self.cfg.settings:  # gunicorn >= 25.1: no shared socket
             options["control_socket_disable"] = True
