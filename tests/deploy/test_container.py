@@ -132,9 +132,8 @@ class Container:
             "run", "--detach", "--network", "host",
             "--read-only", "--tmpfs", "/tmp", "--user", self.user,
             "--cap-drop", "ALL", "--security-opt", "no-new-privileges",
-            "--env", f"NEARWISE_BIND=127.0.0.1:{self.port}",
             "--health-interval", "1s", "--health-timeout", "3s", "--health-start-period", "60s",
-            image,
+            image, "--bind", f"127.0.0.1:{self.port}",
         )  # fmt: skip
 
     def state(self, field: str) -> str:

@@ -186,8 +186,12 @@ def test_entrypoint_is_exec_form_and_serves() -> None:
     entry = [rest for word, rest in RUNTIME if word == "ENTRYPOINT"]
     assert len(entry) == 1
     argv = json.loads(entry[0])  # exec form is a JSON array; shell form is not
-    assert argv == ["nearwise", "serve"]
-    assert not [rest for word, rest in RUNTIME if word == "CMD"], "the bind is NEARWISE_BIND"
+    assert argv == ["nearwise", "serve", "--bind", "0.0.0.0:8080"]
+    assert not [rest for word, rest in RUNTIME if word == "CMD"], "arguments are appended"
+
+
+#: The bind of the image's entrypoint: reachable from outside the container.
+IMAGE_BIND = json.loads(next(rest for word, rest in RUNTIME if word == "ENTRYPOINT"))[-1]
 
 
 def test_runtime_environment() -> None:
@@ -197,12 +201,12 @@ def test_runtime_environment() -> None:
     assert IMAGE_ENV.get("MPLCONFIGDIR", "").startswith("/tmp/"), "the one writable place"
     names = {k for k in IMAGE_ENV if k.startswith(PREFIX)}
     assert names <= SETTING_NAMES, names - SETTING_NAMES
-    settings = settings_from({k: IMAGE_ENV[k] for k in names})
-    assert settings.bind.startswith("0.0.0.0:"), "reachable from outside the container"
+    settings_from({k: IMAGE_ENV[k] for k in names})  # each value is one the service accepts
+    assert "NEARWISE_BIND" not in names, "the entrypoint's --bind would override it"
 
 
 def test_exposed_port_and_healthcheck_follow_the_bind() -> None:
-    port = port_of(IMAGE_ENV["NEARWISE_BIND"])
+    port = port_of(IMAGE_BIND)
     exposed = [int(rest.split("/")[0]) for word, rest in RUNTIME if word == "EXPOSE"]
     assert exposed == [port]
     health = [rest for word, rest in RUNTIME if word == "HEALTHCHECK"]
@@ -221,7 +225,25 @@ def test_healthcheck_script_reads_the_port_from_the_bind() -> None:
     assert module.health_url("0.0.0.0:8080") == "http://127.0.0.1:8080/healthz"
     assert module.health_url("127.0.0.1:18431") == "http://127.0.0.1:18431/healthz"
     assert module.health_url("[::]:9000") == "http://[::1]:9000/healthz"
-    assert module.DEFAULT_BIND == IMAGE_ENV["NEARWISE_BIND"]
+    assert module.DEFAULT_BIND == IMAGE_BIND
+    # The bind the server runs with: the last --bind of its command line, else the variable.
+    entry = [
+        "/opt/nearwise/bin/python",
+        "/opt/nearwise/bin/nearwise",
+        "serve",
+        "--bind",
+        IMAGE_BIND,
+    ]
+    assert module.effective_bind(entry, {}) == IMAGE_BIND
+    assert module.effective_bind([*entry, "--bind", "127.0.0.1:9001"], {}) == "127.0.0.1:9001"
+    assert module.effective_bind([*entry, "--bind=127.0.0.1:9002"], {}) == "127.0.0.1:9002"
+    assert module.effective_bind([], {"NEARWISE_BIND": "127.0.0.1:9003"}) == "127.0.0.1:9003"
+    # A key is sent only when /healthz needs one.
+    assert module.headers({}) == {}
+    assert module.headers({"NEARWISE_API_KEYS": "a,b"}) == {}
+    closed = {"NEARWISE_API_KEYS": "a,b", "NEARWISE_OPEN_ENDPOINTS": "/metrics"}
+    assert module.headers(closed) == {"Authorization": "Bearer a"}
+    assert Settings.from_env(closed).open_endpoints == ("/metrics",)
     assert "/healthz" in {r.rule for r in create_app(Settings()).url_map.iter_rules()}
 
 
@@ -281,8 +303,8 @@ def test_kubernetes_env_names_are_settings() -> None:
 
 def test_kubernetes_port_matches_the_bind() -> None:
     (port,) = CONTAINER["ports"]
-    assert port["containerPort"] == port_of(KUBE_SETTINGS.bind)
-    assert KUBE_SETTINGS.bind.startswith("0.0.0.0:")
+    assert port["containerPort"] == port_of(IMAGE_BIND)
+    assert "NEARWISE_BIND" not in KUBE_ENV, "the entrypoint's --bind would override it"
     annotations = DEPLOYMENT["spec"]["template"]["metadata"].get("annotations", {})
     if "prometheus.io/port" in annotations:
         assert int(annotations["prometheus.io/port"]) == port["containerPort"]
@@ -298,7 +320,8 @@ def test_probes_use_existing_routes(routes: set[str]) -> None:
     assert probes["readinessProbe"]["httpGet"]["path"] == "/readyz"
     assert probes["livenessProbe"]["httpGet"]["path"] == "/healthz"
     assert probes["livenessProbe"]["timeoutSeconds"] == 1
-    assert KUBE_SETTINGS.threads > KUBE_SETTINGS.fit_slots, "a thread stays free for probes"
+    free = KUBE_SETTINGS.threads - KUBE_SETTINGS.worker_fit_cap
+    assert free >= 2, "threads stay free for probes while every fit slot is busy"
 
 
 def test_grace_period_covers_pre_stop_and_graceful_timeout() -> None:
@@ -334,6 +357,20 @@ def test_resources_have_requests_and_limits() -> None:
         request = quantity(resources["requests"][kind])
         limit = quantity(resources["limits"][kind])
         assert 0 < request <= limit, kind
+
+
+#: Peak memory of one fit at the row limit and of an idle worker, in GiB, as measured by
+#: tests/benchmarks/report.py (the README's Performance section): the worst case is kNN on
+#: 250,000 rows.
+PEAK_FIT_GIB = 1.6
+WORKER_GIB = 0.2
+
+
+def test_memory_limit_holds_every_fit_slot_at_the_row_limit() -> None:
+    limit = quantity(CONTAINER["resources"]["limits"]["memory"]) / 2**30
+    s = KUBE_SETTINGS
+    assert s.max_rows == Settings().max_rows, "the measured peak is for the default row limit"
+    assert s.workers * WORKER_GIB + s.fit_slots * PEAK_FIT_GIB <= limit
 
 
 def test_service_hpa_and_budget_point_at_the_deployment() -> None:
@@ -386,7 +423,8 @@ def test_compose_service_builds_the_image_and_runs_read_only() -> None:
     assert "/tmp" in service["tmpfs"]
     assert service["deploy"]["replicas"] >= 2
     settings = compose_settings()
-    assert [int(p) for p in service["expose"]] == [port_of(settings.bind)]
+    assert "NEARWISE_BIND" not in service["environment"], "the entrypoint's --bind wins"
+    assert [int(p) for p in service["expose"]] == [port_of(IMAGE_BIND)]
     grace = float(service["stop_grace_period"].removesuffix("s"))
     assert grace > settings.graceful_timeout_s
     nginx_dockerfile = dockerfile(DOCKER / "nginx" / "Dockerfile")
@@ -400,7 +438,8 @@ def test_nginx_upstream_and_listen_agree_with_compose() -> None:
     settings = compose_settings()
     servers = nginx_values("server")
     upstream_servers = [args[0] for args in servers if args and ":" in args[0]]
-    assert upstream_servers == [f"nearwise:{port_of(settings.bind)}"]
+    assert upstream_servers == [f"nearwise:{port_of(IMAGE_BIND)}"]
+    assert settings.fit_slots >= 1
     assert "nearwise" in COMPOSE["services"]
     (listen,) = nginx_values("listen")
     nginx = COMPOSE["services"]["nginx"]

@@ -65,8 +65,9 @@ def _repaired(draw: st.DrawFn, body: dict[str, Any]) -> dict[str, Any]:
         out.pop("tuning", None)
     else:
         out["tuning"] = tuning
-    if "target" not in body:  # locality: no target, features from every column
+    if "target" not in body:  # locality: no target or tuning, features from every column
         out.pop("target")
+        out.pop("tuning", None)
         others = names
     if draw(st.booleans()) or "features" not in out:
         out.pop("features", None)
