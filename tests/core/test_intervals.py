@@ -66,3 +66,38 @@ def test_ranks_and_unbounded_ends():
     assert intervals.ranks(8, 0.9) == (0, 9)  # too few rows: both ends unbounded at 90 %
     lower, upper = intervals.cv_plus(np.zeros((2, 3)), np.arange(8) % 2, np.ones(8), 0.9)
     assert np.isneginf(lower).all() and np.isposinf(upper).all()
+
+
+@pytest.mark.parametrize("upper", [False, True])
+@pytest.mark.parametrize("adaptive", [False, True])
+def test_kth_of_folds_direct_and_bisection_agree_with_the_definition(upper, adaptive) -> None:
+    """The k-th smallest of {mu_f(x) -/+ spread(x) s : s in fold f's scores}, by its definition
+    (every candidate sorted), by the direct partition and by the bisection used for large
+    blocks; an undefined residual counts as +inf (it widens both ends)."""
+    from nearwise.core import intervals
+
+    rng = np.random.default_rng(5)
+    folds, m = 5, 7
+    parts = [np.sort(np.abs(rng.normal(0, 1, 40 + f))) for f in range(folds)]
+    parts[2][-1] = np.inf
+    mu = rng.normal(0, 3, (folds, m))
+    spread = rng.uniform(0.5, 2.0, m) if adaptive else np.ones(m)
+    sign = 1.0 if upper else -1.0
+    with np.errstate(invalid="ignore"):
+        every = np.concatenate(
+            [mu[f][None, :] + sign * spread[None, :] * s[:, None] for f, s in enumerate(parts)]
+        )
+    n = every.shape[0]
+    for k in (2, 17, n // 2, n - 1):  # as cv_plus asks: past the one infinite candidate
+        want = np.sort(every, axis=0)[k - 1]
+        direct = intervals._kth_of_folds(mu, parts, spread, k, upper)
+        old = intervals.CHUNK_CELLS
+        intervals.CHUNK_CELLS = 0  # force the bisection
+        try:
+            bisect = intervals._kth_of_folds(mu, parts, spread, k, upper)
+        finally:
+            intervals.CHUNK_CELLS = old
+        np.testing.assert_array_equal(direct, want)  # the same sums, exactly
+        # Bisection stops at the smallest value whose count reaches k: equal up to the
+        # rounding of (v - mu) / spread, a few units in the last place.
+        np.testing.assert_allclose(bisect, want, rtol=1e-13, atol=1e-13)

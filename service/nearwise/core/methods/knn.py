@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy.spatial import cKDTree
 from sklearn.neighbors import NearestNeighbors
 
 from nearwise.core.data import SCALES, Scaler
@@ -30,7 +31,7 @@ WIDE_FRACTION = 0.5  # wide_neighborhood: neighbors spanning more than this shar
 
 
 def _query(
-    index: NearestNeighbors, Xq: np.ndarray, width: int, n_index: int, self_rows: np.ndarray | None
+    index: Index, Xq: np.ndarray, width: int, n_index: int, self_rows: np.ndarray | None
 ) -> tuple[np.ndarray, np.ndarray]:
     """Sorted distances and indices of the ``width`` nearest indexed rows.
 
@@ -111,7 +112,7 @@ def _with_ties(d: np.ndarray, yn: np.ndarray, kmax: int, weights: str) -> np.nda
 
 
 def predict_all_k(
-    index: NearestNeighbors,
+    index: Index,
     y_index: np.ndarray,
     Xq: np.ndarray,
     kmax: int,
@@ -140,7 +141,7 @@ def predict_all_k(
     return out
 
 
-def _complete_windows(index: NearestNeighbors, Xq: np.ndarray, need: int, n_index: int):
+def _complete_windows(index: Index, Xq: np.ndarray, need: int, n_index: int):
     """Yield ``(rows, d, ind)`` groups whose windows hold the ``need`` nearest neighbors and
     every row tied with the last of them (widening the query where a tie run is cut off)."""
     rows = np.arange(Xq.shape[0])
@@ -158,8 +159,43 @@ def _complete_windows(index: NearestNeighbors, Xq: np.ndarray, need: int, n_inde
         width = min(2 * width, n_index)
 
 
-def _index(Xs: np.ndarray) -> NearestNeighbors:
-    return NearestNeighbors().fit(Xs)
+#: Above this many features neighbors are found by computing every distance, as scikit-learn's
+#: own automatic choice does; a KD-tree searches at or below it.
+BRUTE_ABOVE = 15
+
+
+class Index:
+    """Sorted nearest-neighbor search over the rows it was built on.
+
+    scipy's ``cKDTree`` at or below BRUTE_ABOVE features, scikit-learn's exhaustive search
+    above. Queried directly, the tree skips an estimator's per-call input checks and dispatch,
+    which cost more than the search itself for small requests. Which engine finds the
+    neighbors does not change an answer: runs of tied distances are always completed (see
+    :func:`predict_all_k`), and tests compare the predictions with scikit-learn's.
+    """
+
+    def __init__(self, Xs: np.ndarray) -> None:
+        self.n_samples_fit_, self.n_features_in_ = Xs.shape
+        data = np.ascontiguousarray(Xs, dtype=float)
+        if self.n_features_in_ <= BRUTE_ABOVE:
+            self._tree: cKDTree | None = cKDTree(data)
+            self._brute = None
+        else:
+            self._tree = None
+            self._brute = NearestNeighbors(algorithm="brute").fit(data)
+
+    def kneighbors(self, Xq: np.ndarray, n_neighbors: int) -> tuple[np.ndarray, np.ndarray]:
+        """Distances and indices of the ``n_neighbors`` nearest rows, nearest first."""
+        if self._tree is None:
+            return self._brute.kneighbors(Xq, n_neighbors=n_neighbors)
+        d, ind = self._tree.query(
+            np.ascontiguousarray(Xq, dtype=float), k=[*range(1, n_neighbors + 1)]
+        )
+        return d, ind.astype(np.intp, copy=False)
+
+
+def _index(Xs: np.ndarray) -> Index:
+    return Index(Xs)
 
 
 @dataclass(frozen=True)
@@ -167,7 +203,7 @@ class FoldKNN:
     """The neighbor index of one training fold."""
 
     scaler: Scaler
-    index: NearestNeighbors
+    index: Index
     y: np.ndarray
     weights: str
     values: tuple[int, ...]
@@ -184,7 +220,7 @@ class FittedKNN:
     k: int
     weights: str
     scaler: Scaler
-    index: NearestNeighbors
+    index: Index
     y: np.ndarray
     fitted: np.ndarray
     df: float
