@@ -41,6 +41,7 @@ HERE = Path(__file__).resolve().parent
 sys.path[:0] = [str(HERE), str(HERE.parent / "load")]
 
 import bench_tuning  # noqa: E402
+import calibrate_cost  # noqa: E402
 import run_load  # noqa: E402
 from threadpoolctl import threadpool_info, threadpool_limits  # noqa: E402
 
@@ -136,6 +137,32 @@ def load_figures(seconds: float, log_dir: Path) -> tuple[list[Figure], list[str]
     if errs:
         notes.append(f"Errors under the mixed load: {dict(errs)}.")
     return out, notes
+
+
+# -- the cost estimate ----------------------------------------------------------------------
+def cost_figures(quick: bool) -> list[Figure]:
+    """The estimate NEARWISE_MAX_COST_S is checked against, next to the measured time."""
+    out = []
+    with threadpool_limits(limits=1):
+        for method, n, p, params in calibrate_cost.QUICK if quick else calibrate_cost.FULL:
+            job = calibrate_cost.job(method, n, p, params)
+            est = calibrate_cost.estimate(job)
+            t0 = time.perf_counter()
+            calibrate_cost.pipeline.run(job)
+            took = time.perf_counter() - t0
+            label = method + (f" ({params['penalty']})" if params else "")
+            out.append(
+                Figure(
+                    "cost estimate",
+                    f"{label}, {n:,} rows x {p} features: estimate {est:.3g} s",
+                    f"{est:.3g} s",
+                    f"{took:.3g} s measured",
+                    f"est/measured = {est / took:.2f}",
+                    "0.5 to 2",
+                    0.5 <= est / took <= 2.0,
+                )
+            )
+    return out
 
 
 # -- memory -----------------------------------------------------------------------------
@@ -256,7 +283,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--quick", action="store_true", help="one timing per benchmark, 5 s loads")
     ap.add_argument("--out", type=Path, default=HERE / "REPORT.md")
     ap.add_argument("--memory-bound-gib", type=float, default=2.0)
-    ap.add_argument("--skip", nargs="*", default=[], choices=["tuning", "load", "memory"])
+    ap.add_argument("--skip", nargs="*", default=[], choices=["tuning", "cost", "load", "memory"])
     args = ap.parse_args(argv)
     repeats, seconds = (1, 5.0) if args.quick else (3, 20.0)
     rows_cap = Settings().max_rows
@@ -270,6 +297,9 @@ def main(argv: list[str] | None = None) -> int:
                     print(f"[tuning] {name}", flush=True)
                     rows = bench(np.random.default_rng(2026), repeats)
                     figures += [from_bench(r) for r in rows]
+        if "cost" not in args.skip:
+            print("[cost]", flush=True)
+            figures += cost_figures(args.quick)
         if "load" not in args.skip:
             print("[load]", flush=True)
             found, said = load_figures(seconds, log_dir)
@@ -279,7 +309,7 @@ def main(argv: list[str] | None = None) -> int:
             print("[memory]", flush=True)
             cases = [
                 ("kNN predict at the row limit", "knn", rows_cap, 3),
-                ("kNN predict at the cell limit", "knn", rows_cap, 7),
+                ("additive predict at the cell limit", "additive", rows_cap, 7),
                 ("linear predict at the row limit", "linear", rows_cap, 3),
                 ("spline predict (one feature) at the row limit", "spline", rows_cap, 1),
             ]
