@@ -39,13 +39,26 @@ def _post_in_thread(app, results: list, path: str = "/v1/predict") -> threading.
     return t
 
 
+def _occupy(app, started, fits: int) -> tuple[list, list]:
+    """Start ``fits`` blocked fits in ``app`` and wait until each holds its slot."""
+    results: list = []
+    threads = [_post_in_thread(app, results) for _ in range(fits)]
+    for _ in threads:
+        assert started.acquire(timeout=30)
+    return threads, results
+
+
+def _finish(threads: list, results: list, release) -> None:
+    release.set()
+    for t in threads:
+        t.join(30)
+    assert [r.status_code for r in results] == [200] * len(threads)
+
+
 def test_a_request_beyond_the_slots_gets_a_fast_503(blocked) -> None:
     started, release = blocked
     app = create_app(Settings(workers=1, threads=6, fits_per_worker=2))
-    results: list = []
-    threads = [_post_in_thread(app, results) for _ in range(2)]
-    for _ in threads:
-        assert started.acquire(timeout=30)  # both slots are fitting now
+    threads, results = _occupy(app, started, 2)  # both slots are fitting now
     assert app.extensions["nearwise_slots"].in_use == 2
 
     client = app.test_client()
@@ -65,10 +78,7 @@ def test_a_request_beyond_the_slots_gets_a_fast_503(blocked) -> None:
         assert problem(client.post(path, json=body()), 503)["code"] == "busy"
     assert problem(client.get("/v1/cell?x=1,2,3&y=1,2,3&at=2"), 503)["code"] == "busy"
 
-    release.set()
-    for t in threads:
-        t.join(30)
-    assert [r.status_code for r in results] == [200, 200]
+    _finish(threads, results, release)
     assert app.extensions["nearwise_slots"].in_use == 0
     assert client.post("/v1/predict", json=body()).status_code == 200
 
@@ -86,15 +96,9 @@ def test_the_worker_cap_leaves_threads_free_even_with_a_larger_pool(blocked) -> 
     started, release = blocked
     # The service-wide pool has 8 slots, but one worker with 4 threads fits on 2 at most.
     app = create_app(Settings(workers=2, threads=4, fits_per_worker=4))
-    results: list = []
-    threads = [_post_in_thread(app, results) for _ in range(2)]
-    for _ in threads:
-        assert started.acquire(timeout=30)
+    threads, results = _occupy(app, started, 2)
     assert problem(app.test_client().post("/v1/predict", json=body()), 503)["code"] == "busy"
-    release.set()
-    for t in threads:
-        t.join(30)
-    assert [r.status_code for r in results] == [200, 200]
+    _finish(threads, results, release)
 
 
 def test_pool_slots_are_shared_between_processes_and_freed_when_a_holder_dies(tmp_path) -> None:
