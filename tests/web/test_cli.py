@@ -120,3 +120,17 @@ def test_one_thread_per_worker_is_refused(monkeypatch, capsys) -> None:
     monkeypatch.setenv("NEARWISE_THREADS", "1")  # no thread would stay free for health checks
     assert cli.main(["serve", "--print-config"]) == 2
     assert "NEARWISE_THREADS" in capsys.readouterr().err
+
+
+def test_the_command_reads_its_settings_before_numpy_is_loaded() -> None:
+    # OpenBLAS sizes its thread pool when it is first loaded: the workers fork from the master,
+    # so `nearwise serve` must set the one-thread variables before anything imports numpy.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, nearwise.cli\n"
+        "print(sorted(m for m in ('numpy', 'scipy', 'sklearn', 'flask') if m in sys.modules))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
