@@ -25,7 +25,7 @@ import numpy as np  # noqa: E402
 
 from nearwise.core import cost, pipeline  # noqa: E402
 from nearwise.core.data import Table  # noqa: E402
-from nearwise.core.spec import Job  # noqa: E402
+from nearwise.core.spec import Job, TuningSpec  # noqa: E402
 
 FULL = [
     ("knn", 20_000, 1, {}),
@@ -41,6 +41,11 @@ FULL = [
     ("spline", 2_000, 2, {}),
     ("additive", 100_000, 3, {}),
     ("additive", 50_000, 8, {}),
+    # Without a query: the answer and its intervals are at every training row.
+    ("spline", 100_000, 1, {"_query": 0}),
+    ("knn", 100_000, 2, {"_query": 0}),
+    ("knn", 10_000, 2, {"_query": 0, "_scheme": "loo"}),
+    ("linear", 10_000, 2, {"_query": 0, "_scheme": "loo"}),
 ]
 QUICK = [
     ("knn", 5_000, 1, {}),
@@ -50,17 +55,30 @@ QUICK = [
     ("spline", 20_000, 1, {}),
     ("spline", 800, 2, {}),
     ("additive", 10_000, 3, {}),
+    ("spline", 20_000, 1, {"_query": 0}),
+    ("knn", 3_000, 2, {"_query": 0, "_scheme": "loo"}),
 ]
 
 
 def job(method: str, n: int, p: int, params: dict) -> Job:
+    """Keys starting with ``_`` set the shape: ``_query`` rows (10), ``_scheme`` (kfold)."""
+    q = params.get("_query", 10)
+    scheme = params.get("_scheme", "kfold")
+    params = {k: v for k, v in params.items() if not k.startswith("_")}
     rng = np.random.default_rng(0)
     X = rng.uniform(0, 1, (n, p))
     y = np.sin(6 * X[:, 0]) + X[:, 1:].sum(1) + rng.normal(0, 0.3, n)
     cols = (*[f"x{i}" for i in range(p)], "y")
     train = Table("train", cols, np.column_stack([X, y]))
-    query = Table("query", cols[:-1], rng.uniform(0, 1, (10, p)))
-    return Job(method=method, train=train, target="y", query=query, params=params)
+    query = Table("query", cols[:-1], rng.uniform(0, 1, (q, p))) if q else None
+    return Job(
+        method=method,
+        train=train,
+        target="y",
+        query=query,
+        params=params,
+        tuning=TuningSpec(scheme=scheme),
+    )
 
 
 def estimate(j: Job) -> float:
@@ -82,7 +100,7 @@ def main(argv: list[str] | None = None) -> int:
         t0 = time.perf_counter()
         pipeline.run(j)
         took = time.perf_counter() - t0
-        label = method + (f" ({params['penalty']})" if params else "")
+        label = method + "".join(f" {v}" for v in params.values())
         rows.append((label, n, p, est, took, est / took))
         print(
             f"{label:18} n={n:>7} p={p:>2}  estimate {est:8.3f} s  measured {took:8.3f} s  "

@@ -150,7 +150,7 @@ def cost_figures(quick: bool) -> list[Figure]:
             t0 = time.perf_counter()
             calibrate_cost.pipeline.run(job)
             took = time.perf_counter() - t0
-            label = method + (f" ({params['penalty']})" if params else "")
+            label = method + "".join(f" {k.strip('_')}={v}" for k, v in params.items())
             out.append(
                 Figure(
                     "cost estimate",

@@ -123,7 +123,7 @@ def test_the_readme_cost_example_is_what_the_service_says() -> None:
     from nearwise.core.spec import TuningSpec
     from nearwise.web.routes.predict import caps
 
-    shape = cost.Shape.of(250_000, 6, 100, TuningSpec())
+    shape = cost.Shape.of(250_000, 8, 100, TuningSpec())
     with pytest.raises(OverLimit) as info:
         cost.check([cost.Item("knn", {}, None)], shape, caps(Settings()))
     readme = (Path(__file__).parents[2] / "README.md").read_text(encoding="utf-8")

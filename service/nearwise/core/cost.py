@@ -22,7 +22,12 @@ from nearwise.core.errors import OverLimit, Where
 from nearwise.core.spec import Caps, TuningSpec
 
 #: Per-row work every method shares: parsing into arrays, sorting by content, locality flags.
-ROW_S = 2.0e-6
+ROW_S = 0.8e-6
+#: Intervals at the answer rows (the query, or every training row without one): K-fold CV+
+#: bisects over the folds' residuals (per answer row and fold); jackknife+ (loo, gcv) forms every
+#: leave-one-out prediction (per answer row and training row).
+CV_PLUS_S = 7e-6
+JACKKNIFE_S = 2e-8
 
 
 @dataclass(frozen=True)
@@ -51,6 +56,11 @@ class Shape:
     def rows(self, n: int) -> Shape:
         return replace(self, n=n)
 
+    @property
+    def answers(self) -> int:
+        """Rows answered: the query, or every training row without one."""
+        return self.q or self.n
+
 
 def _count(grid: Sequence[Any] | None, settings: Mapping[str, Any], name: str, default: int):
     if settings.get(name) is not None:
@@ -62,14 +72,14 @@ def _count(grid: Sequence[Any] | None, settings: Mapping[str, Any], name: str, d
 # kNN: one neighbor search per fold for every candidate k at once.
 
 #: Seconds per neighbor found, for the window of all candidate k (sorting, running sums).
-KNN_NEIGHBOR_S = 0.12e-6
+KNN_NEIGHBOR_S = 0.08e-6
 #: Seconds of tree search per query point against 100,000 indexed points, by feature count, and
 #: how that grows with the indexed points (exponent); measured with k = 50 on uniform data.
-KNN_TREE_S = {1: 7e-6, 2: 12e-6, 3: 21e-6, 4: 40e-6, 6: 170e-6, 10: 970e-6, 15: 8000e-6}
+KNN_TREE_S = {1: 2e-6, 2: 5e-6, 3: 12e-6, 4: 20e-6, 6: 50e-6, 10: 380e-6, 15: 3000e-6}
 KNN_TREE_GROWTH = {1: 0.30, 3: 0.25, 6: 0.38, 10: 0.50, 15: 0.60}
 #: Above this many features the search compares with every indexed point.
 KNN_BRUTE_P = 15
-KNN_BRUTE_S = 0.7e-9  # seconds per indexed point and feature, per query point
+KNN_BRUTE_S = 0.4e-9  # seconds per indexed point and feature, per query point
 
 
 def _interp(table: Mapping[int, float], p: int) -> float:
@@ -105,7 +115,7 @@ def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> fl
     index = s.n * s.train_share
     per_point = _knn_point(index, s.p, kmax + 1)
     tuning = s.n * (s.fits * (1 - s.train_share) if s.train_share < 1 else 1) * per_point
-    queries = s.q * s.models * _knn_point(s.n, s.p, kmax)
+    queries = s.answers * s.models * _knn_point(s.n, s.p, kmax)
     build = s.fits * index * log2(index + 2) * s.p * 5e-8
     return tuning + queries + build
 
@@ -113,10 +123,10 @@ def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> fl
 # ---------------------------------------------------------------------------------------------
 # Least squares: one QR (or SVD) of the design per fold; lasso: coordinate descent per alpha.
 
-LSQ_TERM_S = 1.1e-7  # per row, term and fit: building the design, residuals, deletion formulas
-RIDGE_TERM_S = 3.0e-7  # the same with a penalty (standardizing, the path over alpha)
-LSQ_FACTOR_S = 1.6e-9  # per row, squared term count and fit: the QR or SVD itself
-LASSO_S = 2.5e-8  # per row, term, alpha and fit: coordinate-descent passes
+LSQ_TERM_S = 0.6e-7  # per row, term and fit: building the design, residuals, deletion formulas
+RIDGE_TERM_S = 1.5e-7  # the same with a penalty (standardizing, the path over alpha)
+LSQ_FACTOR_S = 0.5e-9  # per row, squared term count and fit: the QR or SVD itself
+LASSO_S = 1.0e-9  # per row, term, alpha and fit: coordinate-descent passes
 
 
 def _terms(p: int, degree: int, interactions: bool) -> int:
@@ -137,7 +147,7 @@ def linear(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
     rows = s.n * s.train_share
     fits = s.fits + 1
     per_term = LSQ_TERM_S if penalty == "none" else RIDGE_TERM_S
-    cost = fits * rows * (per_term * t + LSQ_FACTOR_S * t * t) + s.q * s.models * t * 1e-8
+    cost = fits * rows * (per_term * t + LSQ_FACTOR_S * t * t) + s.answers * s.models * t * 1e-8
     if penalty == "lasso":
         cost += fits * rows * t * _count(grid, settings, "alpha", 30) * LASSO_S
     return cost
@@ -147,9 +157,10 @@ def linear(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
 # Splines: 1-D smoothing spline on at most MAX_KNOTS knots (banded solves per candidate);
 # thin-plate: an eigendecomposition per fold, cubic in the rows.
 
-SPLINE_ROW_S = 1.0e-6  # per row and fit: binning onto the knots, residuals
-SPLINE_SOLVE_S = 2.0e-6  # per knot, candidate and fit: the banded solves
-THIN_PLATE_S = 2.0e-10  # per cubed row and fit: eigendecomposition, posterior factor
+SPLINE_ROW_S = 0.2e-6  # per row and fit: binning onto the knots, residuals
+SPLINE_SOLVE_S = 0.5e-6  # per knot, candidate and fit: the banded solves
+SPLINE_VARIANCE_S = 7e-11  # per point and squared knot count: the augmented system's solves
+THIN_PLATE_S = 1.0e-10  # per cubed row and fit: eigendecomposition, posterior factor
 THIN_PLATE_KERNEL_S = 2.0e-9  # per squared row, feature and fit: the kernel matrix
 
 
@@ -158,18 +169,25 @@ def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
     fits = s.fits + 1
     if s.p == 1:
         knots = min(s.n, 1000)
-        return fits * (s.n * SPLINE_ROW_S + knots * m * SPLINE_SOLVE_S) + s.q * s.models * 1e-6
+        # The posterior variance: direct solves at the answer rows or at 7 points per knot
+        # interval, whichever are fewer (see FittedSpline1D.variance).
+        variance = min(s.answers, 7 * knots) * knots * knots * SPLINE_VARIANCE_S
+        tuning = fits * (s.n * SPLINE_ROW_S + knots * m * SPLINE_SOLVE_S)
+        return tuning + variance + s.answers * s.models * 1e-6
     rows = s.n * s.train_share
     kernel = fits * rows * rows * s.p * THIN_PLATE_KERNEL_S
     return (
-        fits * rows**3 * THIN_PLATE_S + s.n**3 * THIN_PLATE_S + kernel + s.q * s.n * s.models * 2e-8
+        fits * rows**3 * THIN_PLATE_S
+        + s.n**3 * THIN_PLATE_S
+        + kernel
+        + s.answers * s.n * s.models * 2e-8
     )
 
 
 # ---------------------------------------------------------------------------------------------
 # Additive: per fold, a penalized least-squares basis of B columns and REML steps (B^3).
 
-ADDITIVE_COLUMN_S = 8.0e-8  # per row, basis column and fit: the basis, projections, residuals
+ADDITIVE_COLUMN_S = 2.5e-8  # per row, basis column and fit: the basis, projections, residuals
 ADDITIVE_ROW_S = 1.0e-10  # per row, squared basis column and fit: the factorization
 ADDITIVE_REML_S = 1.0e-8  # per cubed basis column and fit: the smoothing steps
 
@@ -181,7 +199,7 @@ def additive(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) 
     b = s.p * (int(knots) - 2) + s.p + 1
     fits = s.fits + 1
     rows = s.n * s.train_share
-    queries = s.q * s.models * b * 1e-8
+    queries = s.answers * s.models * b * 1e-8
     per_fit = rows * b * (ADDITIVE_COLUMN_S + b * ADDITIVE_ROW_S) + b**3 * ADDITIVE_REML_S
     return fits * per_fit + queries
 
@@ -203,7 +221,11 @@ class Item:
     grid: Sequence[Any] | None
 
     def seconds(self, s: Shape) -> float:
-        return ESTIMATES[self.name](self.settings, self.grid, s) + s.n * ROW_S
+        if s.train_share < 1:
+            intervals = s.answers * (s.models - 1) * CV_PLUS_S
+        else:
+            intervals = s.answers * s.n * JACKKNIFE_S
+        return ESTIMATES[self.name](self.settings, self.grid, s) + s.n * ROW_S + intervals
 
 
 def total(items: Sequence[Item], s: Shape) -> float:
