@@ -78,7 +78,47 @@ def compute(
     value: np.ndarray,
     sigma_cv: float,
 ) -> ErrorBars:
-    """Standard errors and interval bounds at the rows ``Xq`` whose predictions are ``value``."""
+    """Standard errors and interval bounds at the rows ``Xq`` whose predictions are ``value``.
+
+    Every figure depends on a row's features alone, so rows that repeat one another (training
+    rows at repeated settings, most often) are computed once.
+    """
+    distinct, inverse = np.unique(Xq, axis=0, return_inverse=True)
+    inverse = inverse.reshape(-1)
+    std_error, lower, upper, report = _bars(
+        spec, model, path, folds, chosen, X, y, distinct, sigma_cv
+    )
+    std_error, lower, upper = std_error[inverse], lower[inverse], upper[inverse]
+    # An undefined bound (NaN: no noise estimate) is unbounded, never a zero-width interval.
+    lower = np.fmin(np.where(np.isnan(lower), -np.inf, lower), value)
+    upper = np.fmax(np.where(np.isnan(upper), np.inf, upper), value)
+    notices = []
+    unbounded = np.flatnonzero(~np.isfinite(lower) | ~np.isfinite(upper))
+    if unbounded.size:
+        notices.append(
+            Notice(
+                "interval_unbounded",
+                f"with {y.size} rows a {spec.level:g} interval cannot be bounded on both sides "
+                f"(that takes at least 1 / (1 - level) - 1 = {1 / (1 - spec.level) - 1:.0f} rows), "
+                "or there is no finite noise estimate; the missing bounds are null.",
+                tuple(int(i) for i in unbounded),
+            )
+        )
+    return ErrorBars(std_error, lower, upper, report, tuple(notices))
+
+
+def _bars(
+    spec: IntervalSpec,
+    model: Fitted,
+    path: PathResult,
+    folds: Folds,
+    chosen: int,
+    X: np.ndarray,
+    y: np.ndarray,
+    Xq: np.ndarray,
+    sigma_cv: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
+    """std_error, lower and upper at the rows ``Xq`` (before clamping around the values)."""
     std_error = model.std_error(Xq, sigma_cv)
     report = {"level": spec.level, "kind": spec.kind, "adaptive": spec.adaptive}
     if spec.kind == "model":
@@ -113,19 +153,4 @@ def compute(
             )
             report["construction"] = "jackknife_plus"
             report["guarantee"] = GUARANTEE["loo"]
-    # An undefined bound (NaN: no noise estimate) is unbounded, never a zero-width interval.
-    lower = np.fmin(np.where(np.isnan(lower), -np.inf, lower), value)
-    upper = np.fmax(np.where(np.isnan(upper), np.inf, upper), value)
-    notices = []
-    unbounded = np.flatnonzero(~np.isfinite(lower) | ~np.isfinite(upper))
-    if unbounded.size:
-        notices.append(
-            Notice(
-                "interval_unbounded",
-                f"with {y.size} rows a {spec.level:g} interval cannot be bounded on both sides "
-                f"(that takes at least 1 / (1 - level) - 1 = {1 / (1 - spec.level) - 1:.0f} rows), "
-                "or there is no finite noise estimate; the missing bounds are null.",
-                tuple(int(i) for i in unbounded),
-            )
-        )
-    return ErrorBars(std_error, lower, upper, report, tuple(notices))
+    return std_error, lower, upper, report
