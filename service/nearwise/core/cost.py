@@ -26,7 +26,7 @@ ROW_S = 0.8e-6
 #: Intervals at the answer rows (the query, or every training row without one): K-fold CV+
 #: bisects over the folds' residuals (per answer row and fold); jackknife+ (loo, gcv) forms every
 #: leave-one-out prediction (per answer row and training row).
-CV_PLUS_S = 7e-6
+CV_PLUS_S = 4e-6
 JACKKNIFE_S = 2e-8
 
 
