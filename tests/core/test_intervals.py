@@ -101,3 +101,25 @@ def test_kth_of_folds_direct_and_bisection_agree_with_the_definition(upper, adap
         # Bisection stops at the smallest value whose count reaches k: equal up to the
         # rounding of (v - mu) / spread, a few units in the last place.
         np.testing.assert_allclose(bisect, want, rtol=1e-13, atol=1e-13)
+
+
+@pytest.mark.parametrize("level", [1e-13, 5e-324, 0.999999])
+def test_cv_plus_at_extreme_levels_gives_the_same_ends_by_either_route(level) -> None:
+    """Levels near 0 ask for order statistics beyond the n candidates (found by fuzzing: the
+    direct route failed there); both routes must agree and stay ordered."""
+    from nearwise.core import intervals
+
+    rng = np.random.default_rng(3)
+    n, m, folds = 6, 4, 3
+    mu = rng.normal(0, 1, (folds, m))
+    fold = np.arange(n) % folds
+    resid = np.abs(rng.normal(0, 1, n))
+    got = intervals.cv_plus(mu, fold, resid, level)
+    old = intervals.CHUNK_CELLS
+    intervals.CHUNK_CELLS = 0  # the bisection route
+    try:
+        want = intervals.cv_plus(mu, fold, resid, level)
+    finally:
+        intervals.CHUNK_CELLS = old
+    assert_allclose(got[0], want[0], rtol=1e-13, atol=1e-13)
+    assert_allclose(got[1], want[1], rtol=1e-13, atol=1e-13)

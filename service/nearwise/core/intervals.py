@@ -50,7 +50,8 @@ def _kth_of_folds(
     precision.
     """
     n = sum(p.size for p in parts)
-    if n * mu.shape[1] <= CHUNK_CELLS and np.all(np.isfinite(spread) & (spread > 0)):
+    direct = 1 <= k <= n and n * mu.shape[1] <= CHUNK_CELLS
+    if direct and np.all(np.isfinite(spread) & (spread > 0)):
         sign = 1.0 if upper else -1.0
         with np.errstate(over="ignore", invalid="ignore"):
             values = np.concatenate(
