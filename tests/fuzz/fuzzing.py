@@ -59,7 +59,8 @@ def _repaired(draw: st.DrawFn, body: dict[str, Any]) -> dict[str, Any]:
     out["train"] = draw(_table(names, 8, MAX_REPAIRED_ROWS, target if "target" in body else None))
     out["target"] = target
     others = [n for n in names if n != target]
-    tuning = dict(out.get("tuning") or {})
+    drawn = out.get("tuning")
+    tuning = dict(drawn) if isinstance(drawn, dict) else {}  # negative cases draw any type
     tuning.pop("group_by", None)
     if draw(st.booleans()):
         out.pop("tuning", None)
