@@ -102,3 +102,12 @@ def test_bearer_scheme_guards_v1_and_metrics_is_prometheus_text() -> None:
         "text/plain; version=0.0.4; charset=utf-8"
     ]
     assert "nearwise_http_requests_total" in metrics["responses"]["200"]["description"]
+
+
+def test_service_endpoints_document_the_problems_they_answer(client) -> None:
+    doc = client.get("/openapi.json").get_json()
+    for path in ("/healthz", "/readyz", "/v1/methods"):
+        documented = set(doc["paths"][path]["get"]["responses"])
+        assert client.get(path, headers={"Accept": "image/png"}).status_code == 406
+        assert client.get(path + "?format=xml").status_code == 422
+        assert {"200", "406", "422"} <= documented, path

@@ -20,7 +20,7 @@ bp = Blueprint("catalogue", __name__, url_prefix="/v1")
             "description": "The catalogue.",
             "content": {"application/json": {"schema": MethodsResponse}},
         },
-        **problems(401, 406),
+        **problems(401, 406, 422),
     },
 )
 def methods() -> Response:
