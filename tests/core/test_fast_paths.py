@@ -257,3 +257,20 @@ def test_additive_leave_one_out_predictions_equal_refits(ties):
         expect = _fixed(model, X[keep], y[keep], 0.5).predict(Xq)
         # Exact identity; rounding in the updates: 1e-8.
         assert_allclose(loo[:, i], expect, rtol=1e-8, atol=1e-8)
+
+
+def test_knn_final_fit_in_blocks_equals_one_block(monkeypatch) -> None:
+    """The final kNN fit walks the rows in blocks to bound memory; the fitted values and the
+    typical radius do not depend on the block size (rows with tied distances included)."""
+    from nearwise.core.methods import knn
+
+    rng = np.random.default_rng(11)
+    X = np.round(rng.uniform(0, 1, (700, 2)), 1)  # many ties
+    y = rng.normal(0, 1, 700)
+    model = knn.KNN()
+    settings = model.settings({})
+    whole = model.fit(X, y, settings, 7)
+    monkeypatch.setattr(knn, "FIT_BLOCK_CELLS", 8 * 13)  # blocks of 13 rows
+    blocks = model.fit(X, y, settings, 7)
+    np.testing.assert_array_equal(blocks.fitted, whole.fitted)
+    assert blocks.typical_radius == whole.typical_radius

@@ -28,6 +28,7 @@ from nearwise.core.tuning import Folds
 
 MAX_DEFAULT_K = 50
 WIDE_FRACTION = 0.5  # wide_neighborhood: neighbors spanning more than this share of a range
+FIT_BLOCK_CELLS = 1_000_000  # neighbor-window entries per block of the final fit (8 MB each)
 
 
 def _query(
@@ -434,11 +435,17 @@ class KNN(Method):
         # itself included) and the typical radius (distance to the k-th other row).
         fitted = np.empty(n)
         radius = np.empty(n)
-        for rows, d, ind in _complete_windows(index, Xs, min(k + 1, n), n):
-            fitted[rows] = _all_k(d, y[ind], k, settings["weights"])[:, -1]
-            is_self = ind == rows[:, None]
-            order = np.argsort(is_self, axis=1, kind="stable")
-            radius[rows] = np.take_along_axis(d, order, axis=1)[:, min(k, n - 1) - 1]
+        # In blocks of rows, so that the neighbor windows of 250,000 rows are never all held at
+        # once (each row's figures depend on its own window only).
+        step = max(1, FIT_BLOCK_CELLS // (k + 1))
+        for start in range(0, n, step):
+            block = np.arange(start, min(n, start + step))
+            for rows, d, ind in _complete_windows(index, Xs[block], min(k + 1, n), n):
+                at = block[rows]
+                fitted[at] = _all_k(d, y[ind], k, settings["weights"])[:, -1]
+                is_self = ind == at[:, None]
+                order = np.argsort(is_self, axis=1, kind="stable")
+                radius[at] = np.take_along_axis(d, order, axis=1)[:, min(k, n - 1) - 1]
         return FittedKNN(
             k, settings["weights"], sc, index, y, fitted, n / k, float(np.median(radius)), Xs
         )
