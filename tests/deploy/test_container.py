@@ -75,6 +75,18 @@ def _build(tag: str, dockerfile: str, context: str) -> None:
     assert build.returncode == 0, f"docker build failed:\n{build.stdout[-4000:]}\n{build.stderr}"
 
 
+@contextmanager
+def _built(name: str, dockerfile: str, context: str) -> Iterator[str]:
+    """An image built under a fresh tag for the block, then untagged."""
+    tag = f"{name}:{uuid.uuid4().hex[:12]}"
+    _build(tag, dockerfile, context)
+    try:
+        yield tag
+    finally:
+        # --no-prune keeps the parent layers: the next build starts from the cache.
+        _docker("image", "rm", "--no-prune", tag, check=False)
+
+
 def _why_docker_cannot_run() -> str | None:
     if shutil.which("docker") is None:
         return "the docker client is not installed"
@@ -105,13 +117,8 @@ def image() -> Iterator[str]:
         ["bash", str(BASE_IMAGE_SCRIPT)], capture_output=True, text=True, timeout=600, check=False
     )
     assert base.returncode == 0, f"base image: {base.stdout}\n{base.stderr}"
-    tag = f"nearwise-test:{uuid.uuid4().hex[:12]}"
-    _build(tag, "docker/Dockerfile", ".")
-    try:
+    with _built("nearwise-test", "docker/Dockerfile", ".") as tag:
         yield tag
-    finally:
-        # --no-prune keeps the parent layers: the next build starts from the cache.
-        _docker("image", "rm", "--no-prune", tag, check=False)
 
 
 def _free_port() -> int:
@@ -291,12 +298,8 @@ def test_sigterm_lets_the_request_in_flight_finish(container: Container) -> None
 
 @pytest.fixture(scope="module")
 def nginx_image(image: str) -> Iterator[str]:
-    tag = f"nearwise-nginx-test:{uuid.uuid4().hex[:12]}"
-    _build(tag, "docker/nginx/Dockerfile", "docker/nginx")
-    try:
+    with _built("nearwise-nginx-test", "docker/nginx/Dockerfile", "docker/nginx") as tag:
         yield tag
-    finally:
-        _docker("image", "rm", "--no-prune", tag, check=False)
 
 
 class _Echo(BaseHTTPRequestHandler):
