@@ -16,10 +16,10 @@ It needs numpy only, and the same seed always gives the same bytes.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
+from sample_files import write_csv, write_request
 
 HERE = Path(__file__).resolve().parent
 SEED = 2026
@@ -56,35 +56,6 @@ def make_train(rng: np.random.Generator) -> np.ndarray:
 def make_query() -> np.ndarray:
     wind = np.asarray(QUERY_WIND)
     return np.column_stack([wind, np.full(wind.shape, QUERY_DENSITY)])
-
-
-def write_csv(path: Path, columns: list[str], rows: np.ndarray) -> None:
-    lines = [",".join(columns)]
-    lines += [",".join(_number(v) for v in row) for row in rows]
-    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
-
-
-def _number(v: float) -> str:
-    """Shortest text that reads back as the same double, without a trailing '.0'."""
-    return str(int(v)) if float(v).is_integer() else repr(float(v))
-
-
-def _table_json(columns: list[str], rows: np.ndarray, indent: str) -> str:
-    """A table with one row per line, so the file reads like the CSV beside it."""
-    body = f",\n{indent}  ".join("[" + ", ".join(_number(v) for v in row) + "]" for row in rows)
-    return (
-        f'{{"columns": {json.dumps(columns)},\n{indent} "rows": [\n{indent}  {body}\n{indent} ]}}'
-    )
-
-
-def write_request(path: Path, fields: dict, train: np.ndarray, query: np.ndarray) -> None:
-    """A /v1/predict body: the scalar fields first, then the two tables."""
-    parts = [f'  "{key}": {json.dumps(value)}' for key, value in fields.items()]
-    parts.append('  "train": ' + _table_json(TRAIN_COLUMNS, train, "  "))
-    parts.append('  "query": ' + _table_json(QUERY_COLUMNS, query, "  "))
-    text = "{\n" + ",\n".join(parts) + "\n}\n"
-    json.loads(text)  # the hand-laid-out body must still be plain JSON
-    path.write_text(text, encoding="utf-8")
 
 
 TRAIN_COLUMNS = ["wind_ms", "air_density", "power_kw"]
@@ -130,7 +101,7 @@ def main() -> None:
     write_csv(HERE / "turbine_train.csv", TRAIN_COLUMNS, train)
     write_csv(HERE / "turbine_query.csv", QUERY_COLUMNS, query)
     for name, fields in REQUESTS.items():
-        write_request(HERE / name, fields, train, query)
+        write_request(HERE / name, fields, (TRAIN_COLUMNS, train), (QUERY_COLUMNS, query))
     print(f"wrote {len(train)} training rows and {len(query)} query rows to {HERE}")
 
 

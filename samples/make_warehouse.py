@@ -31,10 +31,10 @@ It needs numpy only, and the same seed always gives the same bytes.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
+from sample_files import write_csv, write_request
 
 HERE = Path(__file__).resolve().parent
 SEED = 3032
@@ -111,33 +111,6 @@ def make_query(rng: np.random.Generator) -> np.ndarray:
     return rows
 
 
-def write_csv(path: Path, columns: list[str], rows: np.ndarray) -> None:
-    lines = [",".join(columns)]
-    lines += [",".join(_number(v) for v in row) for row in rows]
-    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
-
-
-def _number(v: float) -> str:
-    """Shortest text that reads back as the same double, without a trailing '.0'."""
-    return str(int(v)) if float(v).is_integer() else repr(float(v))
-
-
-def _table_json(columns: list[str], rows: np.ndarray) -> str:
-    """A table with one row per line, so the file reads like the CSV beside it."""
-    body = ",\n    ".join("[" + ", ".join(_number(v) for v in row) + "]" for row in rows)
-    return f'{{"columns": {json.dumps(columns)},\n   "rows": [\n    {body}\n   ]}}'
-
-
-def write_request(path: Path, fields: dict, train: np.ndarray, query: np.ndarray) -> None:
-    """A request body: the scalar fields first, then the two tables."""
-    parts = [f'  "{key}": {json.dumps(value)}' for key, value in fields.items()]
-    parts.append('  "train": ' + _table_json([*FEATURES, TARGET], train))
-    parts.append('  "query": ' + _table_json(FEATURES, query))
-    text = "{\n" + ",\n".join(parts) + "\n}\n"
-    json.loads(text)  # the hand-laid-out body must still be plain JSON
-    path.write_text(text, encoding="utf-8")
-
-
 REQUESTS = {
     # Every method that applies to nine features, on the same folds: POST it to /v1/compare.
     # The spline is left out (with the warning method_skipped): it takes at most three inputs.
@@ -163,7 +136,7 @@ def main() -> None:
     write_csv(HERE / "warehouse_train.csv", [*FEATURES, TARGET], train)
     write_csv(HERE / "warehouse_query.csv", FEATURES, query)
     for name, fields in REQUESTS.items():
-        write_request(HERE / name, fields, train, query)
+        write_request(HERE / name, fields, ([*FEATURES, TARGET], train), (FEATURES, query))
     print(f"wrote {len(train)} training rows and {len(query)} query rows to {HERE}")
 
 

@@ -16,8 +16,8 @@ from typing import Any
 
 import pytest
 from flask.testing import FlaskClient
-from webhelpers import body, curve, problem
-from werkzeug.test import EnvironBuilder, TestResponse
+from webhelpers import body, curve, post_without_length, problem
+from werkzeug.test import TestResponse
 
 from nearwise.web.app import create_app
 from nearwise.web.settings import Settings
@@ -88,17 +88,6 @@ def capped(send_with: Callable[[FlaskClient, bytes], TestResponse], spare: int) 
 
 def with_length(c: FlaskClient, data: bytes) -> TestResponse:
     return c.post("/v1/predict", data=data, content_type="application/json")
-
-
-def without_length(c: FlaskClient, data: bytes) -> TestResponse:
-    env = EnvironBuilder(
-        path="/v1/predict",
-        method="POST",
-        input_stream=io.BytesIO(data),
-        headers={"Content-Type": "application/json", "Transfer-Encoding": "chunked"},
-    ).get_environ()
-    del env["CONTENT_LENGTH"]
-    return c.open(env)
 
 
 def as_multipart(c: FlaskClient, data: bytes) -> TestResponse:
@@ -314,7 +303,7 @@ CASES: dict[str, Case] = {
     # bodies over the cap
     "over-cap-with-length": Case(capped(with_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
     "over-cap-without-length": Case(
-        capped(without_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)
+        capped(post_without_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)
     ),
     "over-cap-multipart": Case(capped(as_multipart, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
     # CSV with a broken encoding or quoting

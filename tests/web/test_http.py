@@ -8,9 +8,8 @@ import json
 import threading
 
 import pytest
-from webhelpers import body, curve, problem
+from webhelpers import body, curve, post_without_length, problem
 from werkzeug.serving import make_server
-from werkzeug.test import EnvironBuilder
 
 from nearwise.web.app import create_app
 from nearwise.web.settings import Settings
@@ -89,17 +88,6 @@ def test_body_over_the_limit_is_413() -> None:
     assert problem(resp, 413)["code"] == "body_too_large"
     resp = small_app(len(data)).post("/v1/predict", data=data, content_type="application/json")
     assert resp.status_code == 200
-
-
-def post_without_length(client, data: bytes):
-    env = EnvironBuilder(
-        path="/v1/predict",
-        method="POST",
-        input_stream=io.BytesIO(data),
-        headers={"Content-Type": "application/json", "Transfer-Encoding": "chunked"},
-    ).get_environ()
-    del env["CONTENT_LENGTH"]
-    return client.open(env)
 
 
 @pytest.mark.parametrize("extra", [-1, 0])

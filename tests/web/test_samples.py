@@ -19,9 +19,10 @@ SAMPLES = Path(__file__).resolve().parents[2] / "samples"
 def test_make_samples_regenerates_the_committed_files(tmp_path: Path) -> None:
     copy = tmp_path / "samples"
     shutil.copytree(SAMPLES, copy)
-    subprocess.run(
-        [sys.executable, str(copy / "make_samples.py")], check=True, capture_output=True, timeout=60
-    )
+    for script in ("make_samples.py", "make_warehouse.py"):
+        subprocess.run(
+            [sys.executable, str(copy / script)], check=True, capture_output=True, timeout=60
+        )
     for name in (
         "turbine_train.csv",
         "turbine_query.csv",
@@ -29,6 +30,10 @@ def test_make_samples_regenerates_the_committed_files(tmp_path: Path) -> None:
         "predict_knn.json",
         "predict_linear.json",
         "compare_turbine.json",
+        "warehouse_train.csv",
+        "warehouse_query.csv",
+        "compare_warehouse.json",
+        "predict_warehouse.json",
     ):
         assert (copy / name).read_bytes() == (SAMPLES / name).read_bytes(), name
 

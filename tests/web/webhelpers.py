@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import http.client
+import io
 import os
 import socket
 import subprocess
@@ -115,3 +116,17 @@ def serving(
             except subprocess.TimeoutExpired:
                 proc.kill()
                 proc.wait(timeout=30)
+
+
+def post_without_length(client: Any, data: bytes, path: str = "/v1/predict") -> Any:
+    """POST ``data`` to the Flask test ``client`` as a chunked JSON body: no Content-Length."""
+    from werkzeug.test import EnvironBuilder
+
+    env = EnvironBuilder(
+        path=path,
+        method="POST",
+        input_stream=io.BytesIO(data),
+        headers={"Content-Type": "application/json", "Transfer-Encoding": "chunked"},
+    ).get_environ()
+    del env["CONTENT_LENGTH"]
+    return client.open(env)

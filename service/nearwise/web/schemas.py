@@ -217,12 +217,5 @@ class CompareRequest(CompareFields, _Tables):
     """The compare request as JSON."""
 
 
-class PredictRequest(PredictFields):
-    train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
-    query = fields.Nested(
-        QueryTableSchema,
-        metadata=_doc(
-            "Rows to predict at; it holds at least the feature columns. Absent: predict at the "
-            "training rows (fitted values, with `residual`)."
-        ),
-    )
+class PredictRequest(PredictFields, _Tables):
+    """The predict request as JSON."""
