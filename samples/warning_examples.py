@@ -83,6 +83,18 @@ def _temps(rng: np.random.Generator, n: int, low=-5.0, high=32.0) -> np.ndarray:
 
 
 # -- one builder per code -----------------------------------------------------------------
+def _building(method: str, temp: np.ndarray, kwh: np.ndarray, query=None) -> Body:
+    """A building's energy against outdoor temperature, with query temperatures if given."""
+    body: Body = {
+        "method": method,
+        "target": "kwh",
+        "train": table(["temp_c", "kwh"], temp, kwh),
+    }
+    if query is not None:
+        body["query"] = table(["temp_c"], np.array(query, dtype=float))
+    return body
+
+
 def outside_range() -> Body:
     """Turbine: a spline of power against wind; the last query row, 27 m/s, lies beyond the
     strongest wind in the data (19.7 m/s)."""
@@ -147,12 +159,7 @@ def far_from_data() -> Body:
     temp = _temps(rng, 400)
     temp = temp[(temp < 10.0) | (temp > 20.0)][:200]
     kwh = energy_kwh(temp, np.full(temp.shape, 150.0), rng)
-    return {
-        "method": "spline",
-        "target": "kwh",
-        "train": table(["temp_c", "kwh"], temp, kwh),
-        "query": table(["temp_c"], np.array([5.0, 15.0, 25.0])),
-    }
+    return _building("spline", temp, kwh, [5.0, 15.0, 25.0])
 
 
 def wide_neighborhood() -> Body:
@@ -163,12 +170,7 @@ def wide_neighborhood() -> Body:
     temp = np.concatenate([_temps(rng, 100, -5.0, 3.0), _temps(rng, 100, 24.0, 32.0)])
     kwh = energy_kwh(temp, np.full(temp.shape, 150.0), rng)
     middle = round(float(temp[temp < 10].max() + temp[temp > 10].min()) / 2, 1)
-    return {
-        "method": "knn",
-        "target": "kwh",
-        "train": table(["temp_c", "kwh"], temp, kwh),
-        "query": table(["temp_c"], np.array([0.0, middle, 28.0])),
-    }
+    return _building("knn", temp, kwh, [0.0, middle, 28.0])
 
 
 SENSORS = [
@@ -309,11 +311,7 @@ def unusual_response() -> Body:
     temp = _temps(rng, 150)
     kwh = energy_kwh(temp, np.full(150, 150.0), rng)
     kwh[list(UNUSUAL_ROWS)] *= 2.0
-    return {
-        "method": "spline",
-        "target": "kwh",
-        "train": table(["temp_c", "kwh"], temp, kwh),
-    }
+    return _building("spline", temp, kwh)
 
 
 def interval_unbounded() -> Body:
@@ -322,13 +320,7 @@ def interval_unbounded() -> Body:
     rng = _rng(10)
     temp = _temps(rng, 40)
     kwh = energy_kwh(temp, np.full(40, 150.0), rng)
-    return {
-        "method": "linear",
-        "target": "kwh",
-        "train": table(["temp_c", "kwh"], temp, kwh),
-        "query": table(["temp_c"], np.array([0.0, 15.0, 25.0])),
-        "interval": {"level": 0.99},
-    }
+    return {**_building("linear", temp, kwh, [0.0, 15.0, 25.0]), "interval": {"level": 0.99}}
 
 
 MISSING_ROWS = (5, 40, 123)
@@ -342,11 +334,7 @@ def target_missing() -> Body:
     temp = _temps(rng, 150)
     kwh = energy_kwh(temp, np.full(150, 150.0), rng)
     kwh[list(MISSING_ROWS)] = np.nan
-    return {
-        "method": "spline",
-        "target": "kwh",
-        "train": table(["temp_c", "kwh"], temp, kwh),
-    }
+    return _building("spline", temp, kwh)
 
 
 def x_rounded() -> Body:
@@ -355,12 +343,7 @@ def x_rounded() -> Body:
     rng = _rng(11)
     temp = np.round(rng.uniform(-5.0, 32.0, 1500), 2)
     kwh = energy_kwh(temp, np.full(1500, 150.0), rng)
-    return {
-        "method": "spline",
-        "target": "kwh",
-        "train": table(["temp_c", "kwh"], temp, kwh),
-        "query": table(["temp_c"], np.array([0.0, 15.0, 25.0])),
-    }
+    return _building("spline", temp, kwh, [0.0, 15.0, 25.0])
 
 
 def method_chosen() -> Body:
