@@ -58,17 +58,10 @@ def predict() -> Response:
 
 def caps(settings: Settings) -> Caps:
     """The work limits the core checks before fitting, named by their variables."""
+    limits = ("grid", "fold_fits", "methods", "cost_s")  # Settings.max_<limit>
     return Caps(
-        grid=settings.max_grid,
-        fold_fits=settings.max_fold_fits,
-        methods=settings.max_methods,
-        cost_s=settings.max_cost_s,
-        names={
-            "grid": "NEARWISE_MAX_GRID",
-            "fold_fits": "NEARWISE_MAX_FOLD_FITS",
-            "methods": "NEARWISE_MAX_METHODS",
-            "cost_s": "NEARWISE_MAX_COST_S",
-        },
+        **{k: getattr(settings, f"max_{k}") for k in limits},
+        names={k: f"NEARWISE_MAX_{k.upper()}" for k in limits},
     )
 
 
