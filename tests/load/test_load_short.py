@@ -71,7 +71,11 @@ def test_killed_worker_loses_only_its_requests_and_is_replaced(
     assert phase.passed, failed(phase)
     errs = phase.load.errors()
     assert sum(v for k, v in errs.items() if not k[:1].isdigit()) <= 8, failed(phase)
-    assert set(errs) <= {"503 busy", "RemoteDisconnected", "ConnectionResetError"}, failed(phase)
+    # The killed worker's in-flight requests lose their connection: before the answer began
+    # (RemoteDisconnected, ConnectionResetError, BrokenPipeError) or partway through it
+    # (IncompleteRead). Their number is bounded above; no other failure is allowed.
+    lost = {"RemoteDisconnected", "ConnectionResetError", "BrokenPipeError", "IncompleteRead"}
+    assert set(errs) <= {"503 busy", *lost}, failed(phase)
     health_within_bounds(phase)
 
 
