@@ -372,6 +372,23 @@ def method_skipped() -> Body:
     }
 
 
+def serial_dependence() -> Body:
+    """Building, 300 hourly readings sent in time order: the outdoor temperature follows the
+    day, and the departure of use from its usual level lasts for hours (a door left open, a
+    meeting that runs on: noise with lag-1 correlation 0.8). The out-of-fold residuals are
+    dependent in the order the rows arrived; the warning names `tuning.order_by` and the
+    schemes made for such rows."""
+    rng = _rng(15)
+    hours = np.arange(300)
+    temp = np.round(14.0 + 8.0 * np.sin(2 * np.pi * (hours - 9) / 24) + rng.normal(0, 1, 300), 1)
+    noise = np.zeros(300)
+    shocks = rng.normal(0.0, 6.0, 300)
+    for i in range(1, 300):
+        noise[i] = 0.8 * noise[i - 1] + shocks[i]
+    kwh = np.round(energy_kwh(temp, np.full(300, 150.0), rng, sd=0.0) + noise, 1)
+    return _building("knn", temp, kwh, [10.0, 15.0, 20.0])
+
+
 # -- the registry -------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Example:
@@ -404,6 +421,7 @@ EXAMPLES: dict[str, Example] = {
         Example("target_missing", target_missing, MISSING_ROWS),
         Example("x_rounded", x_rounded),
         Example("hull_not_tested", hull_not_tested),
+        Example("serial_dependence", serial_dependence),
     )
 }
 

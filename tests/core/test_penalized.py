@@ -331,7 +331,7 @@ def test_tuned_parameter_order_and_bounds_follow_the_penalty():
     assert LINEAR.is_bound(0.0, folds) and not LINEAR.is_bound(1.0, folds)
     assert LINEAR.is_bound(5.0, folds, {"lasso_alpha_max": 4.0})
     assert LINEAR.is_bound(1, folds) and not LINEAR.is_bound(2, folds)
-    assert LINEAR.schemes_for({"penalty": "lasso"}) == ("kfold",)
+    assert LINEAR.schemes_for({"penalty": "lasso"}) == ("kfold", "window", "blocks")
     assert LINEAR.interval_kinds_for({"penalty": "ridge"}) == ("cv_plus",)
     assert LINEAR.interval_kinds_for({"penalty": "none"}) == ("cv_plus", "model")
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from nearwise.core import hull, locality, pipeline
+from nearwise.core import hull, locality, pipeline, sequence
 from nearwise.core.methods import METHODS
 from nearwise.core.methods.knn import WIDE_FRACTION
 from nearwise.core.methods.spline_fits import INTERPOLATING_SHARE
@@ -128,6 +128,16 @@ def _warnings() -> list[dict[str, Any]]:
             "rule": "method auto: which method was chosen, and why",
         },
         {
+            "code": "serial_dependence",
+            "concerns": data,
+            "rule": "the out-of-fold residuals, in the order of `tuning.order_by` (or as the "
+            f"rows arrived), have a Ljung-Box p-value below {sequence.DEPENDENCE_ALPHA:g} over "
+            f"min({sequence.LB_MAX_LAGS}, steps // 5) lags and a lag-1 autocorrelation of at "
+            f"least {sequence.DEPENDENCE_MIN_LAG1:g} in size, while the scheme holds rows out "
+            "as if they were exchangeable (kfold, loo, gcv); on independent rows it fires "
+            f"in at most about {sequence.DEPENDENCE_ALPHA:.0%} of data sets",
+        },
+        {
             "code": "df_unavailable",
             "concerns": data,
             "rule": "some candidates' effective degrees of freedom could not be computed stably",
@@ -150,6 +160,16 @@ def describe() -> dict[str, Any]:
                 "seed": 0,
                 "rule": "one_se",
                 "metric": "rmse",
+            },
+            "ordered_schemes": {
+                "window": "with `order_by`: each step held out, the rows within `gap` steps "
+                "of it left out of its fit; for questions within the period the data cover",
+                "blocks": "with `order_by`: `folds` contiguous blocks of steps, `gap` steps "
+                "left out on each side; for questions about new periods",
+                "gap": "default: the last lag at which a pilot fit's out-of-fold residuals "
+                f"(kNN, k = clip(round(sqrt(n)), 5, 50), {5} contiguous blocks, no gap, "
+                f"averaged per step) have autocorrelation {sequence.GAP_ACF_LEVEL:g} or more, "
+                f"at most {sequence.GAP_MAX_SHARE:.0%} of the steps",
             },
         },
         "warnings": _warnings(),

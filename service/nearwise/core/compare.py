@@ -240,7 +240,10 @@ def compare(job: Job) -> CompareResult:
         target=ctx.data.target,
         features=ctx.data.features,
         ranking=tuple(rows),
-        paths={m: pipeline.report(job, t, ctx.folds) for m, t in tuned.items()},
+        paths={
+            m: pipeline.report(job, t, ctx.folds, ctx.gap, pipeline.dependence_of(ctx, t))
+            for m, t in tuned.items()
+        },
         recommended=name,
         reason=reason,
         warnings=tuple(skipped),

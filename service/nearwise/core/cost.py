@@ -45,15 +45,22 @@ class Shape:
     fits: int
     train_share: float
     models: int
+    scheme: str = "kfold"
 
     @classmethod
-    def of(cls, n: int, p: int, q: int, spec: TuningSpec) -> Shape:
-        if spec.scheme == "kfold":
+    def of(cls, n: int, p: int, q: int, spec: TuningSpec, n_folds: int | None = None) -> Shape:
+        """``n_folds``: the folds made (``window`` has one per step of ``order_by``)."""
+        if spec.scheme in ("kfold", "blocks"):
             fits = spec.folds * spec.repeats
-            return cls(n, p, q, fits, 1 - 1 / spec.folds, 1 + fits)
-        return cls(n, p, q, 1, 1.0, 2)
+            return cls(n, p, q, fits, 1 - 1 / spec.folds, 1 + fits, spec.scheme)
+        if spec.scheme == "window":
+            # Without a fast path every step is a fit on nearly all rows; kNN has one (below).
+            return cls(n, p, q, max(1, n_folds or n), 1.0, 2, "window")
+        return cls(n, p, q, 1, 1.0, 2, spec.scheme)
 
     def rows(self, n: int) -> Shape:
+        if self.scheme == "window":  # about one step per row
+            return replace(self, n=n, fits=max(1, round(self.fits * n / max(self.n, 1))))
         return replace(self, n=n)
 
     @property
@@ -112,6 +119,8 @@ def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> fl
         kmax = int(max(grid))
     else:
         kmax = min(50, max(1, int(s.n * s.train_share) - 1))
+    if s.scheme == "window":  # one neighbor query of all rows, as for leave-one-out
+        s = replace(s, fits=1)
     index = s.n * s.train_share
     per_point = _knn_point(index, s.p, kmax + 1)
     tuning = s.n * (s.fits * (1 - s.train_share) if s.train_share < 1 else 1) * per_point

@@ -85,7 +85,8 @@ def _first_text_cell(table: Table, j: int) -> None:
         i = int(np.flatnonzero([isinstance(c, str) for c in cells])[0])
         raise BadCell(
             f"{table.name} column `{table.columns[j]}` must hold numbers; row {i} holds text "
-            f"{cells[i]!r}. Only the `tuning.group_by` column may hold text.",
+            f"{cells[i]!r}. Only the `tuning.group_by` and `tuning.order_by` columns may hold "
+            "text.",
             [Where((table.name, "rows", i, j), "expected a number, found text")],
         )
 
@@ -132,6 +133,7 @@ def prepare(
     features: Sequence[str] | None,
     query: Table | None,
     group_by: str | None,
+    order_by: str | None = None,
 ) -> Prepared:
     """Resolve columns and check every cell the fit will use.
 
@@ -146,8 +148,9 @@ def prepare(
         )
     t = _column_index(train, target, ("target",))
     g = _column_index(train, group_by, ("tuning", "group_by")) if group_by else None
+    o = _column_index(train, order_by, ("tuning", "order_by")) if order_by else None
     if features is None:
-        f_idx = [j for j in range(len(train.columns)) if j != t and j != g]
+        f_idx = [j for j in range(len(train.columns)) if j not in (t, g, o)]
         if not f_idx:
             raise BadTable(
                 "train needs at least one feature column besides the target.",

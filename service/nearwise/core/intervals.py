@@ -158,6 +158,29 @@ def jackknife_plus(
     return lower, upper
 
 
+def jackknife(
+    mu: np.ndarray,
+    resid: np.ndarray,
+    level: float,
+    spread_q: np.ndarray | None = None,
+    spread_train: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The jackknife interval: the model fitted to all rows, plus and minus the
+    ceil(level (n + 1))-th smallest absolute held-out residual (scaled by the local spread
+    when given). Barber et al. (2021, section 2) call it the jackknife; it has no
+    finite-sample guarantee, and is close to ``level`` when the fit is stable to leaving rows
+    out. Used with leave-a-window-out residuals, for which no per-fold model is kept.
+    """
+    n, m = resid.size, mu.size
+    s = np.sort(_scores(resid, spread_train))
+    q = np.ones(m) if spread_q is None else spread_q
+    _, k_hi = ranks(n, level)
+    if k_hi > n or not np.isfinite(s[k_hi - 1]):
+        return np.full(m, -np.inf), np.full(m, np.inf)
+    half = q * s[k_hi - 1]
+    return mu - half, mu + half
+
+
 def local_spread(
     Xs: np.ndarray, resid: np.ndarray, Xq_s: np.ndarray, k: int | None = None
 ) -> tuple[np.ndarray, np.ndarray]:

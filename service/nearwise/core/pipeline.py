@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import cost, locality, tuning, uncertainty
+from nearwise.core import cost, locality, sequence, serial, tuning, uncertainty
 from nearwise.core.budget import Deadline
 from nearwise.core.data import Prepared, prepare
 from nearwise.core.errors import BadCell, NotApplicable, OverLimit, UnknownName, Where
@@ -20,7 +20,7 @@ from nearwise.core.results import (
     PredictResult,
     TuningReport,
 )
-from nearwise.core.spec import Job
+from nearwise.core.spec import ORDERED_SCHEMES, Job
 
 
 def get_method(name: str) -> Method:
@@ -51,6 +51,8 @@ class Context:
     y: np.ndarray
     folds: tuning.Folds
     deadline: Deadline
+    line: sequence.Timeline | None = None  # where the working rows lie along order_by
+    gap: serial.Gap | None = None  # window and blocks: the gap in force
 
 
 @dataclass
@@ -76,13 +78,26 @@ def setup(job: Job) -> Context:
     deadline = Deadline(job.time_budget_s)
     tuning.check_spec(job.tuning)
     check_fold_fits(job)
-    data = prepare(job.train, job.target, job.features, job.query, job.tuning.group_by)
-    # Work on the rows sorted by content, so that no answer depends on the order they came in.
-    canon = np.lexsort((data.y, *data.X.T[::-1]))
+    spec = job.tuning
+    data = prepare(job.train, job.target, job.features, job.query, spec.group_by, spec.order_by)
+    line = None
+    if spec.order_by is not None:
+        line = sequence.timeline(job.train, spec.order_by).take(data.kept)
+    # Work on the rows sorted by content (and place in time), so that no answer depends on the
+    # order they came in.
+    keys = (data.y, *data.X.T[::-1]) if line is None else (line.key, data.y, *data.X.T[::-1])
+    canon = np.lexsort(keys)
     X, y = data.X[canon], data.y[canon]
     groups = None if data.groups is None else data.groups[canon]
-    folds = tuning.make_folds(X.shape[0], job.tuning, groups, deadline.check)
-    return Context(job, data, canon, X, y, folds, deadline)
+    if line is not None:
+        line = line.take(canon)
+    gap = None
+    if spec.scheme in ORDERED_SCHEMES:
+        assert line is not None  # check_spec asks for order_by
+        folds, gap = serial.make_folds(spec, X, y, line, deadline.check)
+    else:
+        folds = tuning.make_folds(X.shape[0], spec, groups, deadline.check)
+    return Context(job, data, canon, X, y, folds, deadline, line, gap)
 
 
 def check_fold_fits(job: Job) -> None:
@@ -114,7 +129,7 @@ def check_grid_size(job: Job, grid) -> None:
 def shape(ctx: Context) -> cost.Shape:
     """The size of the request's work, for the cost estimate."""
     q = 0 if ctx.data.X_query is None else int(ctx.data.X_query.shape[0])
-    return cost.Shape.of(ctx.X.shape[0], ctx.X.shape[1], q, ctx.job.tuning)
+    return cost.Shape.of(ctx.X.shape[0], ctx.X.shape[1], q, ctx.job.tuning, ctx.folds.n_folds)
 
 
 def check_method(
@@ -194,9 +209,13 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
     if at_query:
         scale = settings.get("scale") or "standard"
         notices.extend(locality.query_flags(X, where, scale).notices)
+    oof_resid = _oof_residual(y, path, folds, chosen, model)
+    dep = serial.dependence(oof_resid, ctx.line, ctx.canon)
+    notices.extend(serial.notice(dep, job.tuning))
     cv_residual = None
     if not at_query:
-        cv_residual = _cv_residual(data, ctx.canon, path, folds, chosen, model)
+        cv_residual = np.full(data.y_all.shape, np.nan)
+        cv_residual[data.kept[ctx.canon]] = oof_resid
         notices.extend(_unusual(cv_residual))
     params: dict[str, Any] = {
         **{k: v for k, v in settings.items() if v is not None},
@@ -226,7 +245,7 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         target=data.target,
         features=data.features,
         params=params,
-        tuning=report(job, t, folds),
+        tuning=report(job, t, folds, ctx.gap, dep),
         fit=fit,
         model=summary,
         predictions=Predictions(
@@ -258,11 +277,17 @@ def cv_r2(y: np.ndarray, scores: tuning.Scores, c: int) -> float | None:
     return (1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None
 
 
-def report(job: Job, t: Tuned, folds) -> TuningReport:
+def report(
+    job: Job,
+    t: Tuned,
+    folds,
+    gap: serial.Gap | None = None,
+    dep: sequence.Dependence | None = None,
+) -> TuningReport:
     values, scores, path, tuned = t.values, t.scores, t.path, t.tuned
     return TuningReport(
         scheme=job.tuning.scheme,
-        folds=folds.n_folds if folds.scheme != "gcv" else None,
+        folds=folds.n_folds if folds.scheme in ("kfold", "blocks") else None,
         repeats=folds.repeats,
         seed=job.tuning.seed,
         rule=job.tuning.rule,
@@ -278,6 +303,10 @@ def report(job: Job, t: Tuned, folds) -> TuningReport:
             )
             for c, v in enumerate(values)
         ),
+        order_by=job.tuning.order_by,
+        gap=None if gap is None else gap.steps,
+        gap_source=None if gap is None else gap.source,
+        dependence=None if dep is None else dep.report(),
     )
 
 
@@ -332,16 +361,21 @@ def _fit_notices(data, t: Tuned, folds, model, at_query) -> list[Notice]:
     return notices
 
 
-def _cv_residual(data, canon, path, folds, chosen, model) -> np.ndarray:
-    """Out-of-fold residual of every training row (averaged over repeats), NaN where the
-    target is missing; for GCV the exact leave-one-out residual."""
+def dependence_of(ctx: Context, t: Tuned) -> sequence.Dependence | None:
+    """The dependence figures of a tuned method's chosen candidate (None for gcv, whose
+    residuals need the final fit)."""
+    if ctx.folds.scheme == "gcv":
+        return None
+    resid = _oof_residual(ctx.y, t.path, ctx.folds, t.chosen, None)
+    return serial.dependence(resid, ctx.line, ctx.canon)
+
+
+def _oof_residual(y, path, folds, chosen, model) -> np.ndarray:
+    """Out-of-fold residual of every usable training row in the working order (averaged over
+    repeats); for GCV the exact leave-one-out residual."""
     if folds.scheme == "gcv":
-        r = model.loo_residuals()
-    else:
-        r = data.y[canon] - path.oof[chosen].mean(axis=0)
-    out = np.full(data.y_all.shape, np.nan)
-    out[data.kept[canon]] = r
-    return out
+        return model.loo_residuals()
+    return y - path.oof[chosen].mean(axis=0)
 
 
 UNUSUAL_Z = 3.5

@@ -40,6 +40,10 @@ class TuningReport:
     group_by: str | None
     best: dict[str, Any]
     path: tuple[PathEntry, ...]
+    order_by: str | None = None
+    gap: int | None = None
+    gap_source: str | None = None
+    dependence: dict[str, Any] | None = None
 
 
 @dataclass(frozen=True)

@@ -8,7 +8,9 @@ from typing import Any
 
 from nearwise.core.data import Table
 
-SCHEMES = ("kfold", "loo", "gcv")
+SCHEMES = ("kfold", "loo", "gcv", "window", "blocks")
+#: Schemes that hold rows out along ``tuning.order_by`` (they need it).
+ORDERED_SCHEMES = ("window", "blocks")
 RULES = ("one_se", "min")
 METRICS = ("rmse", "mae")
 INTERVAL_KINDS = ("cv_plus", "model")
@@ -16,7 +18,10 @@ INTERVAL_KINDS = ("cv_plus", "model")
 
 @dataclass(frozen=True)
 class TuningSpec:
-    """Cross-validation settings. ``folds`` and ``repeats`` apply to ``kfold`` only."""
+    """Cross-validation settings. ``folds`` applies to ``kfold`` and ``blocks``, ``repeats`` to
+    ``kfold`` only. ``order_by`` names the column that places rows in time; ``gap`` (steps of
+    it) is left out around held-out rows by ``window`` and ``blocks`` (None: chosen from the
+    data)."""
 
     scheme: str = "kfold"
     folds: int = 5
@@ -25,6 +30,8 @@ class TuningSpec:
     rule: str = "one_se"
     metric: str = "rmse"
     group_by: str | None = None
+    order_by: str | None = None
+    gap: int | None = None
 
 
 @dataclass(frozen=True)

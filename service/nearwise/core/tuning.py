@@ -21,16 +21,21 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
-from nearwise.core.spec import METRICS, RULES, SCHEMES, TuningSpec
+from nearwise.core.spec import METRICS, ORDERED_SCHEMES, RULES, SCHEMES, TuningSpec
 
 
 @dataclass(frozen=True)
 class Folds:
     """How rows are split for cross-validation.
 
-    ``fold_id`` has shape (repeats, n): the test fold of each row in each repeat (K-fold), or
-    the row's own number (leave-one-out). For ``gcv`` there are no folds and ``fold_id`` is
-    None. ``min_train`` is the size of the smallest training fold (n for ``gcv``).
+    ``fold_id`` has shape (repeats, n): the test fold of each row in each repeat (K-fold and
+    ``blocks``: K folds; ``window``: one fold per step of ``order_by``), or the row's own
+    number (leave-one-out). For ``gcv`` there are no folds and ``fold_id`` is None.
+    ``min_train`` is the size of the smallest training fold (n for ``gcv``).
+
+    For ``window`` and ``blocks``, ``step`` holds each row's step along ``order_by``, ``span``
+    the first and last step of each fold, and ``gap`` the steps left out of training on each
+    side of a held-out fold.
     """
 
     scheme: str
@@ -40,9 +45,31 @@ class Folds:
     fold_id: np.ndarray | None
     min_train: int
     check: Callable[[], None] = field(default=lambda: None, compare=False, repr=False)
+    step: np.ndarray | None = field(default=None, compare=False, repr=False)
+    span: np.ndarray | None = field(default=None, compare=False, repr=False)
+    gap: int = 0
+
+    @property
+    def folded(self) -> bool:
+        """Whether rows are held out fold by fold (kfold, blocks, window), each fold scored by
+        a model fitted without it."""
+        return self.scheme in ("kfold", *ORDERED_SCHEMES)
+
+    @property
+    def keep_models(self) -> bool:
+        """Whether the path keeps one model per fold for CV+ intervals (not for ``window``,
+        whose folds are as many as the steps)."""
+        return self.scheme in ("kfold", "blocks")
+
+    def train_mask(self, f: int, ids: np.ndarray) -> np.ndarray:
+        """Training rows of fold f: the other folds, less the gap around f's span."""
+        if self.step is None or self.span is None:
+            return ids != f
+        lo, hi = self.span[f]
+        return (self.step < lo - self.gap) | (self.step > hi + self.gap)
 
     def splits(self):
-        """Yield ``(repeat, fold, train_index, test_index)`` for the K-fold scheme; the time
+        """Yield ``(repeat, fold, train_index, test_index)`` for the folded schemes; the time
         budget is checked before each fold."""
         assert self.fold_id is not None
         for r in range(self.repeats):
@@ -50,7 +77,7 @@ class Folds:
             for f in range(self.n_folds):
                 self.check()
                 test = np.flatnonzero(ids == f)
-                train = np.flatnonzero(ids != f)
+                train = np.flatnonzero(self.train_mask(f, ids))
                 yield r, f, train, test
 
 
@@ -71,7 +98,7 @@ def check_spec(spec: TuningSpec) -> None:
             f"`tuning.metric` must be one of {', '.join(METRICS)}; got {spec.metric!r}.",
             [Where(("tuning", "metric"), "unknown metric")],
         )
-    if spec.scheme == "kfold" and spec.folds < 2:
+    if spec.scheme in ("kfold", "blocks") and spec.folds < 2:
         raise InvalidValue(
             f"`tuning.folds` must be at least 2; got {spec.folds}.",
             [Where(("tuning", "folds"), "fewer than 2 folds")],
@@ -86,6 +113,30 @@ def check_spec(spec: TuningSpec) -> None:
             f"`tuning.repeats` applies to the kfold scheme only; {spec.scheme} is deterministic. "
             "Leave repeats at 1.",
             [Where(("tuning", "repeats"), f"not used by {spec.scheme}")],
+        )
+    if spec.scheme in ORDERED_SCHEMES and spec.order_by is None:
+        raise NotApplicable(
+            f"`tuning.scheme` {spec.scheme} holds rows out along time: name the column that "
+            "places each row in the sequence in `tuning.order_by`.",
+            [Where(("tuning", "order_by"), f"needed by {spec.scheme}")],
+        )
+    if spec.gap is not None and spec.scheme not in ORDERED_SCHEMES:
+        raise NotApplicable(
+            f"`tuning.gap` applies to the window and blocks schemes; {spec.scheme} leaves no "
+            "gap. Leave out `gap` or use one of those schemes.",
+            [Where(("tuning", "gap"), f"not used by {spec.scheme}")],
+        )
+    if spec.gap is not None and spec.gap < 0:
+        raise InvalidValue(
+            f"`tuning.gap` must be a whole number of steps, 0 or more; got {spec.gap}.",
+            [Where(("tuning", "gap"), "negative")],
+        )
+    if spec.scheme in ORDERED_SCHEMES and spec.group_by is not None:
+        raise NotApplicable(
+            f"`tuning.group_by` is not combined with the {spec.scheme} scheme: its folds follow "
+            "`order_by` alone. For several series (one per machine, say), use kfold with "
+            "`group_by` (each series held out whole), or send one series per request.",
+            [Where(("tuning", "group_by"), f"not used by {spec.scheme}")],
         )
     if spec.scheme != "kfold" and spec.group_by is not None:
         raise NotApplicable(
@@ -153,6 +204,53 @@ def make_folds(
     return Folds("kfold", n, k, spec.repeats, fold_id, min_train, *extra)
 
 
+def ordered_folds(
+    spec: TuningSpec,
+    step: np.ndarray,
+    steps: int,
+    gap: int,
+    check: Callable[[], None] | None = None,
+) -> Folds:
+    """Folds along ``order_by``: ``blocks`` deals the steps into ``folds`` contiguous runs of
+    nearly equal length; ``window`` makes every step a fold of its own. A fold's training rows
+    are those more than ``gap`` steps from every step of the fold (h-block and hv-block
+    cross-validation: Burman, Chow & Nolan 1994; Racine 2000).
+    """
+    extra = () if check is None else (check,)
+    n = int(step.size)
+    if spec.scheme == "blocks":
+        k = spec.folds
+        if steps < k:
+            raise TooFewRows(
+                f"{k} contiguous blocks need at least {k} distinct `{spec.order_by}` values; got "
+                f"{steps}. Use fewer folds (`tuning.folds`).",
+                [Where(("tuning", "folds"), f"{k} blocks for {steps} steps")],
+            )
+        of_step = (np.arange(steps) * k) // steps
+    else:
+        k = steps
+        of_step = np.arange(steps)
+    first = np.searchsorted(of_step, np.arange(k), side="left")
+    last = np.searchsorted(of_step, np.arange(k), side="right") - 1
+    span = np.stack([first, last], axis=1)
+    # Rows at or before each step, to count each fold's training rows without a pass per fold.
+    upto = np.concatenate([[0], np.cumsum(np.bincount(step, minlength=steps))])
+    lo = np.clip(first - gap, 0, steps)
+    hi = np.clip(last + gap + 1, 0, steps)
+    train = n - (upto[hi] - upto[lo])
+    min_train = int(train.min())
+    if min_train < 2:
+        f = int(np.argmin(train))
+        raise TooFewRows(
+            f"`tuning.gap` = {gap} steps leaves {min_train} training row(s) for the fold at "
+            f"steps {first[f]}-{last[f]} of {steps}; use a smaller gap"
+            + (" or more folds." if spec.scheme == "blocks" else "."),
+            [Where(("tuning", "gap"), "gap too large to leave training rows")],
+        )
+    fold_id = of_step[step][None, :].astype(np.intp)
+    return Folds(spec.scheme, n, k, 1, fold_id, min_train, *extra, step=step, span=span, gap=gap)
+
+
 @dataclass(frozen=True)
 class Scores:
     """Cross-validated errors of every candidate, in candidate order.
@@ -189,7 +287,7 @@ def score(
             resid = resid / gcv_scale[:, None, None]
     loss = resid**2 if metric == "rmse" else np.abs(resid)
     n_c = oof.shape[0]
-    if folds.scheme == "kfold":
+    if folds.folded:
         assert folds.fold_id is not None
         k = folds.n_folds
         units = np.empty((n_c, folds.repeats * k))
@@ -238,6 +336,8 @@ def choose(
     if not np.isfinite(error).any():
         fix = {
             "kfold": "Use fewer folds, a simpler grid, or more rows.",
+            "blocks": "Use a smaller gap, fewer folds, a simpler grid, or more rows.",
+            "window": "Use a smaller gap, a simpler grid, or more rows.",
             "loo": "Some row alone determines a term of every candidate; use `kfold`, a "
             "simpler grid, or more rows.",
             "gcv": "Every candidate uses all the degrees of freedom; use a simpler grid.",

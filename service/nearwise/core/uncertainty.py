@@ -22,7 +22,16 @@ from nearwise.core.results import Notice
 from nearwise.core.spec import INTERVAL_KINDS, IntervalSpec
 from nearwise.core.tuning import Folds
 
+ORDERED = (
+    "no finite-sample guarantee: the rows are serially dependent. Coverage is approximately "
+    "1 - alpha when the dependence fades within the gap and the series is long against it "
+    "(mixing conditions: Chernozhukov, Wuthrich & Zhu 2018; Barber, Candes, Ramdas & "
+    "Tibshirani 2023), for questions like those the scheme holds out"
+)
 GUARANTEE = {
+    "window": "jackknife on leave-a-window-out residuals (the fit to all rows plus and minus "
+    "a quantile of them): " + ORDERED + " (within the period the data cover)",
+    "blocks": "CV+ on contiguous blocks with a gap: " + ORDERED + " (new periods)",
     "kfold": "K-fold CV+: coverage at least 1 - 2 alpha - sqrt(2/n) for exchangeable rows "
     "(Barber et al. 2021), usually close to 1 - alpha",
     "loo": "jackknife+: coverage at least 1 - 2 alpha for exchangeable rows (Barber et al. "
@@ -135,13 +144,19 @@ def _bars(
             spread_q, spread_train = intervals.local_spread(
                 sc.transform(X), resid, sc.transform(Xq)
             )
-        if folds.scheme == "kfold":
+        if folds.keep_models:
             mu = np.stack([fm.predict(Xq, chosen) for fm in path.fold_models])
             lower, upper = intervals.cv_plus(
                 mu, folds.fold_id[0], resid, spec.level, spread_q, spread_train
             )
             report["construction"] = "cv_plus"
-            report["guarantee"] = GUARANTEE["kfold"]
+            report["guarantee"] = GUARANTEE[folds.scheme]
+        elif folds.scheme == "window":
+            with np.errstate(over="ignore", invalid="ignore"):
+                mu = model.predict(Xq)
+            lower, upper = intervals.jackknife(mu, resid, spec.level, spread_q, spread_train)
+            report["construction"] = "jackknife"
+            report["guarantee"] = GUARANTEE["window"]
         else:
             lower, upper = intervals.jackknife_plus(
                 model.loo_predictions(Xq),

@@ -29,9 +29,38 @@ class CompareTuningSchema(Strict):
     rule = fields.String()
     metric = fields.String()
     group_by = fields.String(allow_none=True)
+    order_by = fields.String(allow_none=True, metadata=_doc("The column placing rows in time."))
+    gap = fields.Integer(
+        allow_none=True,
+        metadata=_doc("`window` and `blocks`: the steps left out on each side (in force)."),
+    )
+
+
+class DependenceSchema(Strict):
+    """Serial dependence of the out-of-fold residuals of the chosen fit."""
+
+    lag1 = _num("Lag-1 autocorrelation (sample ACF, divisor n).")
+    ljung_box_p = _num("Ljung-Box p-value over `ljung_box_lags` lags.")
+    ljung_box_lags = fields.Integer(metadata=_doc("min(10, steps // 5)."))
+    effective_rows = _num("n (1 - rho) / (1 + rho), rho = max(lag1, 0).")
+    order = fields.String(
+        metadata=_doc("`order_by` (residuals averaged per step) or `arrival` (as sent).")
+    )
 
 
 class TuningReportSchema(CompareTuningSchema):
+    gap_source = fields.String(
+        allow_none=True, metadata=_doc("`caller` or `data` (the default rule); null without gap.")
+    )
+    dependence = fields.Nested(
+        DependenceSchema,
+        allow_none=True,
+        metadata=_doc(
+            "Serial dependence of the out-of-fold residuals: along `order_by` when given, "
+            "else in the order rows arrived; null with fewer than 10 steps (or for `gcv` in "
+            "compare)."
+        ),
+    )
     best = fields.Dict(
         keys=fields.String(), values=Scalar(), metadata=_doc("The minimum-error candidate.")
     )

@@ -83,11 +83,16 @@ class TuningSchema(Strict):
     scheme = fields.String(
         validate=validate.OneOf(SCHEMES),
         metadata=_doc(
-            "`kfold`, `loo`, or `gcv` where the method is a linear smoother.", default="kfold"
+            "`kfold`, `loo`, `gcv` where the method is a linear smoother; for rows in time "
+            "order (with `order_by`): `window` (each row predicted without the rows within "
+            "`gap` of it: questions within the period covered) or `blocks` (`folds` "
+            "contiguous blocks, `gap` left out on each side: questions about new periods).",
+            default="kfold",
         ),
     )
     folds = StrictInteger(
-        validate=validate.Range(2, 50), metadata=_doc("Folds for `kfold`.", default=5)
+        validate=validate.Range(2, 50),
+        metadata=_doc("Folds for `kfold`, blocks for `blocks`.", default=5),
     )
     repeats = StrictInteger(
         validate=validate.Range(1, 20),
@@ -113,6 +118,24 @@ class TuningSchema(Strict):
         metadata=_doc(
             "A train column; rows sharing a value stay in one fold. Not a feature by default."
         )
+    )
+    order_by = _name(
+        metadata=_doc(
+            "A train column placing each row in time or sequence: numbers, or ISO 8601 dates "
+            "or date-times (one form throughout). Needed by `window` and `blocks`; with any "
+            "scheme it gives the order in which `tuning.dependence` is measured. Not a "
+            "feature unless `features` lists it. Answers depend on its values, not on the "
+            "order rows are sent in."
+        )
+    )
+    gap = StrictInteger(
+        validate=validate.Range(0, 1_000_000),
+        metadata=_doc(
+            "`window` and `blocks`: steps of `order_by` (distinct values) left out of "
+            "training on each side of a held-out row or block. Default: chosen from the data "
+            "(the last lag at which a pilot fit's out-of-fold residuals still have "
+            "autocorrelation 0.1 or more, at most a tenth of the steps) and reported."
+        ),
     )
 
 

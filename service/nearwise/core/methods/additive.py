@@ -150,7 +150,7 @@ class Additive(Method):
             )
         need = p + 2
         if folds.min_train < need:
-            if folds.scheme == "kfold":
+            if folds.folded:
                 held, fix = "each training fold", "Use fewer folds or fewer features."
                 where = Where(("tuning", "folds"), "training fold too small")
             else:
@@ -227,24 +227,30 @@ class Additive(Method):
         full = self._full(X, y, folds, basis, work)
         df = np.array([full.df(v) for v in s])
         blocks = [b for _, b in basis.blocks]
-        if folds.scheme == "kfold":
+        if folds.folded:
             oof = np.empty((s.size, folds.repeats, n))
             models = []
             k = folds.n_folds
             for r in range(folds.repeats):
                 ids = folds.fold_id[r]
-                if r == 0 and work is not None and "fold_parts" in work:
+                gapped = folds.scheme != "kfold"
+                if gapped:
+                    parts = []  # each fold's training rows are reduced on their own
+                elif r == 0 and work is not None and "fold_parts" in work:
                     parts = work["fold_parts"]
                 else:
                     parts = self._fold_parts(basis, X, y, ids, k, folds.check)
                 for f in range(k):
                     folds.check()
-                    train, test = ids != f, ids == f
-                    aug = stack([parts[g] for g in range(k) if g != f])
+                    train, test = folds.train_mask(f, ids), ids == f
+                    if gapped:
+                        aug = reduce_rows(basis, X[train], y[train], folds.check)
+                    else:
+                        aug = stack([parts[g] for g in range(k) if g != f])
                     sm = Smoother.of(Reduced.of(aug, basis.k, int(train.sum())), blocks)
                     coefs = sm.coefs(s)
                     oof[:, r, test] = evaluate(basis, X[test], sm.red.kept, coefs).T
-                    if r == 0:
+                    if r == 0 and folds.keep_models:
                         models.append(FoldAdditive(basis, sm.red.kept, coefs))
             return PathResult(oof, df, fold_models=tuple(models))
         coefs = full.coefs(s)

@@ -137,7 +137,7 @@ class Method:
     summary: str = ""
     min_features: int = 1
     max_features: int | None = None
-    schemes: tuple[str, ...] = ("kfold", "loo", "gcv")
+    schemes: tuple[str, ...] = ("kfold", "loo", "gcv", "window", "blocks")
     params: tuple[Param, ...] = ()
     tuned: str = ""
     default_grid: str = ""

@@ -31,20 +31,59 @@ WIDE_FRACTION = 0.5  # wide_neighborhood: neighbors spanning more than this shar
 FIT_BLOCK_CELLS = 1_000_000  # neighbor-window entries per block of the final fit (8 MB each)
 
 
+@dataclass(frozen=True)
+class Drop:
+    """Index rows each query row must not use: its own row (leave-one-out), or every row
+    within ``gap`` steps of its own step along ``order_by`` (leave-a-window-out).
+
+    ``own`` holds each query row's index row, ``step`` the index rows' steps; ``most`` bounds
+    how many rows any query row drops, and ``counts`` says how many each one drops.
+    """
+
+    own: np.ndarray
+    step: np.ndarray | None = None
+    gap: int = 0
+
+    @classmethod
+    def window(cls, step: np.ndarray, gap: int) -> Drop:
+        return cls(np.arange(step.size), step, gap)
+
+    def take(self, rows: np.ndarray) -> Drop:
+        return Drop(self.own[rows], self.step, self.gap)
+
+    def counts(self) -> np.ndarray:
+        if self.step is None:
+            return np.ones(self.own.size, dtype=np.intp)
+        steps = int(self.step.max()) + 1
+        upto = np.concatenate([[0], np.cumsum(np.bincount(self.step, minlength=steps))])
+        mine = self.step[self.own]
+        return (
+            upto[np.clip(mine + self.gap + 1, 0, steps)] - upto[np.clip(mine - self.gap, 0, steps)]
+        )
+
+    def hits(self, ind: np.ndarray) -> np.ndarray:
+        if self.step is None:
+            return ind == self.own[:, None]
+        return np.abs(self.step[ind] - self.step[self.own][:, None]) <= self.gap
+
+
 def _query(
-    index: Index, Xq: np.ndarray, width: int, n_index: int, self_rows: np.ndarray | None
+    index: Index, Xq: np.ndarray, width: int, n_index: int, drop: Drop | None
 ) -> tuple[np.ndarray, np.ndarray]:
     """Sorted distances and indices of the ``width`` nearest indexed rows.
 
-    With ``self_rows``, each query row's own index entry is removed (not simply the first
-    column, so that duplicate rows are handled); if it was not among the neighbors returned,
-    the farthest one is removed instead.
+    With ``drop``, each query row's dropped rows are removed (matched by index, so that
+    duplicate rows are handled); ``width`` plus the most any row drops are fetched, and of
+    the rest the nearest ``width`` kept (a row whose dropped rows were not all among those
+    fetched keeps its nearest ``width``: the farthest are cut).
     """
-    if self_rows is None:
+    if drop is None:
         return index.kneighbors(Xq, n_neighbors=min(width, n_index))
-    d, ind = index.kneighbors(Xq, n_neighbors=min(width + 1, n_index))
-    is_self = ind == self_rows[:, None]
-    order = np.argsort(is_self, axis=1, kind="stable")[:, : d.shape[1] - 1]
+    counts = drop.counts()
+    extra = int(counts.max())
+    d, ind = index.kneighbors(Xq, n_neighbors=min(width + extra, n_index))
+    keep = min(width, n_index - extra) if drop.step is not None else min(width, n_index - 1)
+    order = np.argsort(drop.hits(ind), axis=1, kind="stable")[:, :keep]
     return np.take_along_axis(d, order, axis=1), np.take_along_axis(ind, order, axis=1)
 
 
@@ -119,26 +158,30 @@ def predict_all_k(
     kmax: int,
     weights: str,
     self_rows: np.ndarray | None = None,
+    drop: Drop | None = None,
 ) -> np.ndarray:
     """Predictions at ``Xq`` for every k in 1..kmax, shape (n_query, kmax).
 
     One query of kmax + 1 neighbors serves all k; rows whose tied run reaches past the window
-    are queried again with a wider window until the run is complete.
+    are queried again with a wider window until the run is complete. ``self_rows`` (each query
+    row's own index row) or ``drop`` name index rows a query row must not use.
     """
     n_index = y_index.shape[0]
-    n_avail = n_index - (self_rows is not None)
+    if self_rows is not None:
+        drop = Drop(self_rows)
+    n_avail = n_index - (drop.counts() if drop is not None else np.zeros(Xq.shape[0], np.intp))
     out = np.empty((Xq.shape[0], kmax))
     rows = np.arange(Xq.shape[0])
     width = kmax + 1
     while rows.size:
-        sr = None if self_rows is None else self_rows[rows]
-        d, ind = _query(index, Xq[rows], width, n_index, sr)
+        dr = None if drop is None else drop.take(rows)
+        d, ind = _query(index, Xq[rows], width, n_index, dr)
         w = d.shape[1]
-        open_run = (d[:, kmax - 1] == d[:, w - 1]) if w < n_avail else np.zeros(rows.size, bool)
+        open_run = (d[:, kmax - 1] == d[:, w - 1]) & (w < n_avail[rows])
         done = ~open_run
         out[rows[done]] = _all_k(d[done], y_index[ind[done]], kmax, weights)
         rows = rows[open_run]
-        width = min(2 * width, n_avail)
+        width = min(2 * width, int(n_avail.max()))
     return out
 
 
@@ -323,7 +366,7 @@ class KNN(Method):
     )
     min_features = 1
     max_features = None
-    schemes = ("kfold", "loo")
+    schemes = ("kfold", "loo", "window", "blocks")
     tuned = "k"
     default_grid = "k = 1, 2, ..., min(50, rows in the smallest training fold - 1)"
     params = (
@@ -400,15 +443,17 @@ class KNN(Method):
         kmax = max(values)
         cols = np.asarray(values) - 1
         weights, scale = settings["weights"], settings["scale"]
-        if folds.scheme == "loo":
+        if folds.scheme in ("loo", "window"):
+            # One neighbor query of all rows, each leaving out its own row (loo) or the rows
+            # within the gap of its step (window); features scaled once with all rows.
             sc = Scaler.fit(X, scale)
+            drop = (
+                Drop(np.arange(X.shape[0]))
+                if folds.scheme == "loo"
+                else Drop.window(folds.step, folds.gap)
+            )
             pred = predict_all_k(
-                _index(sc.transform(X)),
-                y,
-                sc.transform(X),
-                kmax,
-                weights,
-                self_rows=np.arange(X.shape[0]),
+                _index(sc.transform(X)), y, sc.transform(X), kmax, weights, drop=drop
             )
             oof = pred[:, cols].T[:, None, :]
             models = ()
@@ -420,7 +465,7 @@ class KNN(Method):
                 index = _index(sc.transform(X[train]))
                 pred = predict_all_k(index, y[train], sc.transform(X[test]), kmax, weights)
                 oof[:, r, test] = pred[:, cols].T
-                if r == 0:
+                if r == 0 and folds.keep_models:
                     models.append(FoldKNN(sc, index, y[train], weights, tuple(values)))
         df = X.shape[0] / np.asarray(values, dtype=float)
         return PathResult(oof, df, fold_models=tuple(models))

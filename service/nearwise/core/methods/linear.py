@@ -117,7 +117,7 @@ class Linear(Method):
         return "degree" if settings.get("penalty", "none") == "none" else "alpha"
 
     def schemes_for(self, settings) -> tuple[str, ...]:
-        return ("kfold",) if settings.get("penalty") == "lasso" else self.schemes
+        return ("kfold", "window", "blocks") if settings.get("penalty") == "lasso" else self.schemes
 
     def interval_kinds_for(self, settings) -> tuple[str, ...]:
         return self.interval_kinds if settings.get("penalty", "none") == "none" else ("cv_plus",)
@@ -226,7 +226,7 @@ class Linear(Method):
         top = self._terms(p, max(values), settings)
         D = design(sc.transform(X), top)
         sizes = [len(self._terms(p, d, settings)) for d in values]
-        if folds.scheme == "kfold":
+        if folds.folded:
             oof = np.empty((len(values), folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
@@ -238,7 +238,7 @@ class Linear(Method):
                     beta = linalg.solve_triangular(R[:q, :q], qty[:q])
                     oof[c, r, test] = D[np.ix_(test, kept[:q])] @ beta
                     betas.append((kept[:q], beta))
-                if r == 0:
+                if r == 0 and folds.keep_models:
                     models.append(FoldLinear(sc, top, tuple(betas)))
             _, _, kept = qr_kept(D)
             df = np.array([np.count_nonzero(kept < size) for size in sizes], dtype=float)

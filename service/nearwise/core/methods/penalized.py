@@ -220,10 +220,11 @@ def default_grid(penalty: str, Z: np.ndarray, y: np.ndarray, svd: RidgeSVD | Non
 
 def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
     penalty = settings.get("penalty")
-    if penalty == "lasso" and folds.scheme != "kfold":
+    if penalty == "lasso" and not folds.folded:
         raise NotApplicable(
             f"`tuning.scheme` {folds.scheme} does not apply to the lasso: it has no exact "
-            "leave-one-out update. Use `tuning.scheme: kfold`, or `penalty: ridge`.",
+            "leave-one-out update. Use `tuning.scheme` kfold, window or blocks, or "
+            "`penalty: ridge`.",
             [Where(("tuning", "scheme"), "lasso is tuned by kfold only")],
         )
     terms = terms_for(X.shape[1], settings)
@@ -244,14 +245,14 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
     penalty = settings.get("penalty")
     terms = terms_for(X.shape[1], settings)
     _, Z, svd = _full(X, y, terms, penalty, work)
-    if folds.scheme == "kfold":
+    if folds.folded:
         oof = np.empty((len(values), folds.repeats, n))
         models = []
         for r, _f, train, test in folds.splits():
             fold = Basis.fit(X[train], terms)
             b0, W, _ = solve(fold.transform(X[train]), y[train], penalty, values)
             oof[:, r, test] = b0[:, None] + (fold.transform(X[test]) @ W).T
-            if r == 0:
+            if r == 0 and folds.keep_models:
                 models.append(FoldPenalized(fold, b0, W))
         if svd is not None:
             df = 1.0 + svd.shrink(values).sum(axis=0)

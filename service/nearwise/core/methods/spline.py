@@ -20,6 +20,7 @@ from nearwise.core.methods.spline_fits import (
     FoldSpline1D,
     FoldThinPlate,
 )
+from nearwise.core.tuning import Folds
 
 GRID_SIZE = 20
 MIN_DISTINCT = 5
@@ -119,8 +120,8 @@ class Spline(Method):
                 "determined; drop a feature or use `linear`.",
                 [Where(("features",), "collinear features")],
             )
-        if folds.scheme == "kfold":
-            for _r, _f, train, _test in folds.splits():
+        if folds.folded:
+            for _r, _f, train, _test in self._check_splits(folds):
                 if self._distinct(X[train], settings) < need - 1 or (
                     p > 1 and not self._spans(X[train], settings)
                 ):
@@ -129,6 +130,18 @@ class Spline(Method):
                         "or its rows lie on a line or plane; use fewer folds.",
                         [Where(("tuning", "folds"), "training fold too small")],
                     )
+
+    @staticmethod
+    def _check_splits(folds: Folds):
+        """The training folds to check: all of them, or for ``window`` (a fold per step) the
+        one with the fewest training rows."""
+        if folds.scheme != "window":
+            yield from folds.splits()
+            return
+        ids = folds.fold_id[0]
+        sizes = [np.count_nonzero(folds.train_mask(f, ids)) for f in range(folds.n_folds)]
+        f = int(np.argmin(sizes))
+        yield 0, f, np.flatnonzero(folds.train_mask(f, ids)), np.flatnonzero(ids == f)
 
     def _distinct(self, X, settings) -> int:
         if X.shape[1] == 1:
@@ -207,7 +220,7 @@ class Spline(Method):
         df = np.array([d.sum() for d in diags])
         if work is not None:
             work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
-        if folds.scheme == "kfold":
+        if folds.folded:
             oof = np.empty((lams.size, folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
@@ -216,7 +229,7 @@ class Spline(Method):
                 fits = [kn.solve(yy, lam) for lam in lams]
                 for c, (g, gam) in enumerate(fits):
                     oof[c, r, test] = kn.evaluate(g, gam, x[test])
-                if r == 0:
+                if r == 0 and folds.keep_models:
                     models.append(FoldSpline1D(kn, tuple(fits)))
             return PathResult(oof, df, fold_models=tuple(models))
         inv = np.searchsorted(t, xs)
@@ -239,7 +252,7 @@ class Spline(Method):
         df = full.df(lams)
         if work is not None:
             work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
-        if folds.scheme == "kfold":
+        if folds.folded:
             oof = np.empty((lams.size, folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
@@ -247,7 +260,7 @@ class Spline(Method):
                 eig = thinplate.Tridiagonal(sc.transform(X[train]))
                 C, B = eig.coefficients(y[train], lams)
                 oof[:, r, test] = eig.predict(C, B, sc.transform(X[test])).T
-                if r == 0:
+                if r == 0 and folds.keep_models:
                     models.append(FoldThinPlate(sc, eig.X, C, B))
             return PathResult(oof, df, fold_models=tuple(models))
         eig = full

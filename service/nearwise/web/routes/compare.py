@@ -83,8 +83,10 @@ def compare() -> Response:
     with metrics.fitting("compare", job.train.n_rows):
         result = core_compare.compare(job)
     tuning = {k: v for k, v in asdict(job.tuning).items()}
-    if job.tuning.scheme != "kfold":
+    if job.tuning.scheme not in ("kfold", "blocks"):
         tuning["folds"] = None
+    if result.paths:  # the gap in force, the same for every method (chosen from the data)
+        tuning["gap"] = next(iter(result.paths.values())).gap
     if answer == "text/csv":
         resp = Response(serialize.compare_csv(result, intake.dialect), content_type=CSV_ANSWER)
         resp.headers["Nearwise-Recommended"] = result.recommended
