@@ -28,6 +28,9 @@ ROW_S = 0.8e-6
 #: leave-one-out prediction (per answer row and training row).
 CV_PLUS_S = 4e-6
 JACKKNIFE_S = 2e-8
+#: Leave-a-window-out solves from a hat matrix: per step and candidate, and per cubed window.
+WINDOW_STEP_S = 3e-6
+WINDOW_CUBE_S = 2e-9
 
 
 @dataclass(frozen=True)
@@ -46,16 +49,34 @@ class Shape:
     train_share: float
     models: int
     scheme: str = "kfold"
+    width: int = 1  # window: the most rows one held-out step leaves out
+
+    def window_fast(self, candidates: int) -> tuple[Shape, float]:
+        """For a method with a leave-a-window-out fast path: the shape of its one fit on all
+        rows, and the seconds of the window solves (one per step and candidate)."""
+        if self.scheme != "window":
+            return self, 0.0
+        solves = self.fits * candidates * (WINDOW_STEP_S + self.width**3 * WINDOW_CUBE_S)
+        return replace(self, fits=1), solves
 
     @classmethod
-    def of(cls, n: int, p: int, q: int, spec: TuningSpec, n_folds: int | None = None) -> Shape:
-        """``n_folds``: the folds made (``window`` has one per step of ``order_by``)."""
+    def of(
+        cls,
+        n: int,
+        p: int,
+        q: int,
+        spec: TuningSpec,
+        n_folds: int | None = None,
+        width: int = 1,
+    ) -> Shape:
+        """``n_folds``: the folds made (``window`` has one per step of ``order_by``);
+        ``width``: the most rows a ``window`` fold leaves out of training."""
         if spec.scheme in ("kfold", "blocks"):
             fits = spec.folds * spec.repeats
             return cls(n, p, q, fits, 1 - 1 / spec.folds, 1 + fits, spec.scheme)
         if spec.scheme == "window":
             # Without a fast path every step is a fit on nearly all rows; kNN has one (below).
-            return cls(n, p, q, max(1, n_folds or n), 1.0, 2, "window")
+            return cls(n, p, q, max(1, n_folds or n), 1.0, 2, "window", max(1, width))
         return cls(n, p, q, 1, 1.0, 2, spec.scheme)
 
     def rows(self, n: int) -> Shape:
@@ -119,10 +140,12 @@ def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> fl
         kmax = int(max(grid))
     else:
         kmax = min(50, max(1, int(s.n * s.train_share) - 1))
-    if s.scheme == "window":  # one neighbor query of all rows, as for leave-one-out
-        s = replace(s, fits=1)
+    width = kmax + 1
+    if s.scheme == "window":  # one neighbor query of all rows, as for leave-one-out, whose
+        s = replace(s, fits=1)  # window also holds the rows each one leaves out
+        width += s.width
     index = s.n * s.train_share
-    per_point = _knn_point(index, s.p, kmax + 1)
+    per_point = _knn_point(index, s.p, width)
     tuning = s.n * (s.fits * (1 - s.train_share) if s.train_share < 1 else 1) * per_point
     queries = s.answers * s.models * _knn_point(s.n, s.p, kmax)
     build = s.fits * index * log2(index + 2) * s.p * 5e-8
@@ -144,6 +167,14 @@ def _terms(p: int, degree: int, interactions: bool) -> int:
 
 def linear(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
     penalty = settings.get("penalty") or "none"
+    if penalty != "lasso":  # least squares and ridge: window from the hat matrix
+        name = "degree" if penalty == "none" else "alpha"
+        s, solves = s.window_fast(_count(grid, settings, name, 3 if penalty == "none" else 30))
+        return solves + _linear(settings, grid, s, penalty)
+    return _linear(settings, grid, s, penalty)
+
+
+def _linear(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape, penalty: str):
     if penalty == "none":
         degree = settings.get("degree") or (max(grid) if grid is not None else 3)
         interactions = settings.get("interactions")
@@ -175,6 +206,11 @@ THIN_PLATE_KERNEL_S = 2.0e-9  # per squared row, feature and fit: the kernel mat
 
 def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
     m = _count(grid, settings, "smoothing", 20)
+    solves = 0.0
+    if s.p == 1:  # window from the hat matrix (one banded solve per knot and candidate)
+        s, solves = s.window_fast(m)
+        knots = min(s.n, 1000)
+        solves += (knots * knots * m * 1e-8) if solves else 0.0
     fits = s.fits + 1
     if s.p == 1:
         knots = min(s.n, 1000)
@@ -182,7 +218,7 @@ def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
         # interval, whichever are fewer (see FittedSpline1D.variance).
         variance = min(s.answers, 7 * knots) * knots * knots * SPLINE_VARIANCE_S
         tuning = fits * (s.n * SPLINE_ROW_S + knots * m * SPLINE_SOLVE_S)
-        return tuning + variance + s.answers * s.models * 1e-6
+        return tuning + variance + s.answers * s.models * 1e-6 + solves
     rows = s.n * s.train_share
     kernel = fits * rows * rows * s.p * THIN_PLATE_KERNEL_S
     return (

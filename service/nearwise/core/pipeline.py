@@ -129,7 +129,8 @@ def check_grid_size(job: Job, grid) -> None:
 def shape(ctx: Context) -> cost.Shape:
     """The size of the request's work, for the cost estimate."""
     q = 0 if ctx.data.X_query is None else int(ctx.data.X_query.shape[0])
-    return cost.Shape.of(ctx.X.shape[0], ctx.X.shape[1], q, ctx.job.tuning, ctx.folds.n_folds)
+    n, folds = ctx.X.shape[0], ctx.folds
+    return cost.Shape.of(n, ctx.X.shape[1], q, ctx.job.tuning, folds.n_folds, n - folds.min_train)
 
 
 def check_method(

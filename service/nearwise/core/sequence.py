@@ -233,19 +233,41 @@ def dependence(series: np.ndarray, n_rows: int, order: str) -> Dependence | None
     return Dependence(float(r[0]), p, lags, n_rows * (1 - rho) / (1 + rho), order)
 
 
-def default_gap(series: np.ndarray, steps: int) -> tuple[int, bool]:
-    """The gap, in steps, chosen from a pilot's out-of-fold residuals in time order.
+def difference_lag1(series: np.ndarray, piece: np.ndarray) -> float:
+    """The lag-1 correlation of an AR(1) noise estimated from first differences.
 
-    The rule: the last lag whose autocorrelation is still at least GAP_ACF_LEVEL (0.1), so
+    For e_t = phi e_{t-1} + u_t, the differences d_t = e_t - e_{t-1} have lag-1 correlation
+    -(1 - phi) / 2, so phi = 1 + 2 corr(d_t, d_{t+1}). Differencing removes a part of the
+    series that varies slowly in time (a pilot fit's bias, when the features follow time), so
+    the estimate sees the noise. Only differences and pairs of differences within one
+    ``piece`` (a pilot fold) are used. Clipped to [0, 0.99]; 0 with fewer than MIN_STEPS
+    usable pairs.
+    """
+    d = np.diff(series)
+    same = piece[1:] == piece[:-1]
+    pair = same[1:] & same[:-1]
+    if np.count_nonzero(pair) < MIN_STEPS:
+        return 0.0
+    a, b = d[:-1][pair], d[1:][pair]
+    used = np.concatenate([a, b])
+    mean = used.mean()
+    c0 = float(np.mean((used - mean) ** 2))
+    if c0 <= 0:
+        return 0.0
+    r = float(np.mean((a - mean) * (b - mean))) / c0
+    return float(np.clip(1.0 + 2.0 * r, 0.0, 0.99))
+
+
+def default_gap(phi: float, steps: int) -> tuple[int, bool]:
+    """The gap, in steps, for AR(1) noise with lag-1 correlation ``phi``.
+
+    The rule: the last lag h whose correlation phi^h is still at least GAP_ACF_LEVEL (0.1), so
     that the rows left out around a held-out row are those whose noise still carries over to
-    it (0 when even r_1 is below 0.1). It is at most GAP_MAX_SHARE of the steps; the second
-    value says whether that bound applied.
+    it (0 when phi < 0.1). It is at most GAP_MAX_SHARE of the steps; the second value says
+    whether that bound applied.
     """
     most = int(GAP_MAX_SHARE * steps)
-    if series.size < MIN_STEPS or most < 1:
+    if phi < GAP_ACF_LEVEL or most < 1:
         return 0, False
-    r = acf(series, most + 1)
-    below = np.flatnonzero(r < GAP_ACF_LEVEL)
-    if not below.size:
-        return most, True
-    return int(below[0]), False
+    gap = int(np.floor(np.log(GAP_ACF_LEVEL) / np.log(phi) + 1e-9))
+    return (most, True) if gap > most else (gap, False)

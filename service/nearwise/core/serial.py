@@ -4,8 +4,10 @@
 The default gap comes from a pilot fit that is the same for every method, so that ``compare``
 and ``auto`` tune every method on the same folds: kNN with k = clip(round(sqrt(n)), 5, 50) on
 standard-scaled features, scored on 5 contiguous blocks along ``order_by`` with no gap. Its
-out-of-fold residuals, averaged per step, give the autocorrelations r_h; the gap is the last
-lag whose r_h is still at least 0.1 (see :func:`nearwise.core.sequence.default_gap`).
+out-of-fold residuals, averaged per step, give an AR(1) estimate of the noise's lag-1
+correlation phi from their first differences (which removes the pilot's bias where the
+features follow time); the gap is the last lag h with phi^h >= 0.1, at most a tenth of the
+steps (see :func:`nearwise.core.sequence.default_gap`).
 """
 
 from __future__ import annotations
@@ -30,6 +32,7 @@ class Gap:
     steps: int
     source: str
     capped: bool = False
+    phi: float | None = None  # data: the pilot's estimate of the noise's lag-1 correlation
 
 
 def pilot_k(n: int) -> int:
@@ -53,8 +56,10 @@ def choose_gap(
         return Gap(0, "data")
     path = KNN().path(X, y, folds, {"weights": "uniform", "scale": "standard"}, [k])
     series = sequence.step_means(y - path.oof[0, 0], step, steps)
-    gap, capped = sequence.default_gap(series, steps)
-    return Gap(gap, "data", capped)
+    piece = (np.arange(steps) * PILOT_BLOCKS) // steps  # the pilot fold of each step
+    phi = sequence.difference_lag1(series, piece)
+    gap, capped = sequence.default_gap(phi, steps)
+    return Gap(gap, "data", capped, phi)
 
 
 def make_folds(

@@ -21,6 +21,7 @@ from functools import partial
 import numpy as np
 from scipy import linalg
 
+from nearwise.core import windows
 from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
 from nearwise.core.methods import penalized
@@ -226,7 +227,7 @@ class Linear(Method):
         top = self._terms(p, max(values), settings)
         D = design(sc.transform(X), top)
         sizes = [len(self._terms(p, d, settings)) for d in values]
-        if folds.folded:
+        if folds.keep_models:
             oof = np.empty((len(values), folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
@@ -250,6 +251,21 @@ class Linear(Method):
         qs = [int(np.count_nonzero(kept < size)) - 1 for size in sizes]
         fitted = fits[:, qs].T  # (candidates, n)
         df = np.asarray([q + 1 for q in qs], dtype=float)
+        if folds.scheme == "window":
+            # Leave-a-window-out from the hat matrix Q Q' of the fit to all rows.
+            oof = np.empty((len(values), 1, n))
+            for c, q in enumerate(qs):
+                Qc = Q[:, : q + 1]
+                oof[c, 0] = windows.window_oof(
+                    y,
+                    fitted[c],
+                    folds.step,
+                    folds.n_folds,
+                    folds.gap,
+                    lambda rows, Qc=Qc: np.einsum("bik,bjk->bij", Qc[rows], Qc[rows]),
+                    folds.check,
+                )
+            return PathResult(oof, df)
         if folds.scheme == "gcv":
             return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
         h = lev[:, qs].T

@@ -37,6 +37,7 @@ from scipy import linalg
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import lasso_path
 
+from nearwise.core import windows
 from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
 from nearwise.core.methods.base import PathResult
@@ -245,6 +246,23 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
     penalty = settings.get("penalty")
     terms = terms_for(X.shape[1], settings)
     _, Z, svd = _full(X, y, terms, penalty, work)
+    if folds.scheme == "window" and svd is not None:
+        # Ridge: leave-a-window-out from the hat matrix 1/n + U diag(shrink) U' of all rows.
+        S = svd.shrink(values)
+        fitted = y.mean() + (svd.U @ (S * svd.uty[:, None])).T
+        oof = np.empty((len(values), 1, n))
+        for c in range(len(values)):
+            Us = svd.U * np.sqrt(S[:, c])[None, :]
+            oof[c, 0] = windows.window_oof(
+                y,
+                fitted[c],
+                folds.step,
+                folds.n_folds,
+                folds.gap,
+                lambda rows, Us=Us: 1.0 / n + np.einsum("bik,bjk->bij", Us[rows], Us[rows]),
+                folds.check,
+            )
+        return PathResult(oof, 1.0 + S.sum(axis=0))
     if folds.folded:
         oof = np.empty((len(values), folds.repeats, n))
         models = []

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import linalg
 
+from nearwise.core import windows
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import NotApplicable, TooFewRows, UnsupportedDimension, Where
 from nearwise.core.methods import spline1d, thinplate
@@ -220,7 +221,7 @@ class Spline(Method):
         df = np.array([d.sum() for d in diags])
         if work is not None:
             work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
-        if folds.folded:
+        if folds.keep_models:
             oof = np.empty((lams.size, folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
@@ -237,6 +238,21 @@ class Spline(Method):
         for c, lam in enumerate(lams):
             g, _ = full.solve(ybar, lam)
             fitted[c] = g[inv]
+        if folds.scheme == "window":
+            # Leave-a-window-out from the hat matrix of the fit to all rows (at their knots).
+            oof = np.empty((lams.size, 1, n))
+            for c, lam in enumerate(lams):
+                Hk = full.hat(float(lam))
+                oof[c, 0] = windows.window_oof(
+                    y,
+                    fitted[c],
+                    folds.step,
+                    folds.n_folds,
+                    folds.gap,
+                    lambda rows, Hk=Hk: Hk[inv[rows][:, :, None], inv[rows][:, None, :]],
+                    folds.check,
+                )
+            return PathResult(oof, df)
         if folds.scheme == "gcv":
             return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
         h = np.array([d[inv] / w[inv] for d in diags])

@@ -140,6 +140,25 @@ class Knots:
         g = y - self.lam_u(lam) * self.q(gam) / self.w
         return g, np.concatenate([[0.0], gam, [0.0]])
 
+    def hat(self, lam: float) -> np.ndarray:
+        """The symmetric matrix (W + lam K)^-1, shape (knots, knots): entry (j, l) is the
+        weight of one row at knot l in the fit at knot j (the smoother matrix A(lam) = (W +
+        lam K)^-1 W divided by the counts). By the Reinsch form, (W + lam K)^-1 = W^-1 - lam
+        W^-1 Q B^-1 Q' W^-1 with B = R + lam Q'W^-1 Q banded: one banded solve with a
+        right-hand side per knot."""
+        lam = self.lam_u(lam)
+        band = self.r_band + lam * self.m_band
+        full = np.vstack([band, band[1::-1]])
+        full[3, :-1] = band[1, 1:]
+        full[4, :-2] = band[0, 2:]
+        full[3, -1] = full[4, -2:] = 0.0
+        iw = 1.0 / self.w
+        E = self.qt(np.diag(iw))  # Q'W^-1, (knots - 2, knots)
+        Z = linalg.solve_banded((2, 2), full, E, check_finite=False)
+        out = -lam * (E.T @ Z)
+        out[np.diag_indices_from(out)] += iw
+        return out
+
     def diag_smoother(self, lam: float) -> np.ndarray:
         """Diagonal of the smoother matrix A(lam) = (W + lam K)^-1 W at the knots (NaN where
         the band matrix is numerically singular).
