@@ -256,6 +256,7 @@ def _predict(ctx: pipeline.Context, t: pipeline.Tuned, job: Job) -> PredictResul
     from nearwise.core import uncertainty
 
     uncertainty.check(job.interval, t.method, t.method.interval_kinds_for(t.settings))
+    pipeline.check_model_interval(t.method, job)
     return pipeline.answer(ctx, t)
 
 

@@ -100,6 +100,21 @@ def setup(job: Job) -> Context:
     return Context(job, data, canon, X, y, folds, deadline, line, gap)
 
 
+def check_model_interval(method: Method, job: Job) -> None:
+    """Refuse a smoother's model band for rows in time order: the band assumes independent
+    noise, and no correction for dependence is offered for it."""
+    if job.interval.kind != "model" or job.tuning.order_by is None:
+        return
+    if method.name in ("spline", "additive"):
+        raise NotApplicable(
+            f"`interval.kind` model is not offered for {method.name} with `tuning.order_by`: "
+            "its Bayesian band assumes independent noise and would be too narrow for rows "
+            "whose noise carries over in time. Use kind cv_plus (with scheme window or "
+            "blocks), or linear, whose model interval uses HAC standard errors.",
+            [Where(("interval", "kind"), f"no model band for ordered rows with {method.name}")],
+        )
+
+
 def check_fold_fits(job: Job) -> None:
     """Refuse more folds x repeats than the service allows."""
     spec, cap = job.tuning, job.caps.fold_fits
@@ -141,6 +156,7 @@ def check_method(
     settings = method.settings(params)
     if intervals:
         uncertainty.check(job.interval, method, method.interval_kinds_for(settings))
+        check_model_interval(method, job)
     schemes = method.schemes_for(settings)
     if job.tuning.scheme not in schemes:
         raise NotApplicable(
@@ -153,7 +169,9 @@ def check_method(
 
 def tune(ctx: Context, method: Method, settings: dict[str, Any], grid) -> Tuned:
     """Score every candidate of ``method`` on the shared folds and choose one."""
-    work: dict[str, Any] = {"features": ctx.data.features}
+    # ``line``: where the working rows lie along order_by (None without it), for fits whose
+    # error figures account for serial dependence (linear: HAC standard errors).
+    work: dict[str, Any] = {"features": ctx.data.features, "line": ctx.line}
     values = method.candidates(ctx.X, ctx.y, ctx.folds, settings, grid, work)
     ctx.deadline.check()
     path = method.path(ctx.X, ctx.y, ctx.folds, settings, values, work)
@@ -261,7 +279,22 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         warnings=tuple(notices),
         interval=bars.report,
         curve=curve,
+        series=_series(ctx, oof_resid, dep),
     )
+
+
+def _series(ctx: Context, resid: np.ndarray, dep) -> dict[str, Any] | None:
+    """With order_by: the out-of-fold residuals against it, in time order (for pictures)."""
+    if ctx.line is None:
+        return None
+    order = np.argsort(ctx.line.key, kind="stable")
+    return {
+        "column": ctx.line.column,
+        "kind": ctx.line.kind,
+        "t": ctx.line.key[order],
+        "residual": resid[order],
+        "lag1": None if dep is None else dep.lag1,
+    }
 
 
 def curve_grid(X: np.ndarray, points: int) -> np.ndarray:

@@ -92,3 +92,6 @@ class PredictResult:
     interval: dict[str, Any] | None = None
     comparison: dict[str, Any] | None = None  # method auto: the ranking behind the choice
     curve: dict[str, Any] | None = None  # one feature, when asked: the fit on an even grid
+    # With order_by: column, kind ("number", "date", "datetime"), t (keys in time order: numbers
+    # as sent, dates as seconds since 1970 UTC), residual (out of fold), lag1.
+    series: dict[str, Any] | None = None
