@@ -35,7 +35,19 @@ bp = Blueprint("cell", __name__, url_prefix="/v1")
 PARTS = ("value", "lower", "upper", "std_error", "flags")
 #: Distinct x values from which the default method is ``spline`` rather than ``linear``.
 SPLINE_FROM = 5
-PARAMETERS = ("x", "y", "at", "method", "part", "level", "decimal", "folds", "scheme")
+PARAMETERS = (
+    "x",
+    "y",
+    "at",
+    "method",
+    "part",
+    "level",
+    "decimal",
+    "folds",
+    "scheme",
+    "t",
+    "gap",
+)
 TEXT = "text/plain; charset=utf-8"
 _NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
 
@@ -104,10 +116,25 @@ _PARAMETERS = [
     ),
     _parameter(
         "scheme",
-        "Cross-validation scheme (`tuning.scheme`): `kfold`, `loo` or `gcv`.",
+        "Cross-validation scheme (`tuning.scheme`): `kfold`, `loo` or `gcv`; with `t`, also "
+        "`window` or `blocks`.",
         type="string",
         enum=list(SCHEMES),
         default="kfold",
+    ),
+    _parameter(
+        "t",
+        "Optional: where each row lies in time, one number per `x` value (a spreadsheet's "
+        "date serial numbers will do): `tuning.order_by`. The dependence of the residuals is "
+        "then measured along `t`, and `scheme` may be `window` or `blocks`. " + _LIST,
+        "1,2,3,4,5,6,7,8",
+    ),
+    _parameter(
+        "gap",
+        "With `scheme` `window` or `blocks`: steps of `t` left out on each side "
+        "(`tuning.gap`); default chosen from the data.",
+        type="integer",
+        minimum=0,
     ),
 ]
 
@@ -172,20 +199,32 @@ def cell() -> Response:
                 [{"parameter": name, "message": "too long"}],
                 code="table_too_large",
             )
+    t = _numbers("t", args, comma) if "t" in args else None
+    if t is not None and len(t) != len(x):
+        raise _bad(
+            f"`x` has {len(x)} values and `t` has {len(t)}; give one t per x.",
+            "t",
+            f"{len(t)} values for {len(x)} x values",
+        )
     part = args.get("part", "value")
     if part not in PARTS:
         raise _bad(f"`part` is one of {', '.join(PARTS)}; got {part!r}.", "part", "unknown part")
     method = args.get("method") or _default_method(x, y)
+    columns, cells = ("x", "y"), [x, y]
+    tuning = _tuning(args)
+    if t is not None:
+        columns, cells = ("x", "y", "t"), [x, y, t]
+        tuning["order_by"] = "t"
     job = Job(
         method=method,
         methods=None,
-        train=Table("train", ("x", "y"), np.column_stack([x, y]).reshape(len(x), 2)),
+        train=Table("train", columns, np.column_stack(cells).reshape(len(x), len(columns))),
         target="y",
-        features=None,
+        features=["x"],
         query=Table("query", ("x",), at.reshape(-1, 1)),
         params={},
         grid={},
-        tuning=TuningSpec(**_tuning(args)),
+        tuning=TuningSpec(**tuning),
         interval=IntervalSpec(**_interval(args)),
         time_budget_s=settings.time_budget_s,
         caps=caps(settings),
@@ -298,6 +337,13 @@ def _tuning(args: dict[str, str]) -> dict[str, Any]:
             ) from None
         if not 2 <= out["folds"] <= 50:
             raise _bad("`folds` is a whole number from 2 to 50.", "folds", "out of range")
+    if "gap" in args:
+        try:
+            out["gap"] = int(args["gap"])
+        except ValueError:
+            raise _bad("`gap` is a whole number, 0 or more.", "gap", "not an integer") from None
+        if out["gap"] < 0:
+            raise _bad("`gap` is a whole number, 0 or more.", "gap", "negative")
     if "scheme" in args:
         if args["scheme"] not in SCHEMES:
             raise _bad(f"`scheme` is one of {', '.join(SCHEMES)}.", "scheme", "unknown scheme")
@@ -330,7 +376,8 @@ def _line(row: dict[str, Any], part: str, comma: bool) -> str:
     return text.replace(".", ",") if comma else text
 
 
-_RENAMES = {"train": {0: "x", 1: "y"}, "query": {0: "at"}}
+_RENAMES = {"train": {0: "x", 1: "y", 2: "t"}, "query": {0: "at"}}
+_TUNING_NAMES = {"order_by": "t"}
 
 
 def _rename(where: Where) -> Where:
@@ -345,7 +392,7 @@ def _rename(where: Where) -> Where:
             return Where((names,), f"item {int(path[2]) + 1}: {where.message}")
         return Where(("x, y" if path[0] == "train" else "at",), where.message)
     if len(path) >= 2 and path[0] in ("tuning", "interval"):
-        return Where((str(path[1]),), where.message)
+        return Where((_TUNING_NAMES.get(str(path[1]), str(path[1])),), where.message)
     return where
 
 
@@ -358,8 +405,8 @@ def _cell_problem(exc: NearwiseError) -> Problem:
         entries.append({"parameter": str(renamed.path[0]), "message": renamed.message})
     detail = exc.detail
     if "`tuning." in detail or "`interval." in detail:
-        detail += " Here `tuning.folds`, `tuning.scheme` and `interval.level` are the "
-        detail += "parameters `folds`, `scheme` and `level`."
+        detail += " Here `tuning.folds`, `tuning.scheme`, `tuning.gap`, `tuning.order_by` and "
+        detail += "`interval.level` are the parameters `folds`, `scheme`, `gap`, `t` and `level`."
     over = isinstance(exc, OverBudget)
     headers = {"Retry-After": str(RETRY_AFTER_S)} if over else {}
     status = 503 if over else 422
