@@ -242,11 +242,13 @@ def additive(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) 
 
     knots = settings.get("knots") or default_knots(s.p)
     b = s.p * (int(knots) - 2) + s.p + 1
+    s, solves = s.window_fast(_count(grid, settings, "smoothing", 20))
+    solves *= 1 + b / 20 if solves else 1  # the blocks are built from b columns per row
     fits = s.fits + 1
     rows = s.n * s.train_share
     queries = s.answers * s.models * b * 1e-8
     per_fit = rows * b * (ADDITIVE_COLUMN_S + b * ADDITIVE_ROW_S) + b**3 * ADDITIVE_REML_S
-    return fits * per_fit + queries
+    return fits * per_fit + queries + solves
 
 
 ESTIMATES: dict[str, Callable[[Mapping[str, Any], Sequence[Any] | None, Shape], float]] = {

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from nearwise.core import windows
 from nearwise.core.errors import InvalidValue, TooFewRows, Where
 from nearwise.core.methods.additive_basis import (
     BLOCK,
@@ -227,6 +228,8 @@ class Additive(Method):
         full = self._full(X, y, folds, basis, work)
         df = np.array([full.df(v) for v in s])
         blocks = [b for _, b in basis.blocks]
+        if folds.scheme == "window":
+            return PathResult(self._window(X, y, folds, basis, full, s), df)
         if folds.folded:
             oof = np.empty((s.size, folds.repeats, n))
             models = []
@@ -266,6 +269,34 @@ class Additive(Method):
             loo = y[None, :] - (y[None, :] - fitted) / (1 - h)
         loo = np.where(h < 1 - 1e-10, loo, np.nan)
         return PathResult(loo[:, None, :], df)
+
+    @staticmethod
+    def _window(X, y, folds, basis, full: Smoother, s: np.ndarray) -> np.ndarray:
+        """Leave-a-window-out predictions from the hat matrix of the fit to all rows, with the
+        per-feature weights that REML chose on all rows held fixed (as for leave-one-out):
+        H_ab = q1_a . q1_b + sum_j g_aj g_bj / (sig2_j + s), from :meth:`Smoother.pieces`."""
+        n = X.shape[0]
+        fitted = evaluate(basis, X, full.red.kept, full.coefs(s)).T
+        q1 = np.empty((n, full.red.kept.size))
+        g = np.empty((n, full.sig2.size))
+        for start in range(0, n, BLOCK):
+            q1[start : start + BLOCK], g[start : start + BLOCK] = full.pieces(
+                *basis.design(X[start : start + BLOCK])
+            )
+        oof = np.empty((s.size, 1, n))
+        for c, v in enumerate(s):
+            G = g / np.sqrt(full.sig2 + v)[None, :]
+            P = np.concatenate([q1, G], axis=1)
+            oof[c, 0] = windows.window_oof(
+                y,
+                fitted[c],
+                folds.step,
+                folds.n_folds,
+                folds.gap,
+                lambda rows, P=P: np.einsum("bik,bjk->bij", P[rows], P[rows]),
+                folds.check,
+            )
+        return oof
 
     def fit(self, X, y, settings, value, work=None):
         basis = self._basis(X, settings, work)
