@@ -3,6 +3,7 @@
 #
 #   samples/curl_predict.sh            # spline (the default)
 #   samples/curl_predict.sh knn        # or linear
+#   samples/curl_predict.sh window     # the spline again, tuned along `time` (scheme window)
 #   NEARWISE_URL=http://host:9000 samples/curl_predict.sh
 #
 # The service must be running (`nearwise serve`); the base URL defaults to 127.0.0.1:8080.
@@ -11,10 +12,14 @@ set -euo pipefail
 here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
 base="${NEARWISE_URL:-http://127.0.0.1:8080}"
 method="${1:-spline}"
-body="$here/predict_${method}.json"
+
+case "$method" in
+    window) body="$here/predict_turbine_window.json" ;;
+    *) body="$here/predict_${method}.json" ;;
+esac
 
 if [[ ! -f "$body" ]]; then
-    echo "no sample body for method '$method'; choose spline, knn or linear" >&2
+    echo "no sample body for '$method'; choose spline, knn, linear or window" >&2
     exit 2
 fi
 

@@ -1,7 +1,8 @@
 """Generate the second demo scenario in samples/: a cold-storage warehouse's daily energy use.
 
 The scenario is invented for the demo (it is not measured data). A frozen-food warehouse logs,
-for each of two years of days, its electricity use in kWh and nine inputs:
+for each of two years of days (`day`, an ISO 8601 date, from Monday 1 January 2024), its
+electricity use in kWh and nine inputs:
 
 | column           | meaning                                   | effect on energy_kwh             |
 |------------------|-------------------------------------------|----------------------------------|
@@ -16,9 +17,17 @@ for each of two years of days, its electricity use in kWh and nine inputs:
 | staff_hours      | hours worked on the floor                 | none                             |
 
 Energy is built additively from those effects over a base load of 2,400 kWh, plus noise with a
-standard deviation of 120 kWh. With nine inputs a neighborhood of even a few days spans most of
-every input's range, so kNN stops being local, while the additive and linear fits, which
-estimate one effect per input, do well.
+standard deviation of 120 kWh.
+
+Weather lasts over days, and so do the other departures from the usual: the departures of
+temperature, humidity and sunshine from their seasonal course follow AR(1) series from day to
+day (lag-1 correlations WEATHER_PERSISTENCE, HUMIDITY_PERSISTENCE and SUN_PERSISTENCE), and so
+does the noise on energy (NOISE_PERSISTENCE: a compressor running hot, ice building up on a
+coil, a shift that leaves doors open, each lasts a few days).
+
+With nine inputs a neighborhood of even a few days spans most of every input's range, so kNN
+stops being local, while the additive and linear fits, which estimate one effect per input,
+do well.
 
 The query rows are the forecast of one week, and a heat-wave day hotter than any in the data.
 
@@ -31,14 +40,20 @@ It needs numpy only, and the same seed always gives the same bytes.
 
 from __future__ import annotations
 
+from datetime import timedelta
 from pathlib import Path
 
 import numpy as np
-from sample_files import write_csv, write_request
+from sample_files import ar1, time_stamps, with_labels, write_csv, write_request
 
 HERE = Path(__file__).resolve().parent
 SEED = 3032
 N_DAYS = 730
+FIRST_DAY = "2024-01-01"  # a Monday: day 0
+WEATHER_PERSISTENCE = 0.75  # lag-1 correlation of the temperature's departure, day to day
+HUMIDITY_PERSISTENCE = 0.6
+SUN_PERSISTENCE = 0.6
+NOISE_PERSISTENCE = 0.7  # lag-1 correlation of the noise on energy, day to day
 
 FEATURES = [
     "outdoor_temp_c",
@@ -73,20 +88,22 @@ def energy(x: dict[str, np.ndarray]) -> np.ndarray:
 
 
 def make_inputs(rng: np.random.Generator, day: np.ndarray) -> dict[str, np.ndarray]:
-    """The nine inputs for days counted from 1 January (day 0 is a Monday)."""
+    """The nine inputs for days counted from FIRST_DAY (day 0 is a Monday, 1 January)."""
     n = day.size
     season = 2.0 * np.pi * day / 365.0
     weekday = day % 7
     busy = np.select([weekday < 5, weekday == 5], [1.0, 0.45], 0.15)
-    temp = 11.0 - 9.5 * np.cos(season - 0.35) + rng.normal(0.0, 3.2, n)
-    humidity = np.clip(72.0 - 0.9 * (temp - 11.0) + rng.normal(0.0, 9.0, n), 28.0, 100.0)
+    temp = 11.0 - 9.5 * np.cos(season - 0.35) + 3.2 * ar1(rng, n, WEATHER_PERSISTENCE)
+    humid = 72.0 - 0.9 * (temp - 11.0) + 9.0 * ar1(rng, n, HUMIDITY_PERSISTENCE)
+    humidity = np.clip(humid, 28.0, 100.0)
     doors = rng.poisson(190.0 * busy * rng.lognormal(0.0, 0.25, n))
     load = 48.0 * busy * rng.gamma(6.0, 1.0 / 6.0, n)
     defrost = rng.poisson(1.5 + humidity / 45.0 + doors / 150.0)
     # The setpoint changes in blocks of about a month: colder for ice cream in summer.
     block = rng.choice([-25.0, -22.0, -20.0, -18.0], size=n // 30 + 1, p=[0.2, 0.3, 0.3, 0.2])
     setpoint = block[day // 30 % block.size]
-    solar = np.clip(3.3 - 2.5 * np.cos(season - 0.2) + rng.normal(0.0, 0.9, n), 0.2, None)
+    sun = 3.3 - 2.5 * np.cos(season - 0.2) + 0.9 * ar1(rng, n, SUN_PERSISTENCE)
+    solar = np.clip(sun, 0.2, None)
     staff = np.round(np.clip(8.0 * (2.0 + 9.0 * busy) + rng.normal(0.0, 6.0, n), 8.0, None), 1)
     columns = [temp, doors, humidity, load, defrost, setpoint, solar, weekday, staff]
     return {
@@ -97,7 +114,7 @@ def make_inputs(rng: np.random.Generator, day: np.ndarray) -> dict[str, np.ndarr
 
 def make_train(rng: np.random.Generator) -> np.ndarray:
     x = make_inputs(rng, np.arange(N_DAYS))
-    y = np.round(energy(x) + rng.normal(0.0, 120.0, N_DAYS), 1)
+    y = np.round(energy(x) + 120.0 * ar1(rng, N_DAYS, NOISE_PERSISTENCE), 1)
     return np.column_stack([*(x[name] for name in FEATURES), y])
 
 
@@ -111,6 +128,8 @@ def make_query(rng: np.random.Generator) -> np.ndarray:
     return rows
 
 
+# Both bodies name their nine features: `day` is in the train table to place the days, and is
+# not a feature.
 REQUESTS = {
     # Every method that applies to nine features, on the same folds: POST it to /v1/compare.
     # The spline is left out (with the warning method_skipped): it takes at most three inputs.
@@ -133,10 +152,14 @@ def main() -> None:
     rng = np.random.default_rng(SEED)
     train = make_train(rng)
     query = make_query(rng)
-    write_csv(HERE / "warehouse_train.csv", [*FEATURES, TARGET], train)
-    write_csv(HERE / "warehouse_query.csv", FEATURES, query)
+    columns = ["day", *FEATURES, TARGET]
+    days = time_stamps(FIRST_DAY, timedelta(days=1), N_DAYS, date_only=True)
+    train_rows = with_labels(days, train)
+    query_rows = query.tolist()
+    write_csv(HERE / "warehouse_train.csv", columns, train_rows)
+    write_csv(HERE / "warehouse_query.csv", FEATURES, query_rows)
     for name, fields in REQUESTS.items():
-        write_request(HERE / name, fields, ([*FEATURES, TARGET], train), (FEATURES, query))
+        write_request(HERE / name, fields, (columns, train_rows), (FEATURES, query_rows))
     print(f"wrote {len(train)} training rows and {len(query)} query rows to {HERE}")
 
 

@@ -163,12 +163,36 @@ def test_pilot_gap_on_independent_and_dependent_rows() -> None:
     for i in range(1, n):
         e[i] = 0.8 * e[i - 1] + rng.normal(0, 0.3)
     line = sequence.timeline(Table("train", ("t",), t[:, None].astype(float)), "t")
-    dependent = serial.choose_gap(x, signal + e, line.step, line.steps, lambda: None)
-    independent = serial.choose_gap(
-        x, signal + rng.normal(0, 0.3, n), line.step, line.steps, lambda: None
-    )
-    assert independent.steps <= 1 < 5 <= dependent.steps <= 20  # 0.8^10 = 0.107: gap 10
-    assert dependent.source == "data" and dependent.phi is not None
+    dependent = serial.noise_lag1(x, signal + e, line.step, lambda: None)
+    independent = serial.noise_lag1(x, signal + rng.normal(0, 0.3, n), line.step, lambda: None)
+    assert dependent is not None and independent is not None
+    assert dependent[1] == independent[1] == n
+    assert abs(dependent[0] - 0.8) < 0.1 and independent[0] < 0.15
+    gap = sequence.default_gap(dependent[0], n)[0]
+    assert sequence.default_gap(independent[0], n)[0] <= 1 < 5 <= gap <= 20  # 0.8^10 = 0.107
+
+
+def test_pilot_reads_only_the_first_steps() -> None:
+    rng = np.random.default_rng(2)
+    n = serial.PILOT_STEPS + 500
+    x = rng.uniform(0, 1, (n, 1))
+    y = np.sin(6 * x[:, 0]) + rng.normal(0, 0.3, n)
+    step = np.arange(n)
+    first = serial.noise_lag1(x, y, step, lambda: None)
+    y[serial.PILOT_STEPS :] = 1e6  # the rows past the stretch play no part
+    assert serial.noise_lag1(x, y, step, lambda: None) == first
+    assert first is not None and first[1] == serial.PILOT_STEPS
+
+
+def test_dependence_is_found_just_past_each_threshold() -> None:
+    def dep(p=0.5, lag1=0.0, noise=None, steps=200):
+        return sequence.Dependence(lag1, p, 10, 100.0, "order_by", noise, steps)
+
+    assert dep(p=0.0099, lag1=0.2).found and not dep(p=0.0101, lag1=0.2).found
+    assert dep(p=0.001, lag1=-0.2).found and not dep(p=0.001, lag1=0.199).found
+    limit = 3.09 * np.sqrt(2 / 200)  # 0.309 > 0.1
+    assert dep(noise=limit + 1e-9).found and not dep(noise=limit - 1e-9).found
+    assert dep(noise=0.1, steps=10**6).found and not dep(noise=0.0999, steps=10**6).found
 
 
 # -- fast paths against refits ----------------------------------------------------------

@@ -70,7 +70,7 @@ def test_the_readme_comparison_on_the_turbine_sample(client) -> None:
     ).get_json()
     assert [r["method"] for r in doc["ranking"]] == ["additive", "spline", "knn", "linear"]
     assert doc["recommended"] == "additive"
-    assert round(doc["ranking"][0]["error"], 2) == 60.99
+    assert round(doc["ranking"][0]["error"], 2) == 47.89
     one = json.loads(sample.read_text())
     one["features"] = ["wind_ms"]
     doc = client.post("/v1/compare", json=one).get_json()

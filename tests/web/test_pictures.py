@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import time
 import xml.etree.ElementTree as ET
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import replace
@@ -285,3 +286,115 @@ def test_predict_and_compare_answer_svg_over_http(client) -> None:
     assert b"fit-linear" in resp.data
     bad = client.post("/v1/predict", json=body(), query_string={"format": "png"})
     assert bad.status_code == 422
+
+
+# --------------------------------------------------------------------------- order_by
+
+
+def _timed_body(kind: str, scheme: str | None, n: int = 120, seed: int = 11) -> dict:
+    """A predict request on rows placed in time by ``t`` (numbers or ISO dates): a smooth curve
+    of ``x`` plus AR(1) noise; one row has no target and is left out of the fit."""
+    rng = np.random.default_rng(seed)
+    x = np.sort(rng.uniform(0, 10, n))
+    noise = np.zeros(n)
+    for i in range(1, n):
+        noise[i] = 0.7 * noise[i - 1] + rng.normal(0, 0.2)
+    y = [float(v) for v in np.sin(x) + noise]
+    y[17] = None
+    day = np.datetime64("2026-01-01")
+    t = [float(i) for i in range(n)] if kind == "number" else [str(day + i) for i in range(n)]
+    rows = [[a, float(b), c] for a, b, c in zip(t, x, y, strict=True)]
+    tuning = {"order_by": "t"} if scheme is None else {"order_by": "t", "scheme": scheme}
+    return {
+        "method": "spline",
+        "target": "y",
+        "features": ["x"],
+        "train": {"columns": ["t", "x", "y"], "rows": rows},
+        "tuning": tuning,
+    }
+
+
+def _group_texts(group: ET.Element) -> list[str]:
+    return ["".join(t.itertext()).strip() for t in group.iter(f"{SVG}text")]
+
+
+@pytest.mark.parametrize(
+    ("kind", "scheme"), [("number", "window"), ("date", "blocks"), ("date", None)]
+)
+def test_order_by_adds_the_residuals_over_time(client, kind, scheme) -> None:
+    request = _timed_body(kind, scheme)
+    answer = client.post("/v1/predict", json=request)
+    assert answer.status_code == 200, answer.get_data(as_text=True)
+    doc = answer.get_json()
+    resp = client.post("/v1/predict", json=request, headers={"Accept": "image/svg+xml"})
+    assert resp.status_code == 200 and resp.mimetype == "image/svg+xml"
+    root = _parse(resp.get_data(as_text=True))
+    ids = _ids(root)
+    for gid in ("fit-panel", "cv-panel", "residuals-over-time", "residual-zero", "lag1-note"):
+        assert gid in ids, gid
+    # one point per training row with a finite out-of-fold residual (not the row without y)
+    finite = [p["cv_residual"] for p in doc["predictions"] if p.get("cv_residual") is not None]
+    assert len(finite) == len(request["train"]["rows"]) - 1
+    assert _marks(ids["residual-points"]) == len(finite)
+    panel = _group_texts(ids["residuals-over-time"])
+    assert "t" in panel and "out-of-fold residual" in panel
+    tuning = doc["tuning"]
+    note = _group_texts(ids["lag1-note"])
+    assert note[0] == f"lag-1 autocorrelation {tuning['dependence']['lag1']:.2f}"
+    if scheme is None:
+        assert len(note) == 1  # kfold: no gap to tell
+    else:
+        words = "window" if scheme == "window" else f"{tuning['folds']} blocks"
+        assert note[1].startswith(f"{words}, gap {tuning['gap']} step")
+    assert not any("None" in t for t in _texts(root))  # the scheme is named in the tuning title
+    if kind == "date":
+        assert {"Jan", "Feb", "Mar", "Apr"} <= set(panel)  # dates, not seconds since 1970
+        assert any(t.startswith("2026") for t in panel)  # the year, once, as the axis offset
+
+
+def test_residuals_over_time_skip_rows_without_a_residual(wave) -> None:
+    X, y = wave
+    t = np.arange(X.shape[0], dtype=float)[:, None]
+    job = _job(np.column_stack([X, t]), y, method="linear")
+    job = replace(job, features=("x0",), tuning=TuningSpec(order_by="x1", scheme="window"))
+    result = run(job)
+    assert result.series is not None and result.series["kind"] == "number"
+    resid = np.asarray(result.series["residual"], dtype=float).copy()
+    assert np.isfinite(resid).all()
+    resid[[0, 5, 9]] = np.nan
+    holed = replace(result, series={**result.series, "residual": resid, "lag1": None})
+    ids = _ids(_parse(predict_svg(holed, None, None, None)))
+    assert _marks(ids["residual-points"]) == resid.size - 3
+    assert "fit-panel" not in ids and "cv-panel" in ids
+    note = _group_texts(ids["lag1-note"])
+    assert note[0] == "lag-1 autocorrelation: too few time steps"
+    assert note[1].startswith("window, gap ")
+
+
+def test_without_order_by_there_is_no_residuals_panel(client, wave) -> None:
+    from webhelpers import body
+
+    resp = client.post("/v1/predict", json=body("spline"), headers={"Accept": "image/svg+xml"})
+    root = _parse(resp.get_data(as_text=True))
+    ids = _ids(root)
+    assert {"fit-panel", "cv-panel"} <= set(ids)
+    assert not {"residuals-over-time", "residual-points", "lag1-note"} & set(ids)
+    assert (root.get("width"), root.get("height")) == ("792pt", "403.2pt")  # 11 x 5.6 inches
+    X, y = wave
+    result = run(_job(X, y, method="knn"))
+    assert result.series is None
+    assert "residuals-over-time" not in _ids(_parse(predict_svg(result, X[:, 0], y, None)))
+
+
+def test_dates_are_drawn_in_utc_whatever_the_machine_zone(client, monkeypatch) -> None:
+    request = _timed_body("date", "window", n=40)
+    headers = {"Accept": "image/svg+xml"}
+    first = client.post("/v1/predict", json=request, headers=headers).get_data()
+    monkeypatch.setenv("TZ", "Pacific/Kiritimati")  # UTC+14: any local reading shows
+    time.tzset()
+    try:
+        again = client.post("/v1/predict", json=request, headers=headers).get_data()
+    finally:
+        monkeypatch.undo()
+        time.tzset()
+    assert again == first

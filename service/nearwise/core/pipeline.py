@@ -53,6 +53,7 @@ class Context:
     deadline: Deadline
     line: sequence.Timeline | None = None  # where the working rows lie along order_by
     gap: serial.Gap | None = None  # window and blocks: the gap in force
+    noise: tuple[float, int] | None = None  # the pilot's noise lag-1 estimate, steps used
 
 
 @dataclass
@@ -91,13 +92,15 @@ def setup(job: Job) -> Context:
     groups = None if data.groups is None else data.groups[canon]
     if line is not None:
         line = line.take(canon)
+    # The pilot's noise estimate, along order_by or in the order the rows arrived.
+    noise = serial.noise_lag1(X, y, canon if line is None else line.step, deadline.check)
     gap = None
     if spec.scheme in ORDERED_SCHEMES:
         assert line is not None  # check_spec asks for order_by
-        folds, gap = serial.make_folds(spec, X, y, line, deadline.check)
+        folds, gap = serial.make_folds(spec, line, noise, deadline.check)
     else:
         folds = tuning.make_folds(X.shape[0], spec, groups, deadline.check)
-    return Context(job, data, canon, X, y, folds, deadline, line, gap)
+    return Context(job, data, canon, X, y, folds, deadline, line, gap, noise)
 
 
 def check_model_interval(method: Method, job: Job) -> None:
@@ -229,7 +232,7 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         scale = settings.get("scale") or "standard"
         notices.extend(locality.query_flags(X, where, scale).notices)
     oof_resid = _oof_residual(y, path, folds, chosen, model)
-    dep = serial.dependence(oof_resid, ctx.line, ctx.canon)
+    dep = serial.dependence(oof_resid, ctx.line, ctx.canon, ctx.noise)
     notices.extend(serial.notice(dep, job.tuning))
     cv_residual = None
     if not at_query:
@@ -401,7 +404,7 @@ def dependence_of(ctx: Context, t: Tuned) -> sequence.Dependence | None:
     if ctx.folds.scheme == "gcv":
         return None
     resid = _oof_residual(ctx.y, t.path, ctx.folds, t.chosen, None)
-    return serial.dependence(resid, ctx.line, ctx.canon)
+    return serial.dependence(resid, ctx.line, ctx.canon, ctx.noise)
 
 
 def _oof_residual(y, path, folds, chosen, model) -> np.ndarray:

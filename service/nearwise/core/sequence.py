@@ -34,11 +34,24 @@ from nearwise.core.errors import BadCell, UnknownName, Where
 LB_MAX_LAGS = 10
 #: Fewest steps for which the dependence figures are computed.
 MIN_STEPS = 10
-#: serial_dependence fires when the Ljung-Box p-value is below this level (so on independent
-#: residuals about 1 data set in 100 raises it) and the lag-1 autocorrelation is at least
-#: DEPENDENCE_MIN_LAG1 in size.
+#: serial_dependence fires on either of two signs, each of which independent rows give about
+#: 1 time in 100 or less:
+#: (a) the out-of-fold residuals: Ljung-Box p-value below DEPENDENCE_ALPHA, with a lag-1
+#:     autocorrelation at least DEPENDENCE_MIN_LAG1 in size (a fit that follows the features
+#:     closely leaves a little correlation in residuals ordered like the features; the floor
+#:     keeps that from counting);
+#: (b) the pilot's noise estimate phi (see difference_lag1): above NOISE_Z sqrt(2 / m) and at
+#:     least NOISE_MIN_LAG1. For independent noise the differences are MA(1) with lag-1
+#:     correlation -1/2, whose sample value has variance (1 - 3 (1/4) + 4 (1/16)) / m = 0.5 / m
+#:     (Bartlett's formula: Box, Jenkins & Reinsel 2008, section 2.1.6), so phi = 1 + 2 r has
+#:     variance 2 / m and exceeds 3.09 sqrt(2 / m) with probability 0.001 in the limit. At 200
+#:     rows the pilot's own error and the skew of r raise that to a few in 1,000, measured.
+#: Together: at most 0.01 + 0.001 by the union bound, in the limit; on the simulated
+#: independent data sets of tests/reference/test_serial_coverage.py, about 1 in 100.
 DEPENDENCE_ALPHA = 0.01
-DEPENDENCE_MIN_LAG1 = 0.1
+DEPENDENCE_MIN_LAG1 = 0.2
+NOISE_Z = 3.09
+NOISE_MIN_LAG1 = 0.1
 #: Default gap: the autocorrelation level below which residuals count as unrelated.
 GAP_ACF_LEVEL = 0.1
 #: Default gap: at most this share of the steps.
@@ -195,6 +208,8 @@ class Dependence:
     ljung_box_lags: int
     effective_rows: float
     order: str  # "order_by" or "arrival"
+    noise_lag1: float | None = None  # the pilot's estimate of the noise's lag-1 correlation
+    noise_steps: int | None = None  # the steps the pilot used
 
     def report(self) -> dict[str, float | int | str]:
         return {
@@ -203,12 +218,23 @@ class Dependence:
             "ljung_box_lags": self.ljung_box_lags,
             "effective_rows": self.effective_rows,
             "order": self.order,
+            "noise_lag1": self.noise_lag1,
         }
 
     @property
     def found(self) -> bool:
         """Whether the figures show dependence (see DEPENDENCE_ALPHA)."""
-        return self.ljung_box_p < DEPENDENCE_ALPHA and abs(self.lag1) >= DEPENDENCE_MIN_LAG1
+        residuals = self.ljung_box_p < DEPENDENCE_ALPHA and abs(self.lag1) >= DEPENDENCE_MIN_LAG1
+        return residuals or (
+            self.noise_lag1 is not None
+            and self.noise_steps is not None
+            and self.noise_lag1 >= noise_threshold(self.noise_steps)
+        )
+
+
+def noise_threshold(steps: int) -> float:
+    """The pilot's noise estimate above which dependence is reported (see NOISE_Z)."""
+    return max(NOISE_MIN_LAG1, NOISE_Z * float(np.sqrt(2.0 / steps)))
 
 
 def dependence(series: np.ndarray, n_rows: int, order: str) -> Dependence | None:
@@ -240,9 +266,15 @@ def difference_lag1(series: np.ndarray, piece: np.ndarray) -> float:
     -(1 - phi) / 2, so phi = 1 + 2 corr(d_t, d_{t+1}). Differencing removes a part of the
     series that varies slowly in time (a pilot fit's bias, when the features follow time), so
     the estimate sees the noise. Only differences and pairs of differences within one
-    ``piece`` (a pilot fold) are used. Clipped to [0, 0.99]; 0 with fewer than MIN_STEPS
-    usable pairs.
+    ``piece`` (a pilot fold) are used. The series is first clipped at a modified z-score of
+    3.5 (median +/- 3.5 MAD / 0.6745, the rule of ``unusual_response``), so that one outlying
+    reading, whose difference may lack its partner at a piece's end, cannot pass for
+    persistence. Clipped to [0, 0.99]; 0 with fewer than MIN_STEPS usable pairs.
     """
+    med = float(np.median(series))
+    mad = float(np.median(np.abs(series - med))) / 0.6745
+    if mad > 0:
+        series = np.clip(series, med - 3.5 * mad, med + 3.5 * mad)
     d = np.diff(series)
     same = piece[1:] == piece[:-1]
     pair = same[1:] & same[:-1]

@@ -13,7 +13,7 @@ steps (see :func:`nearwise.core.sequence.default_gap`).
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -23,6 +23,8 @@ from nearwise.core.results import Notice
 from nearwise.core.spec import ORDERED_SCHEMES, TuningSpec
 
 PILOT_BLOCKS = 5
+#: The pilot looks at most at this many steps (the first ones).
+PILOT_STEPS = 2000
 
 
 @dataclass(frozen=True)
@@ -32,65 +34,77 @@ class Gap:
     steps: int
     source: str
     capped: bool = False
-    phi: float | None = None  # data: the pilot's estimate of the noise's lag-1 correlation
 
 
 def pilot_k(n: int) -> int:
     return int(np.clip(round(np.sqrt(n)), 5, 50))
 
 
-def choose_gap(
-    X: np.ndarray, y: np.ndarray, step: np.ndarray, steps: int, check: Callable[[], None]
-) -> Gap:
-    """The default gap from the pilot's out-of-fold residuals (0 when the series is too short
-    for the pilot)."""
+def noise_lag1(
+    X: np.ndarray, y: np.ndarray, step: np.ndarray, check: Callable[[], None]
+) -> tuple[float, int] | None:
+    """The pilot's estimate of the noise's lag-1 correlation, and the steps it used.
+
+    ``step`` places each row in time (distinct integers from 0). Only the first PILOT_STEPS
+    steps are used, a contiguous stretch of the series, so the cost is bounded whatever the
+    size. None when the stretch is too short for the pilot.
+    """
     from nearwise.core.methods.knn import KNN  # the pilot is a method of its own
 
+    steps = int(min(step.max() + 1, PILOT_STEPS))
+    rows = np.flatnonzero(step < steps)
     spec = TuningSpec(scheme="blocks", folds=PILOT_BLOCKS, order_by="pilot")
     try:
-        folds = tuning.ordered_folds(spec, step, steps, 0, check)
+        folds = tuning.ordered_folds(spec, step[rows], steps, 0, check)
     except TooFewRows:
-        return Gap(0, "data")
-    k = min(pilot_k(y.size), folds.min_train - 1)
-    if k < 1:
-        return Gap(0, "data")
-    path = KNN().path(X, y, folds, {"weights": "uniform", "scale": "standard"}, [k])
-    series = sequence.step_means(y - path.oof[0, 0], step, steps)
+        return None
+    k = min(pilot_k(rows.size), folds.min_train - 1)
+    if k < 1 or steps < sequence.MIN_STEPS:
+        return None
+    Xp, yp = X[rows], y[rows]
+    path = KNN().path(Xp, yp, folds, {"weights": "uniform", "scale": "standard"}, [k])
+    series = sequence.step_means(yp - path.oof[0, 0], step[rows], steps)
     piece = (np.arange(steps) * PILOT_BLOCKS) // steps  # the pilot fold of each step
-    phi = sequence.difference_lag1(series, piece)
-    gap, capped = sequence.default_gap(phi, steps)
-    return Gap(gap, "data", capped, phi)
+    return sequence.difference_lag1(series, piece), steps
 
 
 def make_folds(
     spec: TuningSpec,
-    X: np.ndarray,
-    y: np.ndarray,
     line: sequence.Timeline,
+    noise: tuple[float, int] | None,
     check: Callable[[], None],
 ) -> tuple[tuning.Folds, Gap]:
-    """The ``window`` or ``blocks`` folds of rows placed by ``line`` (in the rows' order)."""
+    """The ``window`` or ``blocks`` folds of rows placed by ``line`` (in the rows' order);
+    the default gap follows the pilot's ``noise`` estimate."""
     assert spec.scheme in ORDERED_SCHEMES
-    gap = (
-        Gap(int(spec.gap), "caller")
-        if spec.gap is not None
-        else choose_gap(X, y, line.step, line.steps, check)
-    )
+    if spec.gap is not None:
+        gap = Gap(int(spec.gap), "caller")
+    else:
+        steps, capped = sequence.default_gap(0.0 if noise is None else noise[0], line.steps)
+        gap = Gap(steps, "data", capped)
     return tuning.ordered_folds(spec, line.step, line.steps, gap.steps, check), gap
 
 
 def dependence(
-    resid: np.ndarray, line: sequence.Timeline | None, arrival: np.ndarray
+    resid: np.ndarray,
+    line: sequence.Timeline | None,
+    arrival: np.ndarray,
+    noise: tuple[float, int] | None,
 ) -> sequence.Dependence | None:
     """Dependence figures of the out-of-fold residuals ``resid`` (in the working row order):
     along ``order_by`` (averaged per step) when given, else in the order the rows arrived
-    (``arrival`` holds each working row's arrival rank)."""
+    (``arrival`` holds each working row's arrival rank); with the pilot's ``noise`` estimate
+    taken in the same order."""
     if line is not None:
         series = sequence.step_means(resid, line.step, line.steps)
-        return sequence.dependence(series, resid.size, "order_by")
-    series = np.empty_like(resid)
-    series[arrival] = resid
-    return sequence.dependence(series, resid.size, "arrival")
+        dep = sequence.dependence(series, resid.size, "order_by")
+    else:
+        series = np.empty_like(resid)
+        series[arrival] = resid
+        dep = sequence.dependence(series, resid.size, "arrival")
+    if dep is None or noise is None:
+        return dep
+    return replace(dep, noise_lag1=noise[0], noise_steps=noise[1])
 
 
 def notice(dep: sequence.Dependence | None, spec: TuningSpec) -> list[Notice]:
@@ -102,15 +116,20 @@ def notice(dep: sequence.Dependence | None, spec: TuningSpec) -> list[Notice]:
         if dep.order == "order_by"
         else "in the order the rows were sent"
     )
+    noise = (
+        ""
+        if dep.noise_lag1 is None
+        else f"; the noise's own lag-1 correlation is estimated at {dep.noise_lag1:.2f}"
+    )
     return [
         Notice(
             "serial_dependence",
-            f"the out-of-fold residuals are serially dependent {where}: lag-1 autocorrelation "
-            f"{dep.lag1:.2f}, Ljung-Box p = {dep.ljung_box_p:.2g} over {dep.ljung_box_lags} "
-            f"lags, about {dep.effective_rows:.0f} effective rows. Cross-validation that holds "
-            "out rows one by one or at random then favors too rough a fit and gives intervals "
-            "that are too narrow. Name the column that places rows in time in "
-            "`tuning.order_by` and use `tuning.scheme` `window` (questions within the period "
-            "the data cover) or `blocks` (questions about new periods).",
+            f"the rows are serially dependent {where}: the out-of-fold residuals have lag-1 "
+            f"autocorrelation {dep.lag1:.2f} and Ljung-Box p = {dep.ljung_box_p:.2g} over "
+            f"{dep.ljung_box_lags} lags{noise}; about {dep.effective_rows:.0f} effective rows. "
+            "Cross-validation that holds out rows one by one or at random then favors too "
+            "rough a fit and gives intervals that are too narrow. Name the column that places "
+            "rows in time in `tuning.order_by` and use `tuning.scheme` `window` (questions "
+            "within the period the data cover) or `blocks` (questions about new periods).",
         )
     ]

@@ -16,6 +16,8 @@ Stable element ids (``gid``) let clients and tests find the parts of a picture:
 - tuning panel (``cv-panel``): ``cv-path``, ``cv-se``, ``best``, ``chosen``, ``one-se-line``;
   in a comparison ``cv-path-<method>``, ``cv-se-<method>``, ``chosen-<method>`` and
   ``recommended``;
+- with ``tuning.order_by``, below them the residuals over time (``residuals-over-time``):
+  ``residual-points``, ``residual-zero``, ``lag1-note`` (see :mod:`nearwise.web.picture_series`);
 - ``title``, ``warnings`` (the warning codes of the answer) and ``legend-fit``/``legend-cv``.
 """
 
@@ -38,6 +40,7 @@ from matplotlib.ticker import FormatStrFormatter, LogLocator, NullFormatter
 
 from nearwise.core.compare import CompareResult
 from nearwise.core.results import Notice, PredictResult, TuningReport
+from nearwise.web.picture_series import draw_residuals
 
 MEDIA_TYPE = "image/svg+xml"
 
@@ -97,7 +100,8 @@ def predict_svg(
     its interval band, and the query points (``query_x``, the query's feature column) with their
     interval bars; flagged query points get their own marker and their codes. Always: a tuning
     panel, the cross-validated error ± one standard error against effective degrees of freedom,
-    with the lowest-error and the chosen candidates marked.
+    with the lowest-error and the chosen candidates marked. With ``order_by`` (``result.series``):
+    below these, the out-of-fold residuals in time order with their lag-1 autocorrelation.
 
     Without a query the predictions concern the training rows; rows with flags (for example
     ``unusual_response``) are then circled on the data. ``train_rows`` gives the training-table
@@ -109,14 +113,19 @@ def predict_svg(
     title = f"{result.method} fit of {_name(result.target)} {_against(result.features)}"
     chosen = ", ".join(f"{k} = {_fmt(v)}" for k, v in result.params.items())
 
+    series = result.series
+
     def draw(fig: Figure) -> None:
-        axes = _panels(fig, 2 if fit_panel else 1)
+        axes = _panels(fig, 2 if fit_panel else 1, below=series is not None)
         if fit_panel:
             _draw_predict_fit(axes[0], result, train_x, train_y, query_x, train_rows)
-        _draw_tuning(axes[-1], result.tuning, result.params)
+        _draw_tuning(axes[1 if fit_panel else 0], result.tuning, result.params)
+        if series is not None:
+            draw_residuals(axes[-1], series, result.tuning, _name(series["column"]))
         _finish(fig, title, f"parameters: {chosen}", result.warnings)
 
-    return _render(draw, (11.0, 5.6) if fit_panel else (6.4, 5.6), title)
+    width = 11.0 if fit_panel else 6.4
+    return _render(draw, (width, 5.6 if series is None else 9.2), title)
 
 
 def compare_svg(
@@ -166,8 +175,17 @@ def _render(draw: Callable[[Figure], None], size: tuple[float, float], title: st
     return out.getvalue().decode("utf-8")
 
 
-def _panels(fig: Figure, count: int) -> list[Axes]:
-    axes = list(np.atleast_1d(fig.subplots(1, count)))
+def _panels(fig: Figure, count: int, below: bool = False) -> list[Axes]:
+    """``count`` panels side by side; with ``below``, one more under them, full width (last)."""
+    if below:
+        grid = fig.add_gridspec(2, count, height_ratios=(3.0, 2.0))
+        axes = [fig.add_subplot(grid[0, i]) for i in range(count)]
+        return [*_named(axes), fig.add_subplot(grid[1, :])]
+    return _named(list(np.atleast_1d(fig.subplots(1, count))))
+
+
+def _named(axes: list[Axes]) -> list[Axes]:
+    count = len(axes)
     names = ["fit-panel", "cv-panel"] if count == 2 else ["cv-panel"]
     for ax, name in zip(axes, names, strict=True):
         ax.set_gid(name)
@@ -559,6 +577,10 @@ def _scheme(report: TuningReport) -> str:
         return "leave-one-out cross-validation"
     if report.scheme == "gcv":
         return "generalized cross-validation"
+    if report.scheme == "window":
+        return "leave-a-window-out cross-validation"
+    if report.scheme == "blocks":
+        return f"cross-validation on {report.folds} blocks in time"
     reps = f", {report.repeats} repeats" if report.repeats > 1 else ""
     return f"{report.folds}-fold cross-validation{reps}"
 

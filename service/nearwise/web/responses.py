@@ -46,6 +46,12 @@ class DependenceSchema(Strict):
     order = fields.String(
         metadata=_doc("`order_by` (residuals averaged per step) or `arrival` (as sent).")
     )
+    noise_lag1 = _num(
+        "A pilot fit's estimate of the noise's own lag-1 correlation (AR(1), from first "
+        "differences of its out-of-fold residuals on contiguous blocks), in the same order; "
+        "null when the series is too short for the pilot.",
+        nullable=True,
+    )
 
 
 class TuningReportSchema(CompareTuningSchema):

@@ -296,4 +296,12 @@ class Linear(Method):
         sigma = float(np.sqrt(rss / (n - kept.size)))
         r2 = 1.0 - rss / tss if tss > 0 else 1.0
         names = tuple((work or {}).get("features") or (f"x{j}" for j in range(p)))
-        return FittedLinear(terms, kept, sc, beta, Q, R, y, fitted, sigma, r2, names)
+        # With order_by, the term table, std_error and model interval use the Newey-West HAC
+        # covariance over the rows in time order (FittedLinear.hac_root).
+        line = (work or {}).get("line")
+        hac = lags = None
+        if line is not None:
+            if line.key.shape != y.shape:
+                raise ValueError("the timeline does not match the rows fitted")
+            hac, lags = FittedLinear.hac_root(Q, y - fitted, line.key)
+        return FittedLinear(terms, kept, sc, beta, Q, R, y, fitted, sigma, r2, names, hac, lags)

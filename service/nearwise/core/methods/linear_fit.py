@@ -7,6 +7,12 @@ Analysis*, 5th ed., Wiley: t tests, prediction intervals, leverage and hidden ex
 (section 3.8).
 Belsley, D. A., Kuh, E. & Welsch, R. E. (1980). *Regression Diagnostics*, Wiley: the
 deletion formulas behind leave-one-out updates.
+Newey, W. K. & West, K. D. (1987). A simple, positive semi-definite, heteroskedasticity and
+autocorrelation consistent covariance matrix. *Econometrica* 55(3), 703-708: the HAC
+covariance with Bartlett weights, used when the rows are placed in time (``order_by``).
+Newey, W. K. & West, K. D. (1994). Automatic lag selection in covariance matrix estimation.
+*Review of Economic Studies* 61(4), 631-653: the lag rule L = floor(4 (n / 100)^(2/9)), a
+common choice.
 """
 
 from __future__ import annotations
@@ -27,6 +33,17 @@ from nearwise.core.methods.polynomial import (
     term_name,
 )
 from nearwise.core.results import Notice
+
+HAC_RULE = (
+    "Newey-West HAC covariance: rows in order_by order, Bartlett weights 1 - l / (L + 1) for "
+    "lags l <= L, L = floor(4 (n / 100)^(2/9)) with n the training rows (Newey & West 1994); "
+    "no small-sample factor; p-values from the normal distribution"
+)
+
+
+def newey_west_lags(n: int) -> int:
+    """The HAC lag L = floor(4 (n / 100)^(2/9)) for ``n`` rows (Newey & West 1994), below n."""
+    return max(0, min(int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0))), n - 1))
 
 
 @dataclass(frozen=True)
@@ -57,6 +74,50 @@ class FittedLinear:
     sigma: float
     r2: float
     names: tuple[str, ...]
+    # With order_by: C (k x k) with the HAC covariance of ``beta`` = R^-1 C C' R^-T, and L.
+    hac: np.ndarray | None = None
+    hac_lags: int | None = None
+
+    @staticmethod
+    def hac_root(Q: np.ndarray, resid: np.ndarray, key: np.ndarray) -> tuple[np.ndarray, int]:
+        """A root C of the Newey-West meat in the basis of Q, and the lag L used.
+
+        With D = QR the design and u the residuals, (D'D)^-1 d_t u_t = R^-1 q_t u_t, so the
+        HAC covariance of the coefficients is R^-1 M R^-T with
+
+            M = sum_t g_t g_t' + sum_{l=1}^{L} w_l sum_t (g_t g_{t-l}' + g_{t-l} g_t'),
+
+        g_t = q_t u_t over the rows sorted by ``key`` (ties kept in the current row order),
+        Bartlett weights w_l = 1 - l / (L + 1) and L = :func:`newey_west_lags` (n). Lags
+        count rows, not distinct time stamps. No small-sample factor n / (n - p) is applied:
+        this is the covariance of statsmodels' default ``OLS(...).fit(cov_type="HAC",
+        cov_kwds={"maxlags": L})``, whose ``use_correction`` is False.
+
+        The weight L + 1 - |t - s| of g_t g_s' counts the windows of L + 1 consecutive rows
+        holding both, so M = H'H / (L + 1) with H_s the sum of g over window s (windows
+        running off either end included): M is positive semi-definite (Newey & West 1987), and
+        C = R_H' / sqrt(L + 1) from a QR of H, never forming M.
+
+        References
+        ----------
+        Newey, W. K. & West, K. D. (1987), *Econometrica* 55(3), 703-708.
+        Newey, W. K. & West, K. D. (1994), *Review of Economic Studies* 61(4), 631-653.
+        """
+        n, k = Q.shape
+        lags = newey_west_lags(n)
+        order = np.argsort(key, kind="stable")
+        G = Q[order] * resid[order, None]
+        H = np.zeros((n + lags, k))
+        for j in range(lags + 1):
+            H[j : j + n] += G
+        R_H = np.linalg.qr(H, mode="r")
+        return R_H.T / np.sqrt(lags + 1.0), lags
+
+    def _spread(self, A: np.ndarray) -> np.ndarray:
+        """sqrt(a' C C' a) per row of A, for rows a' = c' R^-1 (the HAC standard error of
+        c' beta)."""
+        assert self.hac is not None
+        return row_norms(A @ self.hac)
 
     @property
     def df(self) -> float:
@@ -81,14 +142,24 @@ class FittedLinear:
         return row_norms(self._a(Xq))
 
     def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
-        """Standard error of the fitted mean: sigma sqrt(h0)."""
+        """Standard error of the fitted mean: sigma sqrt(h0); with order_by the HAC one,
+        sqrt(x0' V x0) with V the HAC covariance of :meth:`hac_root`."""
+        if self.hac is not None:
+            return self._spread(self._a(Xq))
         return self.sigma * self.leverage_root(Xq)
 
     def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
-        """Classical t interval for a new observation: f +/- t sigma sqrt(1 + h0)."""
+        """t interval for a new observation, t = t(n - p, (1 + level) / 2).
+
+        Classical: f +/- t sigma sqrt(1 + h0). With order_by: f +/- t sqrt(se_HAC(f)^2 +
+        sigma^2), se_HAC(f) the HAC standard error of the fitted mean (:meth:`std_error`).
+        """
         t = stats.t.ppf(0.5 + level / 2, self.n - self.kept.size)
-        root = self.leverage_root(Xq)
-        half = t * self.sigma * np.hypot(1.0, root)
+        if self.hac is not None:
+            half = t * np.hypot(self.sigma, self._spread(self._a(Xq)))
+        else:
+            root = self.leverage_root(Xq)
+            half = t * self.sigma * np.hypot(1.0, root)
         f = self.predict(Xq)
         return f - half, f + half
 
@@ -134,15 +205,29 @@ class FittedLinear:
         ]
 
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
+        """The term table in original units (estimates T beta, T the raw-monomial expansion).
+
+        Classical: covariance sigma^2 T R^-1 R^-T T', p-values from t(n - p). With order_by:
+        the HAC covariance T R^-1 C C' R^-T T' (:meth:`hac_root`; lag L = floor(4 (n /
+        100)^(2/9)), Newey & West 1994) and, as statsmodels' default HAC fit, p-values from
+        the normal distribution. ``covariance`` says which (with ``hac_lags`` and
+        ``hac_rule`` for HAC).
+        """
         kept_terms = [self.terms[j] for j in self.kept]
         T = raw_transform(kept_terms, self.scaler.shift, self.scaler.scale)
         est = T @ self.beta
         Rinv = linalg.solve_triangular(self.R, np.eye(self.R.shape[0]))
-        se = self.sigma * row_norms(T @ Rinv)
+        if self.hac is not None:
+            se = self._spread(T @ Rinv)
+        else:
+            se = self.sigma * row_norms(T @ Rinv)
         dof = self.n - self.kept.size
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             t = np.where(se > 0, est / se, np.nan)
-        p = 2 * stats.t.sf(np.abs(t), dof)
+        if self.hac is not None:
+            p = 2 * stats.norm.sf(np.abs(t))
+        else:
+            p = 2 * stats.t.sf(np.abs(t), dof)
         rows = [
             {
                 "name": term_name(e, names),
@@ -153,10 +238,15 @@ class FittedLinear:
             }
             for i, e in enumerate(kept_terms)
         ]
-        return {
+        out: dict[str, Any] = {
             "terms": rows,
             "aliased_terms": self.aliased(),
             "sigma": self.sigma,
             "r2": self.r2,
             "residual_df": dof,
+            "covariance": "classical" if self.hac is None else "HAC",
         }
+        if self.hac is not None:
+            out["hac_lags"] = self.hac_lags
+            out["hac_rule"] = HAC_RULE
+        return out
