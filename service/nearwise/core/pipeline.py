@@ -219,8 +219,11 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         summary = model.summary(data.features)
     _check_predictions(value_at, "query" if at_query else "train")
     sigma_cv = float(np.sqrt(np.mean(scores.residual[chosen] ** 2)))
+    oof_resid = _oof_residual(y, path, folds, chosen, model)
+    dep = serial.dependence(oof_resid, ctx.line, ctx.canon, ctx.noise)
+    widen = serial.level_factor(dep, folds.scheme, job.interval.kind)
     bars = uncertainty.compute(
-        job.interval, model, path, folds, chosen, X, y, where, value_at, sigma_cv
+        job.interval, model, path, folds, chosen, X, y, where, value_at, sigma_cv, widen
     )
     notices = [
         *_fit_notices(data, t, folds, model, at_query),
@@ -231,8 +234,6 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
     if at_query:
         scale = settings.get("scale") or "standard"
         notices.extend(locality.query_flags(X, where, scale).notices)
-    oof_resid = _oof_residual(y, path, folds, chosen, model)
-    dep = serial.dependence(oof_resid, ctx.line, ctx.canon, ctx.noise)
     notices.extend(serial.notice(dep, job.tuning))
     cv_residual = None
     if not at_query:
@@ -259,7 +260,7 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         with np.errstate(over="ignore", invalid="ignore"):
             at = model.predict(grid)
         band = uncertainty.compute(
-            job.interval, model, path, folds, chosen, X, y, grid, at, sigma_cv
+            job.interval, model, path, folds, chosen, X, y, grid, at, sigma_cv, widen
         )
         curve = {"x": grid[:, 0], "value": at, "lower": band.lower, "upper": band.upper}
     return PredictResult(

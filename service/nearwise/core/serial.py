@@ -133,3 +133,20 @@ def notice(dep: sequence.Dependence | None, spec: TuningSpec) -> list[Notice]:
             "within the period the data cover) or `blocks` (questions about new periods).",
         )
     ]
+
+
+def level_factor(dep: sequence.Dependence | None, scheme: str, kind: str) -> float:
+    """How much wider the ``window`` and ``blocks`` intervals are made for the uncertain level
+    of dependent noise.
+
+    Held-out residuals spread around the level the noise happened to take over the series,
+    and the fit carries that level with it; a new measurement's noise is centred on zero.
+    When the noise's mean over the series has variance sigma^2 / m (m the effective rows, n
+    (1 - rho) / (1 + rho)), a new answer's error has about sigma^2 (1 + 1/m) where the
+    residuals show sigma^2, so the half-widths are scaled by sqrt(1 + 1/m), m at least 2. 1
+    for the other schemes, for model intervals, and without dependence figures.
+    """
+    if dep is None or scheme not in ORDERED_SCHEMES or kind != "cv_plus":
+        return 1.0
+    m = max(dep.effective_rows, 2.0)
+    return float(np.sqrt(1 + 1 / m))

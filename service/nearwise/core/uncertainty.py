@@ -86,6 +86,7 @@ def compute(
     Xq: np.ndarray,
     value: np.ndarray,
     sigma_cv: float,
+    widen: float = 1.0,
 ) -> ErrorBars:
     """Standard errors and interval bounds at the rows ``Xq`` whose predictions are ``value``.
 
@@ -101,6 +102,11 @@ def compute(
     # An undefined bound (NaN: no noise estimate) is unbounded, never a zero-width interval.
     lower = np.fmin(np.where(np.isnan(lower), -np.inf, lower), value)
     upper = np.fmax(np.where(np.isnan(upper), np.inf, upper), value)
+    if widen != 1.0:  # ordered rows: the noise's level is uncertain (serial.level_factor)
+        with np.errstate(invalid="ignore"):
+            lower = value - (value - lower) * widen
+            upper = value + (upper - value) * widen
+        report = {**report, "level_factor": widen}
     notices = []
     unbounded = np.flatnonzero(~np.isfinite(lower) | ~np.isfinite(upper))
     if unbounded.size:

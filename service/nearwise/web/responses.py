@@ -93,6 +93,13 @@ class IntervalReportSchema(Strict):
         metadata=_doc("`cv_plus` (K-fold), `jackknife_plus` (loo and gcv) or `model`.")
     )
     guarantee = fields.String(metadata=_doc("The finite-sample coverage guarantee."))
+    level_factor = fields.Float(
+        metadata=_doc(
+            "`window` and `blocks`: the factor sqrt(1 + 1/m) by which the half-widths were "
+            "widened for the uncertain level of dependent noise (m: `tuning.dependence."
+            "effective_rows`); absent otherwise."
+        )
+    )
 
 
 class PredictionSchema(Strict):
