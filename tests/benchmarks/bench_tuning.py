@@ -4,6 +4,7 @@
     .venv/bin/python tests/benchmarks/bench_tuning.py knn json   # some benchmarks only
     .venv/bin/python tests/benchmarks/bench_tuning.py locality   # locality flags vs a predict
     .venv/bin/python tests/benchmarks/bench_tuning.py overhead   # intervals + locality in a predict
+    .venv/bin/python tests/benchmarks/bench_tuning.py window     # window scheme vs kfold
 
 Not a test: pytest does not collect this file (its name does not start with ``test_``), and no
 timing belongs in the test suite. Every figure is the best of a few runs (time.perf_counter)
@@ -427,7 +428,71 @@ def bench_compare(rng: np.random.Generator, repeats: int) -> list[Row]:
     return [Row("compare vs sum of tuning each alone", t_ours, t_base, False, 1.2)]
 
 
+def bench_window(rng: np.random.Generator, repeats: int) -> list[Row]:
+    """The ``window`` scheme (default gap, chosen from the data) against 5-fold ``kfold`` on
+    the same rows, for kNN (p = 2) and the 1-D spline, n = 20,000 rows of a series with AR(1)
+    noise (lag-1 correlation 0.6): setup (checks, sort, pilot, folds) and the tuning path.
+    Before timing, the window's out-of-fold predictions at a few held-out steps are checked
+    against refits without the window (our own kNN on the kept rows; scipy's
+    make_smoothing_spline on them, in range)."""
+    from nearwise.core.methods import METHODS
+
+    n = 20_000
+    t = np.arange(n, dtype=float)
+    e = np.zeros(n)
+    shocks = rng.normal(0, 0.3, n)
+    for i in range(1, n):
+        e[i] = 0.6 * e[i - 1] + shocks[i]
+    rows = []
+    for name, p in (("knn", 2), ("spline", 1)):
+        X = rng.uniform(0, 1, (n, p))
+        y = np.sin(6 * X[:, 0]) + (X[:, 1] if p > 1 else 0) + e
+        cols = ("t", *(f"x{j}" for j in range(p)), "y")
+        train = Table("train", cols, np.column_stack([t, X, y]))
+        feats = [f"x{j}" for j in range(p)]
+
+        def tuned(scheme: str, name=name, train=train, feats=feats):
+            spec = TuningSpec(scheme=scheme, order_by="t" if scheme == "window" else None)
+            job = Job(name, train, "y", features=feats, tuning=spec)
+            settings, grid = pipeline.check_method(METHODS[name], job, {}, {})
+            ctx = pipeline.setup(job)
+            return ctx, pipeline.tune(ctx, METHODS[name], settings, grid)
+
+        ctx, tw = tuned("window")
+        folds, c = ctx.folds, tw.chosen
+        value = tw.values[c]
+        for f in (17, n // 2):
+            train_rows = np.flatnonzero(np.abs(folds.step - f) > folds.gap)
+            test_rows = np.flatnonzero(folds.step == f)
+            if name == "knn":
+                from nearwise.core.data import Scaler
+                from nearwise.core.methods.knn import _index, predict_all_k
+
+                Xs = Scaler.fit(ctx.X, "standard").transform(ctx.X)
+                ref = predict_all_k(
+                    _index(Xs[train_rows]), ctx.y[train_rows], Xs[test_rows], value, "uniform"
+                )[:, -1]
+            else:
+                xt, yt = ctx.X[train_rows, 0], ctx.y[train_rows]
+                o = np.argsort(xt)
+                from nearwise.core.methods import spline1d
+
+                snap = spline1d.Snap.of(ctx.X[:, 0])
+                tt, yb, w = spline1d.average_ties(snap.x[train_rows], yt)
+                ref = make_smoothing_spline(tt, yb, w=w, lam=value)(snap.x[test_rows])
+                del o
+            gap = float(np.max(np.abs(ref - tw.path.oof[c, 0, test_rows])))
+            assert gap < 1e-6 * float(np.ptp(ctx.y)), (name, f, gap)
+        note(f"window {name}: gap {ctx.gap.steps} steps (from the data), chosen {value}")
+        t_ours, _ = best_of(lambda tuned=tuned: tuned("window"), repeats)
+        t_base, _ = best_of(lambda tuned=tuned: tuned("kfold"), repeats)
+        label = "kNN, p = 2" if name == "knn" else "1-D spline"
+        rows.append(Row(f"window vs 5-fold kfold, {label}, n = 20,000", t_ours, t_base, False, 2.0))
+    return rows
+
+
 BENCHES: dict[str, Callable[[np.random.Generator, int], list[Row]]] = {
+    "window": bench_window,
     "knn": bench_knn,
     "thinplate": bench_thinplate,
     "spline1d": lambda rng, r: [*bench_spline1d(rng, r, True), *bench_spline1d(rng, r, False)],

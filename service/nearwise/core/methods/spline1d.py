@@ -153,9 +153,13 @@ class Knots:
         full[4, :-2] = band[0, 2:]
         full[3, -1] = full[4, -2:] = 0.0
         iw = 1.0 / self.w
-        E = self.qt(np.diag(iw))  # Q'W^-1, (knots - 2, knots)
+        E = self.qt(np.diag(iw))  # Q'W^-1, (knots - 2, knots), three bands
         Z = linalg.solve_banded((2, 2), full, E, check_finite=False)
-        out = -lam * (E.T @ Z)
+        out = np.zeros((self.t.size, self.t.size))  # E'Z = W^-1 Q Z, Q with three bands
+        out[:-2] += self.a[:, None] * Z
+        out[1:-1] += self.b[:, None] * Z
+        out[2:] += self.c[:, None] * Z
+        out *= -lam * iw[:, None]
         out[np.diag_indices_from(out)] += iw
         return out
 
