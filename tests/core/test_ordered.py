@@ -193,6 +193,7 @@ def test_dependence_is_found_just_past_each_threshold() -> None:
     limit = 3.09 * np.sqrt(2 / 200)  # 0.309 > 0.1
     assert dep(noise=limit + 1e-9).found and not dep(noise=limit - 1e-9).found
     assert dep(noise=0.1, steps=10**6).found and not dep(noise=0.0999, steps=10**6).found
+    assert dep(noise=0.99, steps=50).found and not dep(noise=0.99, steps=49).found
 
 
 # -- fast paths against refits ----------------------------------------------------------

@@ -130,12 +130,15 @@ def _warnings() -> list[dict[str, Any]]:
         {
             "code": "serial_dependence",
             "concerns": data,
-            "rule": "the out-of-fold residuals, in the order of `tuning.order_by` (or as the "
-            f"rows arrived), have a Ljung-Box p-value below {sequence.DEPENDENCE_ALPHA:g} over "
-            f"min({sequence.LB_MAX_LAGS}, steps // 5) lags and a lag-1 autocorrelation of at "
-            f"least {sequence.DEPENDENCE_MIN_LAG1:g} in size, while the scheme holds rows out "
-            "as if they were exchangeable (kfold, loo, gcv); on independent rows it fires "
-            f"in at most about {sequence.DEPENDENCE_ALPHA:.0%} of data sets",
+            "rule": "the scheme holds rows out as if they were exchangeable (kfold, loo, gcv) "
+            "and either the out-of-fold residuals, in the order of `tuning.order_by` (or as "
+            f"the rows arrived), have a Ljung-Box p-value below {sequence.DEPENDENCE_ALPHA:g} "
+            f"over min({sequence.LB_MAX_LAGS}, steps // 5) lags with a lag-1 autocorrelation "
+            f"of at least {sequence.DEPENDENCE_MIN_LAG1:g} in size, or a pilot fit's AR(1) "
+            "estimate of the noise's lag-1 correlation exceeds max("
+            f"{sequence.NOISE_MIN_LAG1:g}, {sequence.NOISE_Z:g} sqrt(2/m)) over m >= "
+            f"{sequence.NOISE_MIN_STEPS} steps; on independent rows it fires on about 1 data "
+            "set in 100",
         },
         {
             "code": "df_unavailable",

@@ -52,6 +52,9 @@ DEPENDENCE_ALPHA = 0.01
 DEPENDENCE_MIN_LAG1 = 0.2
 NOISE_Z = 3.09
 NOISE_MIN_LAG1 = 0.1
+#: Sign (b) needs at least this many pilot steps: on shorter series the pilot's error, which
+#: changes from one step to the next with the features, is as large as the noise.
+NOISE_MIN_STEPS = 50
 #: Default gap: the autocorrelation level below which residuals count as unrelated.
 GAP_ACF_LEVEL = 0.1
 #: Default gap: at most this share of the steps.
@@ -228,6 +231,7 @@ class Dependence:
         return residuals or (
             self.noise_lag1 is not None
             and self.noise_steps is not None
+            and self.noise_steps >= NOISE_MIN_STEPS
             and self.noise_lag1 >= noise_threshold(self.noise_steps)
         )
 

@@ -124,7 +124,8 @@ def notice(dep: sequence.Dependence | None, spec: TuningSpec) -> list[Notice]:
     return [
         Notice(
             "serial_dependence",
-            f"the rows are serially dependent {where}: the out-of-fold residuals have lag-1 "
+            f"the rows are serially dependent {where} (or the fit misses a pattern that "
+            "follows that order): the out-of-fold residuals have lag-1 "
             f"autocorrelation {dep.lag1:.2f} and Ljung-Box p = {dep.ljung_box_p:.2g} over "
             f"{dep.ljung_box_lags} lags{noise}; about {dep.effective_rows:.0f} effective rows. "
             "Cross-validation that holds out rows one by one or at random then favors too "

@@ -121,7 +121,9 @@ CV_PLUS_DOC = (
     "close to 1 - alpha (Barber, Candes, Ramdas & Tibshirani 2021). With `adaptive`, residuals "
     "are divided by the mean absolute out-of-fold residual of the max(10, sqrt(n)) nearest "
     "rows and multiplied back at the query (Lei et al. 2018, section 5.2). Bounds are widened "
-    "where needed so that lower <= value <= upper."
+    "where needed so that lower <= value <= upper. With `tuning.order_by`: CV+ on contiguous "
+    "blocks (`blocks`) or the jackknife on leave-a-window-out residuals (`window`), widened by "
+    "sqrt(1 + 1/m) for m effective rows; no finite-sample guarantee for dependent rows."
 )
 
 

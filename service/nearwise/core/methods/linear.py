@@ -97,11 +97,15 @@ class Linear(Method):
         "and the shrinkage and so understates the uncertainty. sigma^2 = RSS / (n - df); df "
         "is 1 + sum d^2 / (d^2 + alpha) for ridge (d the singular values of the centered "
         "basis), 1 + the number of nonzero coefficients for the lasso"
+        " With `tuning.order_by` and no penalty: the HAC standard error of the mean "
+        "(Newey & West 1987), also used in the term table"
     )
     model_interval_doc = (
         "t interval for a new observation: f +/- t(n - p, (1 + level) / 2) sigma "
         "sqrt(1 + x0' (X'X)^-1 x0); exact when the polynomial is the true mean and the noise "
-        "is normal with constant variance. Not offered with a penalty"
+        "is normal with constant variance. With `tuning.order_by`, x0' (X'X)^-1 x0 sigma^2 is "
+        "replaced by the HAC variance of the mean (Newey & West 1987, Bartlett weights, "
+        "floor(4 (n/100)^(2/9)) lags, rows in time order). Not offered with a penalty"
     )
     references = (
         "Montgomery, Peck & Vining (2012), Introduction to Linear Regression Analysis, 5th ed.",
