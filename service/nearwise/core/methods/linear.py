@@ -96,7 +96,7 @@ class Linear(Method):
         "(Z_A'Z_A)^-1 z0_A), least squares on the kept terms A, which ignores the selection "
         "and the shrinkage and so understates the uncertainty. sigma^2 = RSS / (n - df); df "
         "is 1 + sum d^2 / (d^2 + alpha) for ridge (d the singular values of the centered "
-        "basis), 1 + the number of nonzero coefficients for the lasso"
+        "basis), 1 + the number of nonzero coefficients for the lasso."
         " With `tuning.order_by` and no penalty: the HAC standard error of the mean "
         "(Newey & West 1987), also used in the term table"
     )
