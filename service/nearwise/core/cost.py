@@ -243,7 +243,6 @@ def additive(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) 
     knots = settings.get("knots") or default_knots(s.p)
     b = s.p * (int(knots) - 2) + s.p + 1
     s, solves = s.window_fast(_count(grid, settings, "smoothing", 20))
-    solves *= 1 + b / 20 if solves else 1  # the blocks are built from b columns per row
     fits = s.fits + 1
     rows = s.n * s.train_share
     queries = s.answers * s.models * b * 1e-8
