@@ -144,3 +144,56 @@ def test_refusals_point_at_the_field_or_cell(client) -> None:
     assert status == 422 and p["errors"][0]["pointer"] == "/tuning/gap"
     status, p = _problem(client, _body("knn", "window", train, gap=-1))
     assert status == 422 and p["errors"][0]["pointer"] == "/tuning/gap"
+
+
+def _cell_lists(n: int = 60) -> tuple[str, str, str]:
+    rng = np.random.default_rng(4)
+    x = rng.uniform(0, 10, n)
+    e = np.zeros(n)
+    for i in range(1, n):
+        e[i] = 0.7 * e[i - 1] + rng.normal(0, 0.3)
+    y = np.sin(x) + e
+
+    def text(v):
+        return ",".join(f"{a:.4f}" for a in v)
+
+    return text(x), text(y), ",".join(str(i) for i in range(n))
+
+
+def test_cell_takes_t_and_answers_like_predict(client) -> None:
+    x, y, t = _cell_lists()
+    resp = client.get(f"/v1/cell?x={x}&y={y}&t={t}&at=2.5&scheme=window&gap=2")
+    assert resp.status_code == 200, resp.get_data(as_text=True)
+    rows = [
+        [float(i), float(a), float(b)]
+        for i, a, b in zip(t.split(","), x.split(","), y.split(","), strict=True)
+    ]
+    body = {
+        "method": "spline",
+        "target": "y",
+        "features": ["x"],
+        "train": {"columns": ["t", "x", "y"], "rows": rows},
+        "query": {"columns": ["x"], "rows": [[2.5]]},
+        "tuning": {"order_by": "t", "scheme": "window", "gap": 2},
+    }
+    answer = client.post("/v1/predict", json=body).get_json()
+    assert float(resp.get_data(as_text=True)) == answer["predictions"][0]["value"]
+
+
+def test_cell_refusals_name_t(client) -> None:
+    x, y, t = _cell_lists()
+    resp = client.get(f"/v1/cell?x={x}&y={y}&t=1,2&at=2.5")
+    assert resp.status_code == 422
+    assert resp.get_json()["errors"][0]["parameter"] == "t"
+    resp = client.get(f"/v1/cell?x={x}&y={y}&at=2.5&scheme=window")
+    assert resp.status_code == 422
+    assert resp.get_json()["errors"][0]["parameter"] == "t"
+    missing = t.replace(",5,", ",,", 1)
+    resp = client.get(f"/v1/cell?x={x}&y={y}&t={missing}&at=2.5")
+    assert resp.status_code == 422
+    assert resp.get_json()["errors"][0] == {
+        "parameter": "t",
+        "message": "item 6: missing order_by value",
+    }
+    resp = client.get(f"/v1/cell?x={x}&y={y}&t={t}&at=2.5&scheme=window&gap=-1")
+    assert resp.status_code == 422 and resp.get_json()["errors"][0]["parameter"] == "gap"
