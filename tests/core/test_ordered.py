@@ -317,3 +317,35 @@ def test_additive_window_equals_refits_with_the_weights_held() -> None:
         sm = Smoother.of(red, blocks, lam=full.lam_hat)
         ref = evaluate(basis, X[test], sm.red.kept, sm.coefs(values)).T
         assert_allclose(path.oof[:, 0, test], ref, atol=1e-10)
+
+
+def test_lasso_window_and_knn_blocks_equal_scikit_learn_refits() -> None:
+    """Without a fast path each step (or block) is refitted on its training rows, scaled on
+    those rows: the lasso equals StandardScaler + Lasso (tolerance: both solve to a small
+    duality gap, as in test_penalized_reference.py), kNN blocks equal StandardScaler +
+    KNeighborsRegressor (continuous features: no ties)."""
+    from sklearn.linear_model import Lasso
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    from nearwise.core.methods import penalized
+
+    rng, step, folds = _window(40, 2, 2, 6)
+    X = rng.uniform(0, 1, (80, 3))
+    y = 2 * X[:, 0] - X[:, 1] + rng.normal(0, 0.2, 80)
+    values = [0.1, 0.01]
+    path = METHODS["linear"].path(X, y, folds, {"penalty": "lasso", "degree": 1}, values)
+    for f in range(folds.n_folds):
+        train, test = np.abs(step - f) > 2, step == f
+        for c, alpha in enumerate(values):
+            ref = make_pipeline(
+                StandardScaler(), Lasso(alpha=alpha, tol=penalized.LASSO_TOL, max_iter=100_000)
+            ).fit(X[train], y[train])
+            assert_allclose(path.oof[c, 0, test], ref.predict(X[test]), atol=1e-6)
+    blocks = tuning.ordered_folds(TuningSpec(scheme="blocks", folds=4, order_by="t"), step, 40, 3)
+    path = METHODS["knn"].path(X, y, blocks, {"weights": "uniform", "scale": "standard"}, [3, 8])
+    for _r, _f, train, test in blocks.splits():
+        for c, k in enumerate([3, 8]):
+            ref = make_pipeline(StandardScaler(), KNeighborsRegressor(n_neighbors=k))
+            ref.fit(X[train], y[train])
+            assert_allclose(path.oof[c, 0, test], ref.predict(X[test]), atol=1e-12)
