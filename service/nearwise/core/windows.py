@@ -21,6 +21,8 @@ from collections.abc import Callable
 
 import numpy as np
 
+from nearwise.core.tuning import Folds
+
 #: Elements of the (steps, width, width) blocks formed at once.
 CHUNK_CELLS = 2_000_000
 
@@ -47,25 +49,24 @@ def window_rows(step: np.ndarray, steps: int, gap: int) -> tuple[np.ndarray, np.
 def window_oof(
     y: np.ndarray,
     fitted: np.ndarray,
-    step: np.ndarray,
-    steps: int,
-    gap: int,
+    folds: Folds,
     blocks: Callable[[np.ndarray], np.ndarray],
-    check: Callable[[], None] = lambda: None,
 ) -> np.ndarray:
-    """Out-of-window predictions of every row for one smoother.
+    """Out-of-window predictions of every row for one smoother, on ``window`` folds.
 
     ``blocks(rows)`` returns the hat-matrix blocks H[rows_b][:, rows_b] for an index array
     ``rows`` (b, width) whose entries are valid row numbers (padding replaced by row 0; the
     padded entries are overwritten here). A window whose I - H_SS is singular (the fit
     without it is not determined) gives NaN for its held-out rows.
     """
-    rows, held, width = window_rows(step, steps, gap)
+    assert folds.step is not None
+    check = folds.check
+    rows, held, width = window_rows(folds.step, folds.n_folds, folds.gap)
     out = np.full(y.shape, np.nan)
     r = y - fitted
     per = max(1, CHUNK_CELLS // max(width * width, 1))
     eye = np.eye(width)
-    for start in range(0, steps, per):
+    for start in range(0, folds.n_folds, per):
         check()
         idx = rows[start : start + per]
         valid = idx >= 0

@@ -290,11 +290,8 @@ class Additive(Method):
             oof[c, 0] = windows.window_oof(
                 y,
                 fitted[c],
-                folds.step,
-                folds.n_folds,
-                folds.gap,
+                folds,
                 lambda rows, P=P: np.einsum("bik,bjk->bij", P[rows], P[rows]),
-                folds.check,
             )
         return oof
 

@@ -263,11 +263,8 @@ class Linear(Method):
                 oof[c, 0] = windows.window_oof(
                     y,
                     fitted[c],
-                    folds.step,
-                    folds.n_folds,
-                    folds.gap,
+                    folds,
                     lambda rows, Qc=Qc: np.einsum("bik,bjk->bij", Qc[rows], Qc[rows]),
-                    folds.check,
                 )
             return PathResult(oof, df)
         if folds.scheme == "gcv":

@@ -256,11 +256,8 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
             oof[c, 0] = windows.window_oof(
                 y,
                 fitted[c],
-                folds.step,
-                folds.n_folds,
-                folds.gap,
+                folds,
                 lambda rows, Us=Us: 1.0 / n + np.einsum("bik,bjk->bij", Us[rows], Us[rows]),
-                folds.check,
             )
         return PathResult(oof, 1.0 + S.sum(axis=0))
     if folds.folded:

@@ -246,11 +246,8 @@ class Spline(Method):
                 oof[c, 0] = windows.window_oof(
                     y,
                     fitted[c],
-                    folds.step,
-                    folds.n_folds,
-                    folds.gap,
+                    folds,
                     lambda rows, Hk=Hk: Hk[inv[rows][:, :, None], inv[rows][:, None, :]],
-                    folds.check,
                 )
             return PathResult(oof, df)
         if folds.scheme == "gcv":
