@@ -349,3 +349,17 @@ def test_lasso_window_and_knn_blocks_equal_scikit_learn_refits() -> None:
             ref = make_pipeline(StandardScaler(), KNeighborsRegressor(n_neighbors=k))
             ref.fit(X[train], y[train])
             assert_allclose(path.oof[c, 0, test], ref.predict(X[test]), atol=1e-12)
+
+
+def test_the_gap_rule_is_reported_with_its_cap() -> None:
+    line = sequence.timeline(Table("train", ("t",), np.arange(100.0)[:, None]), "t")
+    spec = TuningSpec(scheme="window", order_by="t")
+    _, gap = serial.make_folds(spec, line, (0.5, 100), lambda: None)
+    assert (gap.steps, gap.capped) == (3, False) and "0.5^h >= 0.1" in gap.rule
+    _, gap = serial.make_folds(spec, line, (0.95, 100), lambda: None)
+    assert (gap.steps, gap.capped) == (10, True) and "capped at a tenth of the 100" in gap.rule
+    _, gap = serial.make_folds(spec, line, None, lambda: None)
+    assert gap.steps == 0 and "too short" in gap.rule
+    given = TuningSpec(scheme="window", order_by="t", gap=7)
+    _, gap = serial.make_folds(given, line, (0.95, 100), lambda: None)
+    assert (gap.steps, gap.source) == (7, "caller")

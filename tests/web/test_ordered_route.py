@@ -57,6 +57,7 @@ def test_shuffling_the_rows_sent_changes_no_byte(client, method, scheme) -> None
 def test_window_answer_describes_its_intervals(client) -> None:
     answer = client.post("/v1/predict", json=_body("spline", "window", _series())).get_json()
     assert answer["interval"]["construction"] == "jackknife"
+    assert answer["tuning"]["gap_rule"].startswith("pilot estimate")
     assert "no finite-sample guarantee" in answer["interval"]["guarantee"]
     assert answer["tuning"]["folds"] is None
     blocks = client.post("/v1/predict", json=_body("knn", "blocks", _series(), gap=2)).get_json()

@@ -344,6 +344,7 @@ def report(
         order_by=job.tuning.order_by,
         gap=None if gap is None else gap.steps,
         gap_source=None if gap is None else gap.source,
+        gap_rule=None if gap is None else gap.rule,
         dependence=None if dep is None else dep.report(),
     )
 

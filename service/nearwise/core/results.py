@@ -43,6 +43,7 @@ class TuningReport:
     order_by: str | None = None
     gap: int | None = None
     gap_source: str | None = None
+    gap_rule: str | None = None
     dependence: dict[str, Any] | None = None
 
 

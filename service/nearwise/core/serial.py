@@ -34,6 +34,7 @@ class Gap:
     steps: int
     source: str
     capped: bool = False
+    rule: str = "given in the request"
 
 
 def pilot_k(n: int) -> int:
@@ -80,8 +81,18 @@ def make_folds(
     if spec.gap is not None:
         gap = Gap(int(spec.gap), "caller")
     else:
-        steps, capped = sequence.default_gap(0.0 if noise is None else noise[0], line.steps)
-        gap = Gap(steps, "data", capped)
+        phi = 0.0 if noise is None else noise[0]
+        steps, capped = sequence.default_gap(phi, line.steps)
+        if noise is None:
+            rule = "the series is too short for the pilot fit: no gap"
+        else:
+            rule = (
+                f"pilot estimate of the noise's lag-1 correlation {phi:.3g}: the last lag h "
+                f"with {phi:.3g}^h >= {sequence.GAP_ACF_LEVEL:g}"
+            )
+        if capped:
+            rule += f"; capped at a tenth of the {line.steps} steps"
+        gap = Gap(steps, "data", capped, rule)
     return tuning.ordered_folds(spec, line.step, line.steps, gap.steps, check), gap
 
 

@@ -58,6 +58,10 @@ class TuningReportSchema(CompareTuningSchema):
     gap_source = fields.String(
         allow_none=True, metadata=_doc("`caller` or `data` (the default rule); null without gap.")
     )
+    gap_rule = fields.String(
+        allow_none=True,
+        metadata=_doc("How the gap was set: the pilot's estimate and the rule, or the cap."),
+    )
     dependence = fields.Nested(
         DependenceSchema,
         allow_none=True,
