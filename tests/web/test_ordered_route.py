@@ -198,3 +198,23 @@ def test_cell_refusals_name_t(client) -> None:
     }
     resp = client.get(f"/v1/cell?x={x}&y={y}&t={t}&at=2.5&scheme=window&gap=-1")
     assert resp.status_code == 422 and resp.get_json()["errors"][0]["parameter"] == "gap"
+
+
+def test_refusals_at_the_edges_say_what_to_do(client) -> None:
+    train = _series(30, dates=True)
+    same = json.loads(json.dumps(train))
+    for row in same["rows"]:
+        row[0] = "2026-01-01"
+    status, p = _problem(client, _body("knn", "window", same))
+    assert status == 422 and p["errors"][0]["pointer"] == "/tuning/order_by"
+    assert "at least 2 distinct" in p["detail"]
+    status, p = _problem(client, {**_body("knn", "window", train), "features": ["x", "day"]})
+    assert status == 422 and p["errors"][0]["pointer"] == "/features/1"
+    assert "holds dates" in p["detail"]
+    numbers = _series(30)
+    status, p = _problem(client, {**_body("knn", "window", numbers, gap=3), "params": {"k": 24}})
+    assert status == 422 and "windows of 3 steps" in p["detail"]
+    ok = client.post(
+        "/v1/predict", json={**_body("knn", "window", numbers), "features": ["x", "day"]}
+    )
+    assert ok.status_code == 200 and ok.get_json()["features"] == ["x", "day"]

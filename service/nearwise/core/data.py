@@ -175,6 +175,14 @@ def prepare(
                     f"feature `{train.columns[j]}` is also the {role}.",
                     [Where(("features", k), f"`{train.columns[j]}` is the {role}")],
                 )
+    if o is not None and o in f_idx and o in train.labels:
+        k = f_idx.index(o)
+        raise BadCell(
+            f"feature `{train.columns[o]}` is the `tuning.order_by` column and holds dates; a "
+            "feature must hold numbers. Send the time as numbers (seconds or days) to use it "
+            "as a feature, or leave it out of `features`.",
+            [Where(("features", k), "dates cannot be a feature")],
+        )
     for j in [*f_idx, t]:
         _first_text_cell(train, j)
     names = tuple(train.columns[j] for j in f_idx)

@@ -228,6 +228,12 @@ def ordered_folds(
             )
         of_step = (np.arange(steps) * k) // steps
     else:
+        if steps < 2:
+            raise TooFewRows(
+                f"the window scheme holds out one `{spec.order_by}` value at a time and needs at "
+                f"least 2 distinct values; every row has the same one. Use `kfold`.",
+                [Where(("tuning", "order_by"), "one distinct value")],
+            )
         k = steps
         of_step = np.arange(steps)
     first = np.searchsorted(of_step, np.arange(k), side="left")

@@ -238,6 +238,15 @@ class Index:
         return d, ind.astype(np.intp, copy=False)
 
 
+def _held_out(folds: Folds) -> str:
+    """How the rows are held out, for messages."""
+    if folds.scheme == "loo":
+        return "leave-one-out"
+    if folds.scheme == "window":
+        return f"windows of {folds.gap} steps on each side"
+    return f"{folds.n_folds} {'blocks' if folds.scheme == 'blocks' else 'folds'}"
+
+
 def _index(Xs: np.ndarray) -> Index:
     return Index(Xs)
 
@@ -418,7 +427,7 @@ class KNN(Method):
         if not 1 <= k <= hi:
             raise InvalidValue(
                 f"`k` must be an integer in [1, {hi}] for {folds.n} rows in "
-                f"{'leave-one-out' if folds.scheme == 'loo' else f'{folds.n_folds} folds'}; "
+                f"{_held_out(folds)}; "
                 f"got {k}. The smallest training fold holds {folds.min_train} rows.",
                 [Where(path, f"outside [1, {hi}]")],
             )
