@@ -214,7 +214,7 @@ def test_refusals_at_the_edges_say_what_to_do(client) -> None:
     numbers = _series(30)
     status, p = _problem(client, {**_body("knn", "window", numbers, gap=3), "params": {"k": 24}})
     assert status == 422 and "windows of 3 steps" in p["detail"]
-    ok = client.post(
-        "/v1/predict", json={**_body("knn", "window", numbers), "features": ["x", "day"]}
-    )
+    body = {**_body("knn", "window", numbers), "features": ["x", "day"]}
+    body["query"] = {"columns": ["x", "day"], "rows": [[1.0, 10.0]]}
+    ok = client.post("/v1/predict", json=body)
     assert ok.status_code == 200 and ok.get_json()["features"] == ["x", "day"]
