@@ -218,3 +218,15 @@ def test_refusals_at_the_edges_say_what_to_do(client) -> None:
     body["query"] = {"columns": ["x", "day"], "rows": [[1.0, 10.0]]}
     ok = client.post("/v1/predict", json=body)
     assert ok.status_code == 200 and ok.get_json()["features"] == ["x", "day"]
+
+
+def test_order_by_is_not_the_target_and_auto_leaves_out_bands_it_cannot_give(client) -> None:
+    train = _series(60)
+    status, p = _problem(client, _body("knn", "window", train, order_by="y"))
+    assert status == 422 and p["errors"][0]["pointer"] == "/tuning/order_by"
+    body = {**_body("auto", "window", train), "interval": {"kind": "model"}}
+    answer = client.post("/v1/predict", json=body).get_json()
+    assert answer["method"] == "linear"  # the one method with a model interval here
+    skipped = [w["message"] for w in answer["warnings"] if w["code"] == "method_skipped"]
+    assert any(m.startswith("spline") for m in skipped)
+    assert any(m.startswith("additive") for m in skipped)

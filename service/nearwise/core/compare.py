@@ -20,7 +20,7 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import cost, pipeline
+from nearwise.core import cost, pipeline, uncertainty
 from nearwise.core.errors import InvalidValue, NearwiseError, OverLimit, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
 from nearwise.core.results import Notice, PredictResult, TuningReport
@@ -152,6 +152,9 @@ def tune_all(job: Job) -> tuple[pipeline.Context, dict[str, pipeline.Tuned], lis
     for method, prm, grd in zip(methods, params, grids, strict=True):
         try:
             settings, grid = pipeline.check_method(method, job, prm, grd, intervals=False)
+            if job.method == "auto":  # auto answers with intervals: the method must give them
+                uncertainty.check(job.interval, method, method.interval_kinds_for(settings))
+                pipeline.check_model_interval(method, job)
             checked.append((method, settings, grid))
         except NearwiseError as err:
             if named or err.code == "over_limit":
@@ -253,7 +256,6 @@ def compare(job: Job) -> CompareResult:
 
 
 def _predict(ctx: pipeline.Context, t: pipeline.Tuned, job: Job) -> PredictResult:
-    from nearwise.core import uncertainty
 
     uncertainty.check(job.interval, t.method, t.method.interval_kinds_for(t.settings))
     pipeline.check_model_interval(t.method, job)

@@ -149,6 +149,12 @@ def prepare(
     t = _column_index(train, target, ("target",))
     g = _column_index(train, group_by, ("tuning", "group_by")) if group_by else None
     o = _column_index(train, order_by, ("tuning", "order_by")) if order_by else None
+    if o is not None and o == t:
+        raise InvalidValue(
+            f"`tuning.order_by` names the target `{target}`; it must name the column that "
+            "places rows in time.",
+            [Where(("tuning", "order_by"), "the target")],
+        )
     if features is None:
         f_idx = [j for j in range(len(train.columns)) if j not in (t, g, o)]
         if not f_idx:

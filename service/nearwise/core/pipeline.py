@@ -121,7 +121,7 @@ def check_model_interval(method: Method, job: Job) -> None:
 def check_fold_fits(job: Job) -> None:
     """Refuse more folds x repeats than the service allows."""
     spec, cap = job.tuning, job.caps.fold_fits
-    if cap is None or spec.scheme != "kfold" or spec.folds * spec.repeats <= cap:
+    if cap is None or spec.scheme not in ("kfold", "blocks") or spec.folds * spec.repeats <= cap:
         return
     at = "repeats" if spec.repeats > 1 else "folds"
     most = max(1, cap // spec.folds) if at == "repeats" else cap

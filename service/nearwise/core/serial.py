@@ -23,8 +23,10 @@ from nearwise.core.results import Notice
 from nearwise.core.spec import ORDERED_SCHEMES, TuningSpec
 
 PILOT_BLOCKS = 5
-#: The pilot looks at most at this many steps (the first ones).
+#: The pilot looks at most at this many steps (the first ones) and this many rows (an even
+#: selection of theirs), so that its cost is bounded whatever the size of the request.
 PILOT_STEPS = 2000
+PILOT_ROWS = 4000
 
 
 @dataclass(frozen=True)
@@ -46,14 +48,21 @@ def noise_lag1(
 ) -> tuple[float, int] | None:
     """The pilot's estimate of the noise's lag-1 correlation, and the steps it used.
 
-    ``step`` places each row in time (distinct integers from 0). Only the first PILOT_STEPS
-    steps are used, a contiguous stretch of the series, so the cost is bounded whatever the
-    size. None when the stretch is too short for the pilot.
+    ``step`` places each row in time (integers from 0). Only the first PILOT_STEPS steps are
+    used, a contiguous stretch of the series, and of their rows at most PILOT_ROWS, evenly
+    spread in time, so the cost is bounded whatever the size. None when the stretch is too
+    short for the pilot.
     """
     from nearwise.core.methods.knn import KNN  # the pilot is a method of its own
 
     steps = int(min(step.max() + 1, PILOT_STEPS))
     rows = np.flatnonzero(step < steps)
+    if rows.size > PILOT_ROWS:  # many rows per step: an even selection, in time order
+        rows = rows[np.argsort(step[rows], kind="stable")]
+        rows = rows[np.linspace(0, rows.size - 1, PILOT_ROWS).round().astype(np.intp)]
+    kept, dense = np.unique(step[rows], return_inverse=True)
+    step, steps = np.zeros(step.shape, dtype=np.intp), int(kept.size)
+    step[rows] = dense.reshape(-1)
     spec = TuningSpec(scheme="blocks", folds=PILOT_BLOCKS, order_by="pilot")
     try:
         folds = tuning.ordered_folds(spec, step[rows], steps, 0, check)

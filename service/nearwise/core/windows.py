@@ -56,8 +56,9 @@ def window_oof(
 
     ``blocks(rows)`` returns the hat-matrix blocks H[rows_b][:, rows_b] for an index array
     ``rows`` (b, width) whose entries are valid row numbers (padding replaced by row 0; the
-    padded entries are overwritten here). A window whose I - H_SS is singular (the fit
-    without it is not determined) gives NaN for its held-out rows.
+    padded entries are overwritten here). A window whose I - H_SS has an eigenvalue below
+    SINGULAR (the fit without it is not determined) gives NaN for its held-out rows, which
+    the scoring treats as an unbounded error.
     """
     assert folds.step is not None
     check = folds.check
@@ -81,15 +82,15 @@ def window_oof(
     return out
 
 
+#: I - H_SS is symmetric with eigenvalues in [0, 1]; below this smallest eigenvalue the fit
+#: without the window is not determined (the leave-one-out guard h < 1 - 1e-10, for a set).
+SINGULAR = 1e-10
+
+
 def _solve(A: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Batched solves; a singular system gives NaN for its window only."""
-    try:
-        return np.linalg.solve(A, b[..., None])[..., 0]
-    except np.linalg.LinAlgError:
-        out = np.full(b.shape, np.nan)
-        for i in range(A.shape[0]):
-            try:
-                out[i] = np.linalg.solve(A[i], b[i])
-            except np.linalg.LinAlgError:
-                pass
-        return out
+    """Batched solves; a (numerically) singular system gives NaN for its window only."""
+    low = np.linalg.eigvalsh(A)[:, 0] < SINGULAR
+    A = np.where(low[:, None, None], np.eye(A.shape[1])[None], A)
+    out = np.linalg.solve(A, b[..., None])[..., 0]
+    out[low] = np.nan
+    return out

@@ -456,15 +456,22 @@ class KNN(Method):
             # One neighbor query of all rows, each leaving out its own row (loo) or the rows
             # within the gap of its step (window); features scaled once with all rows.
             sc = Scaler.fit(X, scale)
+            Xs = sc.transform(X)
+            index = _index(Xs)
             drop = (
                 Drop(np.arange(X.shape[0]))
                 if folds.scheme == "loo"
                 else Drop.window(folds.step, folds.gap)
             )
-            pred = predict_all_k(
-                _index(sc.transform(X)), y, sc.transform(X), kmax, weights, drop=drop
-            )
-            oof = pred[:, cols].T[:, None, :]
+            # In blocks of rows, so that the neighbor windows (k plus the largest window
+            # left out) of every row are never all held at once.
+            step = max(1, FIT_BLOCK_CELLS // (kmax + 1 + int(drop.counts().max())))
+            oof = np.empty((len(values), 1, X.shape[0]))
+            for start in range(0, X.shape[0], step):
+                folds.check()
+                rows = np.arange(start, min(X.shape[0], start + step))
+                pred = predict_all_k(index, y, Xs[rows], kmax, weights, drop=drop.take(rows))
+                oof[:, 0, rows] = pred[:, cols].T
             models = ()
         else:
             oof = np.empty((len(values), folds.repeats, X.shape[0]))
