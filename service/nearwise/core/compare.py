@@ -256,7 +256,6 @@ def compare(job: Job) -> CompareResult:
 
 
 def _predict(ctx: pipeline.Context, t: pipeline.Tuned, job: Job) -> PredictResult:
-
     uncertainty.check(job.interval, t.method, t.method.interval_kinds_for(t.settings))
     pipeline.check_model_interval(t.method, job)
     return pipeline.answer(ctx, t)
