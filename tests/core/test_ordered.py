@@ -363,3 +363,29 @@ def test_the_gap_rule_is_reported_with_its_cap() -> None:
     given = TuningSpec(scheme="window", order_by="t", gap=7)
     _, gap = serial.make_folds(given, line, (0.95, 100), lambda: None)
     assert (gap.steps, gap.source) == (7, "caller")
+
+
+def test_knn_window_in_row_blocks_equals_one_block(monkeypatch) -> None:
+    from nearwise.core.methods import knn
+
+    rng, _step, folds = _window(50, 3, 2, 8)
+    X = rng.uniform(0, 1, (150, 2))
+    y = rng.normal(size=150)
+    settings = {"weights": "uniform", "scale": "standard"}
+    whole = METHODS["knn"].path(X, y, folds, settings, [1, 5, 12]).oof
+    monkeypatch.setattr(knn, "FIT_BLOCK_CELLS", 40)  # 40 // (12 + 1 + 15) = 1 row per block
+    blocked = METHODS["knn"].path(X, y, folds, settings, [1, 5, 12]).oof
+    assert_allclose(blocked, whole, rtol=0, atol=0)
+
+
+def test_a_window_that_leaves_the_fit_undetermined_is_not_scored() -> None:
+    """Rows 10-12 alone hold x != 0: without step 11's window a cubic is not determined, and
+    I - H_SS is singular to rounding. The window gets NaN (an unbounded error), not a number
+    from a solve of a singular system."""
+    x = np.zeros(30)
+    x[10:13] = [1.0, 2.0, 3.0]
+    y = np.random.default_rng(0).normal(size=30)
+    folds = tuning.ordered_folds(TuningSpec(scheme="window", order_by="t"), np.arange(30), 30, 1)
+    path = METHODS["linear"].path(x[:, None], y, folds, {"penalty": "none"}, [1, 3])
+    assert np.isnan(path.oof[1, 0, 11])  # degree 3 at step 11
+    assert np.isfinite(path.oof[0, 0, :10]).all()

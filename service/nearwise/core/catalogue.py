@@ -169,10 +169,12 @@ def describe() -> dict[str, Any]:
                 "of it left out of its fit; for questions within the period the data cover",
                 "blocks": "with `order_by`: `folds` contiguous blocks of steps, `gap` steps "
                 "left out on each side; for questions about new periods",
-                "gap": "default: the last lag at which a pilot fit's out-of-fold residuals "
-                f"(kNN, k = clip(round(sqrt(n)), 5, 50), {5} contiguous blocks, no gap, "
-                f"averaged per step) have autocorrelation {sequence.GAP_ACF_LEVEL:g} or more, "
-                f"at most {sequence.GAP_MAX_SHARE:.0%} of the steps",
+                "gap": "default: from a pilot fit (kNN, k = clip(round(sqrt(n)), 5, 50), "
+                "5 contiguous blocks, no gap, on at most the first 2,000 steps and 4,000 rows): "
+                "phi = 1 + 2 corr(d_t, d_t+1) of its first-differenced out-of-fold residuals "
+                "(averaged per step), the AR(1) estimate of the noise's lag-1 correlation; the "
+                f"gap is the last lag h with phi^h >= {sequence.GAP_ACF_LEVEL:g}, at most "
+                f"{sequence.GAP_MAX_SHARE:.0%} of the steps",
             },
         },
         "warnings": _warnings(),

@@ -133,8 +133,8 @@ class TuningSchema(Strict):
         metadata=_doc(
             "`window` and `blocks`: steps of `order_by` (distinct values) left out of "
             "training on each side of a held-out row or block. Default: chosen from the data "
-            "(the last lag at which a pilot fit's out-of-fold residuals still have "
-            "autocorrelation 0.1 or more, at most a tenth of the steps) and reported."
+            "(a pilot fit's AR(1) estimate phi of the noise's lag-1 correlation; the last lag h "
+            "with phi^h >= 0.1, at most a tenth of the steps) and reported with its rule."
         ),
     )
 
