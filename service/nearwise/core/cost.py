@@ -29,8 +29,8 @@ ROW_S = 0.8e-6
 CV_PLUS_S = 4e-6
 JACKKNIFE_S = 2e-8
 #: Leave-a-window-out solves from a hat matrix: per step and candidate, and per cubed window.
-WINDOW_STEP_S = 3e-6
-WINDOW_CUBE_S = 2e-9
+WINDOW_STEP_S = 1.5e-6
+WINDOW_CUBE_S = 1.2e-9
 
 
 @dataclass(frozen=True)
