@@ -319,6 +319,17 @@ def _cell(text: str) -> Any:
     return text
 
 
+#: A text cell starting with one of these is read as a formula by spreadsheets; the CSV
+#: answers prefix it with an apostrophe (the common practice for CSV meant for spreadsheets).
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutral(text: str) -> str:
+    """``text`` as a spreadsheet shows it, never evaluates it: an apostrophe before a leading
+    formula character."""
+    return "'" + text if text.startswith(FORMULA_STARTS) else text
+
+
 def write_rows(
     columns: Sequence[str],
     cells: Sequence[Sequence[Any]],
@@ -328,7 +339,7 @@ def write_rows(
     """The input rows as sent, then one column per entry of ``extra`` (already text or None)."""
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\r\n", delimiter=dialect.delimiter)
-    writer.writerow([*columns, *extra])
+    writer.writerow([neutral(c) for c in (*columns, *extra)])
     added = list(zip(*extra.values(), strict=True)) if extra else [()] * len(cells)
     for row, more in zip(cells, added, strict=True):
         writer.writerow(
@@ -360,4 +371,4 @@ def _text(cell: Any, dialect: Dialect) -> str:
         return dialect.number(cell) if np.isfinite(cell) else ""
     if isinstance(cell, int):
         return str(cell)
-    return str(cell)
+    return neutral(str(cell))

@@ -4,12 +4,13 @@ from __future__ import annotations
 
 from dataclasses import asdict
 from typing import Any
+from urllib.parse import quote
 
 import numpy as np
 
 from nearwise.core.compare import CompareResult
 from nearwise.core.results import Predictions, PredictResult
-from nearwise.web.csvio import PLAIN, Dialect, texts, write_rows, write_table
+from nearwise.web.csvio import PLAIN, Dialect, neutral, texts, write_rows, write_table
 from nearwise.web.jsonio import dumps, jsonable
 from nearwise.web.tables import Parsed
 
@@ -156,7 +157,7 @@ def locality_headers(doc: dict[str, Any], dialect: Dialect = PLAIN) -> dict[str,
     spacing = _number(doc["typical_spacing"])
     heads = {
         "Nearwise-Rows": str(doc["n"]),
-        "Nearwise-Features": ",".join(doc["features"]),
+        "Nearwise-Features": ",".join(header_name(f) for f in doc["features"]),
         "Nearwise-Scale": doc["scale"],
         "Nearwise-Typical-Spacing": "" if spacing is None else repr(spacing),
         "Nearwise-Far-Threshold": repr(float(doc["thresholds"]["far_from_data"])),
@@ -165,6 +166,13 @@ def locality_headers(doc: dict[str, Any], dialect: Dialect = PLAIN) -> dict[str,
     if codes:
         heads["Nearwise-Warnings"] = ", ".join(codes)
     return heads
+
+
+def header_name(name: str) -> str:
+    """A column name in a response header: neutralized as in CSV answers, then
+    percent-encoded outside printable ASCII (and for ``%`` and the separator ``,``), so that
+    any name is a valid header value (RFC 3986 percent-encoding of its UTF-8 bytes)."""
+    return quote(neutral(name), safe=" !\"#$&'()*+-./:;<=>?@[\\]^_`{|}~")
 
 
 def _number(value: Any) -> float | None:

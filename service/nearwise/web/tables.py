@@ -8,6 +8,7 @@ column at fault; nothing is coerced.
 
 from __future__ import annotations
 
+import unicodedata
 from dataclasses import dataclass
 from itertools import chain
 from typing import Any
@@ -65,12 +66,28 @@ def check_shape(name: str, columns: list[str], n_rows: int, limits: Limits) -> N
         )
     seen: dict[str, int] = {}
     for j, col in enumerate(columns):
+        _check_name(name, j, col)
         if col in seen:
             raise BadTable(
                 f"Column names must be unique; `{col}` appears more than once in {name}.",
                 [Where((name, "columns", j), f"duplicate column `{col}`")],
             )
         seen[col] = j
+
+
+def _check_name(table: str, j: int, col: str) -> None:
+    """Refuse a column name holding a control character (tab, line breaks and the other C0
+    and C1 codes) or a lone surrogate: neither can be written back in a CSV answer or a
+    header, and neither is a name anyone means."""
+    for ch in col:
+        kind = unicodedata.category(ch)
+        if kind in ("Cc", "Cs"):
+            what = "a control character" if kind == "Cc" else "a lone surrogate"
+            raise BadTable(
+                f"Column {j} of {table} has a name holding {what} (U+{ord(ch):04X}); column "
+                "names are printable text. Rename the column.",
+                [Where((table, "columns", j), f"{what} U+{ord(ch):04X} in the name")],
+            )
 
 
 def from_json(
