@@ -107,3 +107,22 @@ def test_csv_header_names_are_checked_too(client) -> None:
     problem = resp.get_json()
     assert problem["errors"][0]["part"] == "train" and problem["errors"][0]["line"] == 1
     assert "U+0001" in problem["detail"]
+
+
+def test_a_byte_order_mark_is_accepted_on_json_as_on_csv(client) -> None:
+    import json
+
+    body = {
+        "method": "knn",
+        "target": "y",
+        "train": {"columns": ["x", "y"], "rows": [[float(i), float(i)] for i in range(20)]},
+    }
+    plain = client.post(
+        "/v1/predict", data=json.dumps(body), headers={"Content-Type": "application/json"}
+    )
+    marked = client.post(
+        "/v1/predict",
+        data=b"\xef\xbb\xbf" + json.dumps(body).encode(),
+        headers={"Content-Type": "application/json"},
+    )
+    assert marked.status_code == 200 and marked.get_data() == plain.get_data()

@@ -49,7 +49,7 @@ class Parsed:
 
 
 def loads_strict(body: bytes) -> Parsed:
-    """Parse a UTF-8 JSON body.
+    """Parse a UTF-8 JSON body (a leading byte order mark is ignored).
 
     Raises
     ------
@@ -78,7 +78,9 @@ def loads_strict(body: bytes) -> Parsed:
             seen.add(key)
         return marked
 
-    text = body.decode("utf-8")
+    # A leading byte order mark is ignored, as for CSV and text bodies (RFC 8259, section 8.1,
+    # lets a parser ignore it).
+    text = body.decode("utf-8-sig")
     try:
         doc = json.loads(text, parse_constant=constant, object_pairs_hook=pairs)
     except RecursionError:
