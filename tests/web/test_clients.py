@@ -1,4 +1,4 @@
-"""The client snippets in clients/ and the samples they post, run against a live service.
+"""The client snippets in samples/clients/ and the samples they post, run against a live service.
 
 A real ``nearwise serve`` is started on a free 127.0.0.1 port (``serving`` in webhelpers).
 The Python client runs with this interpreter and the Node client with ``node`` (skipped when
@@ -6,8 +6,9 @@ The Python client runs with this interpreter and the Node client with ``node`` (
 bad one (the problem's detail and a JSON Pointer printed). Every subprocess is bounded by a
 timeout.
 
-Not run here: ``clients/r_client.R`` (needs R and httr2), ``clients/spreadsheet_function.gs``
-(runs only inside a spreadsheet's script host) and ``clients/spreadsheet_query.md`` (a recipe).
+Not run here: ``samples/clients/r_client.R`` (needs R and httr2),
+``samples/clients/spreadsheet_function.gs`` (runs only inside a spreadsheet's script host) and
+``samples/clients/spreadsheet_query.md`` (a recipe).
 
 Also checked: the warehouse sample regenerates byte for byte, the new curl scripts get answers,
 and on the warehouse data compare recommends additive or linear while knn is not local.
@@ -27,7 +28,7 @@ from webhelpers import serving
 
 ROOT = Path(__file__).resolve().parents[2]
 SAMPLES = ROOT / "samples"
-CLIENTS = ROOT / "clients"
+CLIENTS = SAMPLES / "clients"
 NODE = shutil.which("node")
 TIMEOUT = 120
 

@@ -231,7 +231,7 @@ def test_the_docs_page_keeps_its_own_policy(client) -> None:
     assert_secure(home, frame="SAMEORIGIN")
 
 
-# The clients in clients/ send NEARWISE_API_KEY as a bearer token.
+# The clients in samples/clients/ send NEARWISE_API_KEY as a bearer token.
 
 
 @pytest.fixture(scope="module")
@@ -243,11 +243,11 @@ def keyed_server(tmp_path_factory):
 
 def client_command(name: str) -> list[str]:
     if name == "python":
-        return [sys.executable, str(ROOT / "clients" / "python_client.py")]
+        return [sys.executable, str(ROOT / "samples" / "clients" / "python_client.py")]
     node = __import__("shutil").which("node")
     if node is None:
         pytest.skip("node is not installed: the Node client cannot run here")
-    return [node, str(ROOT / "clients" / "node_client.mjs")]
+    return [node, str(ROOT / "samples" / "clients" / "node_client.mjs")]
 
 
 @pytest.mark.parametrize("name", ["python", "node"])
@@ -274,7 +274,7 @@ def test_clients_send_the_key_as_a_bearer_token(keyed_server: str, name: str) ->
 
 def test_no_client_or_document_names_the_old_key_header() -> None:
     for path in ("python_client.py", "node_client.mjs", "r_client.R", "spreadsheet_function.gs"):
-        text = (ROOT / "clients" / path).read_text(encoding="utf-8")
+        text = (ROOT / "samples" / "clients" / path).read_text(encoding="utf-8")
         assert "NEARWISE_API_KEY" in text and "earer" in text, path
         assert "X-API-Key" not in text, path
     assert "X-API-Key" not in (ROOT / "README.md").read_text(encoding="utf-8")

@@ -1,10 +1,10 @@
 # Post a request body to nearwise and print the predictions, or the error it explains.
 #
-#   Rscript clients/r_client.R                                   # the turbine spline sample
-#   Rscript clients/r_client.R samples/predict_warehouse.json
-#   Rscript clients/r_client.R samples/compare_warehouse.json compare
-#   NEARWISE_URL=http://host:9000 Rscript clients/r_client.R
-#   NEARWISE_API_KEY=your-key Rscript clients/r_client.R          # sent as a bearer token
+#   Rscript samples/clients/r_client.R                                   # the turbine spline sample
+#   Rscript samples/clients/r_client.R samples/predict_warehouse.json
+#   Rscript samples/clients/r_client.R samples/compare_warehouse.json compare
+#   NEARWISE_URL=http://host:9000 Rscript samples/clients/r_client.R
+#   NEARWISE_API_KEY=your-key Rscript samples/clients/r_client.R          # sent as a bearer token
 #
 # Needs R 4.1 or newer and the httr2 package. Run it from the repository root (the default body
 # path is relative). Exits with status 1 when the service answers with an error.

@@ -1,16 +1,16 @@
 // Post a request body to nearwise and print the predictions, or the error it explains.
 //
-//   node clients/node_client.mjs                                   # the turbine spline sample
-//   node clients/node_client.mjs samples/predict_warehouse.json
-//   node clients/node_client.mjs samples/compare_warehouse.json compare
-//   NEARWISE_URL=http://host:9000 node clients/node_client.mjs
-//   NEARWISE_API_KEY=your-key node clients/node_client.mjs        # sent as a bearer token
+//   node samples/clients/node_client.mjs                           # the turbine spline sample
+//   node samples/clients/node_client.mjs samples/predict_warehouse.json
+//   node samples/clients/node_client.mjs samples/compare_warehouse.json compare
+//   NEARWISE_URL=http://host:9000 node samples/clients/node_client.mjs
+//   NEARWISE_API_KEY=your-key node samples/clients/node_client.mjs        # sent as a bearer token
 //
 // Node 18 or newer (built-in fetch); no packages. Exits with 1 when the service answers with an error.
 import { readFile } from "node:fs/promises";
 
 const base = (process.env.NEARWISE_URL ?? "http://127.0.0.1:8080").replace(/\/+$/, "");
-const bodyPath = process.argv[2] ?? new URL("../samples/predict_spline.json", import.meta.url);
+const bodyPath = process.argv[2] ?? new URL("../predict_spline.json", import.meta.url);
 const endpoint = process.argv[3] ?? "predict";
 const key = process.env.NEARWISE_API_KEY ?? "";
 const headers = { "Content-Type": "application/json" };

@@ -1,10 +1,10 @@
 """Post a request body to nearwise and print the predictions, or the error it explains.
 
-    python clients/python_client.py                                  # the turbine spline sample
-    python clients/python_client.py samples/predict_warehouse.json
-    python clients/python_client.py samples/compare_warehouse.json compare
-    NEARWISE_URL=http://host:9000 python clients/python_client.py
-    NEARWISE_API_KEY=your-key python clients/python_client.py       # sent as a bearer token
+    python samples/clients/python_client.py                          # the turbine spline sample
+    python samples/clients/python_client.py samples/predict_warehouse.json
+    python samples/clients/python_client.py samples/compare_warehouse.json compare
+    NEARWISE_URL=http://host:9000 python samples/clients/python_client.py
+    NEARWISE_API_KEY=your-key python samples/clients/python_client.py  # sent as a bearer token
 
 Needs `requests`. Exits with 1 when the service answers with an error.
 """
@@ -20,7 +20,7 @@ import requests
 
 BASE = os.environ.get("NEARWISE_URL", "http://127.0.0.1:8080").rstrip("/")
 KEY = os.environ.get("NEARWISE_API_KEY", "")
-DEFAULT_BODY = Path(__file__).resolve().parents[1] / "samples" / "predict_spline.json"
+DEFAULT_BODY = Path(__file__).resolve().parents[1] / "predict_spline.json"
 
 
 def show_problem(problem: dict) -> None:
