@@ -389,3 +389,19 @@ def test_a_window_that_leaves_the_fit_undetermined_is_not_scored() -> None:
     path = METHODS["linear"].path(x[:, None], y, folds, {"penalty": "none"}, [1, 3])
     assert np.isnan(path.oof[1, 0, 11])  # degree 3 at step 11
     assert np.isfinite(path.oof[0, 0, :10]).all()
+
+
+def test_knn_window_when_the_window_holds_the_nearest_rows() -> None:
+    """x follows time, so each row's window holds its nearest rows: every one of them must be
+    fetched and skipped (scikit-learn refits on the rows outside the window as reference)."""
+    rng = np.random.default_rng(9)
+    step = np.repeat(np.arange(60), 2)
+    x = (step + rng.uniform(0, 0.5, 120))[:, None]
+    y = np.sin(x[:, 0] / 5) + rng.normal(0, 0.1, 120)
+    folds = tuning.ordered_folds(TuningSpec(scheme="window", order_by="t"), step, 60, 3)
+    path = METHODS["knn"].path(x, y, folds, {"weights": "uniform", "scale": "none"}, [1, 6])
+    for f in range(60):
+        train, test = np.abs(step - f) > 3, step == f
+        for c, k in enumerate([1, 6]):
+            ref = KNeighborsRegressor(n_neighbors=k).fit(x[train], y[train]).predict(x[test])
+            assert_allclose(path.oof[c, 0, test], ref, atol=1e-12)

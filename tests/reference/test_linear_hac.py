@@ -88,16 +88,22 @@ def _predictions(doc, key: str) -> np.ndarray:
     return np.array([row[key] for row in doc["predictions"]], dtype=float)
 
 
+def _hac_case(client, case: str, seed: int):
+    """The service's answer with rows sent shuffled, and statsmodels' HAC fit on the rows in
+    time order (the order they were generated in): OLS(...).fit(cov_type="HAC",
+    cov_kwds={"maxlags": L}), L = floor(4 (n/100)^(2/9)) (Newey & West 1994)."""
+    t, X, y, degree, design, Xq, expand = CASES[case]()
+    n = y.size
+    lags = math.floor(4 * (n / 100) ** (2 / 9))
+    shuffled = np.random.default_rng(seed).permutation(n)
+    doc = _post(client, t, X, y, degree, Xq, shuffled)
+    ref = sm.OLS(y, design).fit(cov_type="HAC", cov_kwds={"maxlags": lags})
+    return doc, ref, lags, y, design, expand(Xq)
+
+
 @pytest.mark.parametrize("case", sorted(CASES))
 def test_term_table_matches_statsmodels_hac(client, case):
-    t, X, y, degree, design, Xq, _ = CASES[case]()
-    n = y.size
-    lags = math.floor(4 * (n / 100) ** (2 / 9))  # Newey & West (1994)
-    shuffled = np.random.default_rng(99).permutation(n)
-    doc = _post(client, t, X, y, degree, Xq, shuffled)
-    # Reference: statsmodels OLS(...).fit(cov_type="HAC", cov_kwds={"maxlags": L}) on the rows
-    # in time order (here the order they were generated in).
-    ref = sm.OLS(y, design).fit(cov_type="HAC", cov_kwds={"maxlags": lags})
+    doc, ref, lags, y, design, _ = _hac_case(client, case, 99)
     assert doc["model"]["covariance"] == "HAC"
     assert_allclose(_terms(doc, "estimate"), ref.params, rtol=1e-8)  # statsmodels params
     assert_allclose(_terms(doc, "std_error"), ref.bse, rtol=1e-8)  # statsmodels HAC bse
@@ -112,16 +118,11 @@ def test_term_table_matches_statsmodels_hac(client, case):
 
 @pytest.mark.parametrize("case", sorted(CASES))
 def test_model_interval_and_std_error_match_statsmodels_hac(client, case):
-    t, X, y, degree, design, Xq, expand = CASES[case]()
-    n = y.size
-    lags = math.floor(4 * (n / 100) ** (2 / 9))  # Newey & West (1994)
-    shuffled = np.random.default_rng(5).permutation(n)
-    doc = _post(client, t, X, y, degree, Xq, shuffled)
+    doc, ref, _, _, _, query = _hac_case(client, case, 5)
     # Reference: statsmodels get_prediction under the HAC covariance gives se(mean); the
     # new-observation interval is mean +/- t(n - p) sqrt(se(mean)^2 + scale), scale = RSS / (n - p)
     # of the same statsmodels fit.
-    ref = sm.OLS(y, design).fit(cov_type="HAC", cov_kwds={"maxlags": lags})
-    pred = ref.get_prediction(expand(Xq))
+    pred = ref.get_prediction(query)
     half = stats.t.ppf(0.5 + LEVEL / 2, ref.df_resid) * np.sqrt(pred.se_mean**2 + ref.scale)
     assert_allclose(_predictions(doc, "value"), pred.predicted_mean, rtol=1e-8)  # statsmodels
     assert_allclose(_predictions(doc, "std_error"), pred.se_mean, rtol=1e-8)  # statsmodels HAC

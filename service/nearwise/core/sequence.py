@@ -82,15 +82,22 @@ class Timeline:
         return Timeline(self.column, key, step.reshape(-1), int(step.max()) + 1, self.kind)
 
 
-def _iso_kind(text: str) -> str | None:
-    """The form of an ISO 8601 cell: date, naive date-time or zoned date-time; None if not."""
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+
+
+def _iso(text: str) -> tuple[str, float] | None:
+    """The form of an ISO 8601 cell (date, naive date-time or zoned date-time) and its seconds
+    since 1970-01-01 (UTC for zoned values, the naive clock otherwise); None if not ISO."""
     try:
         value = datetime.fromisoformat(text)
     except ValueError:
         return None
+    if value.tzinfo is not None:
+        return "zoned", (value - _EPOCH).total_seconds()
+    seconds = (value - _EPOCH.replace(tzinfo=None)).total_seconds()
     if "T" not in text.upper() and " " not in text and len(text) <= 10:
-        return "date"
-    return "zoned" if value.tzinfo is not None else "naive"
+        return "date", seconds
+    return "naive", seconds
 
 
 def timeline(train: Table, column: str) -> Timeline:
@@ -141,17 +148,17 @@ def timeline(train: Table, column: str) -> Timeline:
             [Where(("train", "rows", i, j), "a number among dates")],
         )
     assert labels is not None
-    kinds = [_iso_kind(c) for c in labels]
-    for i, kind in enumerate(kinds):
-        if kind is None:
+    parsed = [_iso(c) for c in labels]
+    for i, cell in enumerate(parsed):
+        if cell is None:
             raise BadCell(
                 f"`tuning.order_by` column `{column}` in train row {i} holds {labels[i]!r}, "
                 "which is not an ISO 8601 date or date-time (such as 2026-03-01 or "
                 "2026-03-01T12:30:00Z).",
                 [Where(("train", "rows", i, j), "not an ISO 8601 date")],
             )
-    first = kinds[0]
-    for i, kind in enumerate(kinds):
+    first = parsed[0][0]
+    for i, (kind, _) in enumerate(parsed):
         if kind != first:
             names = {
                 "date": "a date",
@@ -164,13 +171,8 @@ def timeline(train: Table, column: str) -> Timeline:
                 "value in one form; nothing is guessed.",
                 [Where(("train", "rows", i, j), "a different date form")],
             )
-    epoch = datetime(1970, 1, 1, tzinfo=UTC)
-    if first == "zoned":
-        keys = [(datetime.fromisoformat(c) - epoch).total_seconds() for c in labels]
-    else:
-        naive = epoch.replace(tzinfo=None)
-        keys = [(datetime.fromisoformat(c) - naive).total_seconds() for c in labels]
-    return _ranked(column, np.asarray(keys, dtype=float), "date" if first == "date" else "datetime")
+    keys = np.array([seconds for _, seconds in parsed], dtype=float)
+    return _ranked(column, keys, "date" if first == "date" else "datetime")
 
 
 def _ranked(column: str, key: np.ndarray, kind: str) -> Timeline:

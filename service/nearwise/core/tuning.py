@@ -16,7 +16,7 @@ Mathematik* 31, 377-403 (generalised cross-validation).
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -67,6 +67,20 @@ class Folds:
             return ids != f
         lo, hi = self.span[f]
         return (self.step < lo - self.gap) | (self.step > hi + self.gap)
+
+    def train_sizes(self) -> np.ndarray:
+        """Training rows of every fold of ``window`` or ``blocks``, counted from the rows per
+        step (no pass per fold)."""
+        assert self.step is not None and self.span is not None
+        steps = int(self.span[-1, 1]) + 1
+        upto = np.concatenate([[0], np.cumsum(np.bincount(self.step, minlength=steps))])
+        lo = np.clip(self.span[:, 0] - self.gap, 0, steps)
+        hi = np.clip(self.span[:, 1] + self.gap + 1, 0, steps)
+        return self.n - (upto[hi] - upto[lo])
+
+    def smallest(self) -> int:
+        """The ``window`` or ``blocks`` fold with the fewest training rows."""
+        return int(np.argmin(self.train_sizes()))
 
     def splits(self):
         """Yield ``(repeat, fold, train_index, test_index)`` for the folded schemes; the time
@@ -238,12 +252,20 @@ def ordered_folds(
         of_step = np.arange(steps)
     first = np.searchsorted(of_step, np.arange(k), side="left")
     last = np.searchsorted(of_step, np.arange(k), side="right") - 1
-    span = np.stack([first, last], axis=1)
-    # Rows at or before each step, to count each fold's training rows without a pass per fold.
-    upto = np.concatenate([[0], np.cumsum(np.bincount(step, minlength=steps))])
-    lo = np.clip(first - gap, 0, steps)
-    hi = np.clip(last + gap + 1, 0, steps)
-    train = n - (upto[hi] - upto[lo])
+    fold_id = of_step[step][None, :].astype(np.intp)
+    folds = Folds(
+        spec.scheme,
+        n,
+        k,
+        1,
+        fold_id,
+        0,
+        *extra,
+        step=step,
+        span=np.stack([first, last], 1),
+        gap=gap,
+    )
+    train = folds.train_sizes()
     min_train = int(train.min())
     if min_train < 2:
         f = int(np.argmin(train))
@@ -253,8 +275,7 @@ def ordered_folds(
             + (" or more folds." if spec.scheme == "blocks" else "."),
             [Where(("tuning", "gap"), "gap too large to leave training rows")],
         )
-    fold_id = of_step[step][None, :].astype(np.intp)
-    return Folds(spec.scheme, n, k, 1, fold_id, min_train, *extra, step=step, span=span, gap=gap)
+    return replace(folds, min_train=min_train)
 
 
 @dataclass(frozen=True)

@@ -12,7 +12,7 @@ Hastie, Tibshirani & Friedman (2009), *The Elements of Statistical Learning*, se
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -36,30 +36,31 @@ class Drop:
     """Index rows each query row must not use: its own row (leave-one-out), or every row
     within ``gap`` steps of its own step along ``order_by`` (leave-a-window-out).
 
-    ``own`` holds each query row's index row, ``step`` the index rows' steps; ``most`` bounds
-    how many rows any query row drops, and ``counts`` says how many each one drops.
+    ``own`` holds each query row's index row, ``step`` the index rows' steps and ``upto`` the
+    index rows at steps below each step (from :meth:`window`); :meth:`counts` says how many
+    rows each query row drops.
     """
 
     own: np.ndarray
     step: np.ndarray | None = None
     gap: int = 0
+    upto: np.ndarray | None = None
 
     @classmethod
     def window(cls, step: np.ndarray, gap: int) -> Drop:
-        return cls(np.arange(step.size), step, gap)
+        upto = np.concatenate([[0], np.cumsum(np.bincount(step))])
+        return cls(np.arange(step.size), step, gap, upto)
 
     def take(self, rows: np.ndarray) -> Drop:
-        return Drop(self.own[rows], self.step, self.gap)
+        return replace(self, own=self.own[rows])
 
     def counts(self) -> np.ndarray:
-        if self.step is None:
+        if self.step is None or self.upto is None:
             return np.ones(self.own.size, dtype=np.intp)
-        steps = int(self.step.max()) + 1
-        upto = np.concatenate([[0], np.cumsum(np.bincount(self.step, minlength=steps))])
+        steps = self.upto.size - 1
         mine = self.step[self.own]
-        return (
-            upto[np.clip(mine + self.gap + 1, 0, steps)] - upto[np.clip(mine - self.gap, 0, steps)]
-        )
+        hi = np.clip(mine + self.gap + 1, 0, steps)
+        return self.upto[hi] - self.upto[np.clip(mine - self.gap, 0, steps)]
 
     def hits(self, ind: np.ndarray) -> np.ndarray:
         if self.step is None:

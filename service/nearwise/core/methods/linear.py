@@ -243,7 +243,7 @@ class Linear(Method):
                     beta = linalg.solve_triangular(R[:q, :q], qty[:q])
                     oof[c, r, test] = D[np.ix_(test, kept[:q])] @ beta
                     betas.append((kept[:q], beta))
-                if r == 0 and folds.keep_models:
+                if r == 0:
                     models.append(FoldLinear(sc, top, tuple(betas)))
             _, _, kept = qr_kept(D)
             df = np.array([np.count_nonzero(kept < size) for size in sizes], dtype=float)

@@ -140,8 +140,7 @@ class Spline(Method):
             yield from folds.splits()
             return
         ids = folds.fold_id[0]
-        sizes = [np.count_nonzero(folds.train_mask(f, ids)) for f in range(folds.n_folds)]
-        f = int(np.argmin(sizes))
+        f = folds.smallest()
         yield 0, f, np.flatnonzero(folds.train_mask(f, ids)), np.flatnonzero(ids == f)
 
     def _distinct(self, X, settings) -> int:
@@ -230,7 +229,7 @@ class Spline(Method):
                 fits = [kn.solve(yy, lam) for lam in lams]
                 for c, (g, gam) in enumerate(fits):
                     oof[c, r, test] = kn.evaluate(g, gam, x[test])
-                if r == 0 and folds.keep_models:
+                if r == 0:
                     models.append(FoldSpline1D(kn, tuple(fits)))
             return PathResult(oof, df, fold_models=tuple(models))
         inv = np.searchsorted(t, xs)
