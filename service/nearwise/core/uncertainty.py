@@ -93,10 +93,10 @@ def compute(
     Every figure depends on a row's features alone, so rows that repeat one another (training
     rows at repeated settings, most often) are computed once.
     """
-    distinct, inverse = np.unique(Xq, axis=0, return_inverse=True)
+    distinct, first, inverse = np.unique(Xq, axis=0, return_index=True, return_inverse=True)
     inverse = inverse.reshape(-1)
     std_error, lower, upper, report = _bars(
-        spec, model, path, folds, chosen, X, y, distinct, sigma_cv
+        spec, model, path, folds, chosen, X, y, distinct, value[first], sigma_cv
     )
     std_error, lower, upper = std_error[inverse], lower[inverse], upper[inverse]
     # An undefined bound (NaN: no noise estimate) is unbounded, never a zero-width interval.
@@ -131,9 +131,11 @@ def _bars(
     X: np.ndarray,
     y: np.ndarray,
     Xq: np.ndarray,
+    value: np.ndarray,
     sigma_cv: float,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
-    """std_error, lower and upper at the rows ``Xq`` (before clamping around the values)."""
+    """std_error, lower and upper at the rows ``Xq`` whose predictions are ``value`` (before
+    clamping around the values)."""
     std_error = model.std_error(Xq, sigma_cv)
     report = {"level": spec.level, "kind": spec.kind, "adaptive": spec.adaptive}
     if spec.kind == "model":
@@ -158,9 +160,7 @@ def _bars(
             report["construction"] = "cv_plus"
             report["guarantee"] = GUARANTEE[folds.scheme]
         elif folds.scheme == "window":
-            with np.errstate(over="ignore", invalid="ignore"):
-                mu = model.predict(Xq)
-            lower, upper = intervals.jackknife(mu, resid, spec.level, spread_q, spread_train)
+            lower, upper = intervals.jackknife(value, resid, spec.level, spread_q, spread_train)
             report["construction"] = "jackknife"
             report["guarantee"] = GUARANTEE["window"]
         else:
