@@ -74,8 +74,17 @@ def test_a_request_beyond_the_slots_gets_a_fast_503(blocked) -> None:
     # Health and the catalogue need no slot.
     assert client.get("/healthz").status_code == 200
     assert client.get("/v1/methods").status_code == 200
-    for path in ("/v1/compare", "/v1/locality"):
-        assert problem(client.post(path, json=body()), 503)["code"] == "busy"
+    compare = {k: v for k, v in body().items() if k != "method"}
+    locality = {"train": body()["train"], "features": ["x"]}
+    for path, sent in (("/v1/compare", compare), ("/v1/locality", locality)):
+        assert problem(client.post(path, json=sent), 503)["code"] == "busy"
+    # The body is read, parsed and checked before a slot is sought: a bad request is told
+    # what is wrong with it even while every slot is busy.
+    bad_json = client.post("/v1/predict", data=b'{"target": ', content_type="application/json")
+    assert problem(bad_json, 400)
+    assert problem(client.post("/v1/predict", json=body(train={"columns": ["x"]})), 422)
+    assert problem(client.post("/v1/compare", json=body()), 422)
+    assert problem(client.get("/v1/cell?x=1,2,3&y=1,2&at=2"), 422)
     assert problem(client.get("/v1/cell?x=1,2,3&y=1,2,3&at=2"), 503)["code"] == "busy"
 
     _finish(threads, results, release)
@@ -87,7 +96,9 @@ def test_a_failed_fit_gives_its_slot_back() -> None:
     app = create_app(Settings(workers=1, threads=2, fits_per_worker=1))
     client = app.test_client()
     for _ in range(3):
-        assert problem(client.post("/v1/predict", json=body(method="nope")), 422)
+        bad_json = client.post("/v1/predict", data=b'{"target": ', content_type="application/json")
+    assert problem(bad_json, 400)
+    assert problem(client.post("/v1/predict", json=body(train={"columns": ["x"]})), 422)
     assert app.extensions["nearwise_slots"].in_use == 0
     assert client.post("/v1/predict", json=body()).status_code == 200
 

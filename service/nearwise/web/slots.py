@@ -14,21 +14,19 @@ A request that needs a fit while no slot is free is refused at once with 503 ``b
 
 from __future__ import annotations
 
+import contextlib
 import fcntl
-import functools
 import os
 import random
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Iterator
 from pathlib import Path
-from typing import Any, TypeVar
 
 from flask import Flask, current_app
 
 from nearwise.web.problems import Problem
 
-View = TypeVar("View", bound=Callable[..., Any])
 #: Seconds a refused client is asked to wait: short, since slots free up as fits finish.
 BUSY_RETRY_AFTER_S = 2
 #: Passes over the pool's files before refusing, a short pause apart: under load, a slot is
@@ -110,26 +108,26 @@ def install(app: Flask, worker_cap: int, total: int, pool: Path | None = None) -
     app.extensions["nearwise_slots"] = FitSlots(worker_cap, total, pool)
 
 
-def fitting(view: View) -> View:
-    """Run ``view`` in a fit slot, or answer 503 ``busy`` at once when none is free."""
+@contextlib.contextmanager
+def fit_slot() -> Iterator[None]:
+    """Hold a fit slot for the numerical work of a request, or answer 503 ``busy`` at once.
 
-    @functools.wraps(view)
-    def held(*args: Any, **kwargs: Any) -> Any:
-        slots: FitSlots = current_app.extensions["nearwise_slots"]
-        token = slots.try_acquire()
-        if token is None:
-            raise Problem(
-                503,
-                f"Every fit slot is busy ({slots.total} fits at once in the service, "
-                f"NEARWISE_WORKERS x NEARWISE_FITS_PER_WORKER, at most {slots.worker_cap} per "
-                "worker); nothing was computed. Try again shortly.",
-                code="busy",
-                title="Busy",
-                headers={"Retry-After": str(BUSY_RETRY_AFTER_S)},
-            )
-        try:
-            return view(*args, **kwargs)
-        finally:
-            slots.release(token)
-
-    return held  # type: ignore[return-value]
+    Routes take it only after the body has been read and parsed and the job built, so a client
+    that is slow to send (or sends a malformed body) never holds a slot: slots are for numbers.
+    """
+    slots: FitSlots = current_app.extensions["nearwise_slots"]
+    token = slots.try_acquire()
+    if token is None:
+        raise Problem(
+            503,
+            f"Every fit slot is busy ({slots.total} fits at once in the service, "
+            f"NEARWISE_WORKERS x NEARWISE_FITS_PER_WORKER, at most {slots.worker_cap} per "
+            "worker); nothing was computed. Try again shortly.",
+            code="busy",
+            title="Busy",
+            headers={"Retry-After": str(BUSY_RETRY_AFTER_S)},
+        )
+    try:
+        yield
+    finally:
+        slots.release(token)

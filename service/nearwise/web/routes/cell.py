@@ -28,7 +28,7 @@ from nearwise.web.problems import RETRY_AFTER_S, Problem
 from nearwise.web.routes import operation
 from nearwise.web.routes.predict import caps
 from nearwise.web.serialize import prediction_rows
-from nearwise.web.slots import fitting
+from nearwise.web.slots import fit_slot
 
 bp = Blueprint("cell", __name__, url_prefix="/v1")
 
@@ -166,7 +166,6 @@ _PARAMETERS = [
         **problems(400, 401, 406, 413, 414, 422, 503),
     },
 )
-@fitting
 def cell() -> Response:
     """Predict from lists in the query string; answer plain text (for spreadsheet formulas).
 
@@ -229,8 +228,8 @@ def cell() -> Response:
         time_budget_s=settings.time_budget_s,
         caps=caps(settings),
     )
-    try:
-        with metrics.fitting(method, len(x)):
+    try:  # the slot is taken only now: the arguments are read and checked
+        with fit_slot(), metrics.fitting(method, len(x)):
             result = pipeline.run(job)
     except NearwiseError as exc:
         raise _cell_problem(exc) from None

@@ -7,16 +7,17 @@ from dataclasses import asdict
 from flask import Blueprint, Response, current_app
 
 from nearwise.core import compare as core_compare
+from nearwise.core.spec import Job
 from nearwise.web import figures, metrics, serialize
 from nearwise.web.body import negotiate
-from nearwise.web.intake import read_request
+from nearwise.web.intake import Intake, read_request
 from nearwise.web.openapi_parts import problems
 from nearwise.web.predict_doc import query_parameters, request_body
 from nearwise.web.responses import CompareResponse
 from nearwise.web.routes import json_response, operation
 from nearwise.web.routes.predict import CSV_ANSWER, PICTURE_ANSWERS, build_job
 from nearwise.web.schemas import CompareFields, CompareRequest
-from nearwise.web.slots import fitting
+from nearwise.web.slots import fit_slot
 
 bp = Blueprint("compare", __name__, url_prefix="/v1")
 
@@ -67,19 +68,23 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
         **problems(400, 401, 406, 413, 414, 415, 422, 503),
     },
 )
-@fitting
 def compare() -> Response:
     """Tune every method on the same folds, rank them and recommend the simplest adequate one."""
     answer = negotiate(PICTURE_ANSWERS)
     settings = current_app.extensions["nearwise"]
     intake = read_request(settings, CompareRequest(), CompareFields())
     job = build_job(intake, settings, method="compare")
+    with fit_slot():  # taken only now: the body is read, parsed and checked
+        resp = _answer(answer, job, intake)
+    resp.vary.add("Accept")
+    return resp
+
+
+def _answer(answer: str, job: Job, intake: Intake) -> Response:
     if answer == figures.SVG:
         with metrics.fitting("compare", job.train.n_rows):
             fitted = core_compare.compare(figures.with_curve(job))
-        resp = figures.compare_answer(fitted, intake)
-        resp.vary.add("Accept")
-        return resp
+        return figures.compare_answer(fitted, intake)
     with metrics.fitting("compare", job.train.n_rows):
         result = core_compare.compare(job)
     tuning = {k: v for k, v in asdict(job.tuning).items()}
@@ -87,13 +92,11 @@ def compare() -> Response:
         tuning["folds"] = None
     if result.paths:  # the gap in force, the same for every method (chosen from the data)
         tuning["gap"] = next(iter(result.paths.values())).gap
-    if answer == "text/csv":
-        resp = Response(serialize.compare_csv(result, intake.dialect), content_type=CSV_ANSWER)
-        resp.headers["Nearwise-Recommended"] = result.recommended
-        codes = serialize.compare_codes(result)
-        if codes:
-            resp.headers["Nearwise-Warnings"] = ", ".join(codes)
-    else:
-        resp = json_response(serialize.compare_document(result, tuning))
-    resp.vary.add("Accept")
+    if answer != "text/csv":
+        return json_response(serialize.compare_document(result, tuning))
+    resp = Response(serialize.compare_csv(result, intake.dialect), content_type=CSV_ANSWER)
+    resp.headers["Nearwise-Recommended"] = result.recommended
+    codes = serialize.compare_codes(result)
+    if codes:
+        resp.headers["Nearwise-Warnings"] = ", ".join(codes)
     return resp

@@ -21,7 +21,7 @@ from nearwise.web.locality_doc import (
 from nearwise.web.openapi_parts import problems
 from nearwise.web.routes import json_response, operation
 from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER
-from nearwise.web.slots import fitting
+from nearwise.web.slots import fit_slot
 
 bp = Blueprint("locality", __name__, url_prefix="/v1")
 
@@ -33,7 +33,6 @@ bp = Blueprint("locality", __name__, url_prefix="/v1")
     requestBody=REQUEST_BODY,
     responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
 )
-@fitting
 def locality() -> Response:
     """Measure how well the training rows cover their space and where query rows fall."""
     answer = negotiate(ANSWERS)
@@ -50,14 +49,15 @@ def locality() -> Response:
     names, X, Xq = columns.feature_arrays(
         intake.tables["train"].table, f.get("features"), query.table if query else None
     )
-    doc = summary(
-        X,
-        names,
-        k=f.get("k"),
-        fraction=f.get("fraction"),
-        Xq=Xq,
-        scale=f.get("scale", "standard"),
-    )
+    with fit_slot():  # taken only now: the body is read, parsed and checked
+        doc = summary(
+            X,
+            names,
+            k=f.get("k"),
+            fraction=f.get("fraction"),
+            Xq=Xq,
+            scale=f.get("scale", "standard"),
+        )
     doc = jsonable(doc)
     if answer == "text/csv" and query is not None:
         text = serialize.locality_csv(doc, query, intake.dialect)

@@ -14,7 +14,7 @@ from nearwise.web.predict_doc import REQUEST_BODY, RESPONSE_200, query_parameter
 from nearwise.web.routes import json_response, operation
 from nearwise.web.schemas import PredictFields, PredictRequest
 from nearwise.web.settings import Settings
-from nearwise.web.slots import fitting
+from nearwise.web.slots import fit_slot
 
 bp = Blueprint("predict", __name__, url_prefix="/v1")
 ANSWERS = ("application/json", "text/csv")
@@ -29,30 +29,31 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
     requestBody=REQUEST_BODY,
     responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
 )
-@fitting
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
     answer = negotiate(PICTURE_ANSWERS)
     intake = read_request(current_app.extensions["nearwise"], PredictRequest(), PredictFields())
     job = build_job(intake, current_app.extensions["nearwise"])
+    with fit_slot():  # taken only now: the body is read, parsed and checked
+        resp = _answer(answer, job, intake)
+    resp.vary.add("Accept")
+    return resp
+
+
+def _answer(answer: str, job: Job, intake: Intake) -> Response:
     if answer == figures.SVG:
         with metrics.fitting(job.method, job.train.n_rows):
             fitted = pipeline.run(figures.with_curve(job))
-        resp = figures.predict_answer(fitted, intake)
-        resp.vary.add("Accept")
-        return resp
+        return figures.predict_answer(fitted, intake)
     with metrics.fitting(job.method, job.train.n_rows):
         result = pipeline.run(job)
-    if answer == "text/csv":
-        rows = intake.tables.get("query") or intake.tables["train"]
-        text = serialize.predict_csv(result, rows, intake.dialect)
-        resp = Response(text, content_type=CSV_ANSWER)
-        codes = serialize.dataset_codes(result)
-        if codes:
-            resp.headers["Nearwise-Warnings"] = ", ".join(codes)
-    else:
-        resp = json_response(serialize.predict_document(result))
-    resp.vary.add("Accept")
+    if answer != "text/csv":
+        return json_response(serialize.predict_document(result))
+    rows = intake.tables.get("query") or intake.tables["train"]
+    resp = Response(serialize.predict_csv(result, rows, intake.dialect), content_type=CSV_ANSWER)
+    codes = serialize.dataset_codes(result)
+    if codes:
+        resp.headers["Nearwise-Warnings"] = ", ".join(codes)
     return resp
 
 
