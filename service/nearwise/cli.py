@@ -24,6 +24,10 @@ BLAS_THREADS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 METRICS_VARIABLE = "PROMETHEUS_MULTIPROC_DIR"
 SERVE_FLAGS = ("bind", "workers", "threads")
 GIL_SWITCH_S = 0.001
+#: The worker: gunicorn's gthread, reading each request whole before a thread takes it.
+WORKER_CLASS = "nearwise.web.worker.NearwiseWorker"
+#: Connections one worker holds at once (reading, answering or kept alive); gunicorn's default.
+WORKER_CONNECTIONS = 1000
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -40,9 +44,14 @@ def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="nearwise", description="The nearwise service.")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     serve = sub.add_parser("serve", help="serve the API with gunicorn (gthread workers)")
-    serve.add_argument("--bind", help="HOST:PORT (default: NEARWISE_BIND or 127.0.0.1:8080)")
-    serve.add_argument("--workers", help="worker processes (default: NEARWISE_WORKERS or 2)")
-    serve.add_argument("--threads", help="threads per worker (default: NEARWISE_THREADS or 6)")
+    defaults = Settings()
+    serve.add_argument("--bind", help=f"HOST:PORT (default: NEARWISE_BIND or {defaults.bind})")
+    serve.add_argument(
+        "--workers", help=f"worker processes (default: NEARWISE_WORKERS or {defaults.workers})"
+    )
+    serve.add_argument(
+        "--threads", help=f"threads per worker (default: NEARWISE_THREADS or {defaults.threads})"
+    )
     serve.add_argument(
         "--print-config",
         action="store_true",
@@ -145,7 +154,8 @@ class Server(BaseApplication):
             "bind": [s.bind],
             "workers": s.workers,
             "threads": s.threads,
-            "worker_class": "gthread",
+            "worker_class": WORKER_CLASS,
+            "worker_connections": WORKER_CONNECTIONS,
             "loglevel": s.log_level.lower(),
             "accesslog": "-",
             "errorlog": "-",

@@ -4,7 +4,9 @@ Every line is one JSON object with ``time``, ``level``, ``logger``, ``message`` 
 ``request_id`` (null outside a request). Access lines, written by gunicorn once the answer has
 been sent, add ``method``, ``route`` (the URL rule matched, or null), ``path``, ``status``,
 ``duration_ms`` and ``bytes``. Request bodies, query strings and headers are never logged, so
-neither data nor API keys reach the log.
+neither data nor API keys reach the log: the service never writes them, and :func:`scrub`
+removes them from any message (and exception message) another library writes, gunicorn's
+"Invalid request" lines among them.
 
 This module imports neither Flask nor ``prometheus_client``: gunicorn's master process loads it
 before any worker exists, and ``PROMETHEUS_MULTIPROC_DIR`` must be set before the first import
@@ -15,6 +17,7 @@ from __future__ import annotations
 
 import json
 import logging
+import re
 import sys
 from contextvars import ContextVar
 from datetime import UTC, datetime
@@ -31,6 +34,25 @@ ACCESS_FIELDS = ("method", "route", "path", "status", "duration_ms", "bytes")
 #: The id of the request this thread is answering (set by the web layer).
 request_id: ContextVar[str | None] = ContextVar("nearwise_request_id", default=None)
 _HANDLER_MARK = "_nearwise_json"
+#: A query string: "?" and what follows up to a space, a quote or the end.
+_QUERY = re.compile(r"\?[^\s'\"]+")
+#: The Python repr of bytes, as in gunicorn's "No more data after: b'GET /...'": request bytes.
+_BYTES_REPR = re.compile(r"""\bb(?:'(?:[^'\\]|\\.)*'?|"(?:[^"\\]|\\.)*"?)""")
+QUERY_MARK = "?[query removed]"
+BYTES_MARK = "b'[bytes removed]'"
+
+
+def scrub(text: str) -> str:
+    """``text`` without query strings or raw request bytes."""
+    return _QUERY.sub(QUERY_MARK, _BYTES_REPR.sub(BYTES_MARK, text))
+
+
+def _scrub_exception(text: str) -> str:
+    """A formatted traceback with its exception lines (the unindented ones) scrubbed; the
+    indented source lines are left as they are."""
+    return "\n".join(
+        line if line.startswith((" ", "Traceback")) else scrub(line) for line in text.split("\n")
+    )
 
 
 class JsonFormatter(logging.Formatter):
@@ -41,14 +63,14 @@ class JsonFormatter(logging.Formatter):
             "time": datetime.fromtimestamp(record.created, UTC).isoformat(timespec="milliseconds"),
             "level": record.levelname,
             "logger": record.name,
-            "message": record.getMessage(),
+            "message": scrub(record.getMessage()),
             "request_id": getattr(record, "request_id", None) or request_id.get(),
         }
         for name in ACCESS_FIELDS:
             if hasattr(record, name):
                 doc[name] = getattr(record, name)
         if record.exc_info:
-            doc["exception"] = self.formatException(record.exc_info)
+            doc["exception"] = _scrub_exception(self.formatException(record.exc_info))
         return json.dumps(doc, ensure_ascii=False, default=str)
 
 

@@ -18,6 +18,9 @@ measured in the same run, their ratio and the goal:
   answers one small request (the baseline) and then the large one; the figure is the worker's
   resident-set high-water mark (/proc/<pid>/status VmHWM). Goal: at most ``--memory-bound-gib``
   (2 GiB) per worker.
+- attack: the quick groups of ``tests/load/attack.py`` (issue 12) on a fresh server: slow
+  connections held with /healthz under them, the worst wall time against the time budget, the
+  worst worker peak memory, and how many of its checks passed.
 
 Not a test: pytest does not collect it, and no timing belongs in the test suite.
 """
@@ -40,6 +43,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path[:0] = [str(HERE), str(HERE.parent / "load")]
 
+import attack  # noqa: E402
 import bench_tuning  # noqa: E402
 import calibrate_cost  # noqa: E402
 import run_load  # noqa: E402
@@ -137,6 +141,14 @@ def load_figures(seconds: float, log_dir: Path) -> tuple[list[Figure], list[str]
     if errs:
         notes.append(f"Errors under the mixed load: {dict(errs)}.")
     return out, notes
+
+
+# -- attack -------------------------------------------------------------------------------
+def attack_figures(log_dir: Path) -> tuple[list[Figure], list[str]]:
+    """The quick groups of tests/load/attack.py (issue 12) on a fresh server."""
+    run = attack.run_own(log_dir, quick=True)
+    rows = [Figure("attack", n, v, b, "-", g, m) for n, v, b, g, m in run.report_rows()]
+    return rows, ["Attack run (tests/load/attack.py --quick):\n\n" + run.markdown()]
 
 
 # -- the cost estimate ----------------------------------------------------------------------
@@ -283,7 +295,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--quick", action="store_true", help="one timing per benchmark, 5 s loads")
     ap.add_argument("--out", type=Path, default=HERE / "REPORT.md")
     ap.add_argument("--memory-bound-gib", type=float, default=2.0)
-    ap.add_argument("--skip", nargs="*", default=[], choices=["tuning", "cost", "load", "memory"])
+    ap.add_argument(
+        "--skip", nargs="*", default=[], choices=["tuning", "cost", "load", "memory", "attack"]
+    )
     args = ap.parse_args(argv)
     repeats, seconds = (1, 5.0) if args.quick else (3, 20.0)
     rows_cap = Settings().max_rows
@@ -314,6 +328,11 @@ def main(argv: list[str] | None = None) -> int:
                 ("spline predict (one feature) at the row limit", "spline", rows_cap, 1),
             ]
             found, said = memory_figures(cases, args.memory_bound_gib, log_dir)
+            figures += found
+            notes += said
+        if "attack" not in args.skip:
+            print("[attack]", flush=True)
+            found, said = attack_figures(log_dir)
             figures += found
             notes += said
     text = markdown(figures, notes, machine(), args.quick, seconds)

@@ -8,13 +8,17 @@ every dimension of the work.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
+from scipy.spatial import ConvexHull
 
-from nearwise.core import cost, pipeline
+from nearwise.core import cost, locality, locality_cost, pipeline
 from nearwise.core.compare import compare
-from nearwise.core.data import Table
+from nearwise.core.data import Scaler, Table
 from nearwise.core.errors import OverLimit
+from nearwise.core.neighbors import Nearest
 from nearwise.core.spec import Caps, Job, TuningSpec
 
 NAMES = {"grid": "MAX_GRID", "fold_fits": "MAX_FOLD_FITS", "methods": "MAX_METHODS"}
@@ -161,3 +165,97 @@ def test_the_default_compare_leaves_out_the_costliest_method_to_fit_the_limit() 
     # Named methods are never dropped: the request is refused instead.
     with pytest.raises(OverLimit):
         compare(_job(n=600, p=12, methods=list(names), caps=Caps(cost_s=cap)))
+
+
+# --------------------------------------------------------------------------- locality, hull
+
+
+def _sphere(rng, n: int, p: int = 3) -> np.ndarray:
+    Z = rng.standard_normal((n, p))
+    return Z / np.linalg.norm(Z, axis=1)[:, None]
+
+
+def _probe(X: np.ndarray, Xq: np.ndarray) -> locality_cost.Probe:
+    sc = Scaler.fit(X, "standard")
+    Z = sc.transform(X)
+    return locality_cost.probe(X, Z, Nearest(Z), Xq, sc.transform(Xq))
+
+
+def test_the_probe_measures_a_degenerate_search_and_the_hulls_facets() -> None:
+    rng = np.random.default_rng(1)
+    X = _sphere(rng, 20_000)
+    inside = _sphere(rng, 500) * 0.3  # near the centre: the search visits many rows
+    deep, near = _probe(X, inside), _probe(X, _sphere(rng, 500))  # near: among the rows
+    assert deep.search > 20 * near.search, (deep.search, near.search)
+    assert deep.seconds() > near.seconds()
+    # On a sphere every row is a vertex: 2n - 4 triangles (Euler). The sample hulls'
+    # extrapolation must find that within 10 %.
+    assert deep.dim == 3 and abs(deep.facets / (2 * 20_000 - 4) - 1) < 0.1, deep.facets
+    C = rng.uniform(size=(20_000, 3))
+    cube = _probe(C, rng.uniform(size=(500, 3)))
+    true = ConvexHull(Scaler.fit(C, "standard").transform(C)).equations.shape[0]
+    assert cube.facets < 0.05 * deep.facets  # a cube's hull has few facets ...
+    assert cube.facets >= 0.8 * true  # ... and the estimate does not miss them
+
+
+def test_the_hull_estimate_grows_with_the_rows_the_facet_test_scans() -> None:
+    rng = np.random.default_rng(2)
+    X = _sphere(rng, 3000)
+    few, many = _probe(X, 0.5 * _sphere(rng, 100)), _probe(X, 0.5 * _sphere(rng, 1000))
+    outside = _probe(X, 3 + _sphere(rng, 1000))  # beyond every range: no facet test
+    # each row inside the ranges is tested against every facet (2n - 4 of them on a sphere)
+    per_row = locality_cost.FACET_ROW_S + (2 * 3000 - 4) * locality_cost.FACET_S
+    assert many.hull() - few.hull() == pytest.approx(900 * per_row)
+    assert outside.inside == 0 and outside.hull() < few.hull()
+
+
+def test_an_expensive_locality_is_refused_naming_the_query_rows_that_fit() -> None:
+    rng = np.random.default_rng(3)
+    X, Xq = _sphere(rng, 5000), 0.5 * _sphere(rng, 4000)
+    names = ("a", "b", "c")
+    caps = Caps(cost_s=0.2, names={"cost_s": "MAX_COST_S"})
+    probe = _probe(X, Xq)
+    assert probe.seconds(summary=True) > 0.2
+    with pytest.raises(OverLimit) as info:
+        locality.summary(X, names, Xq=Xq, caps=caps)
+    err = info.value
+    assert err.where[0].path == ("query", "rows")
+    assert f"estimated at {probe.seconds(summary=True):.3g} s" in err.detail
+    fit = int(err.detail.split("About ")[1].split(" query rows")[0].replace(",", ""))
+    # The advice is exact for the estimate: that many query rows fit, one more does not.
+    assert probe.queries(fit).seconds(True) <= 0.2 < probe.queries(fit + 1).seconds(True)
+    # (a new request is measured again, on its own sample of query rows)
+    assert locality.summary(X, names, Xq=Xq[: fit // 2], caps=caps)["n"] == 5000
+
+
+def test_a_predict_with_query_rows_counts_their_locality_as_measured() -> None:
+    rng = np.random.default_rng(4)
+    X = _sphere(rng, 4000)
+    y = X[:, 0] + rng.normal(0, 0.1, 4000)
+    train = Table("train", ("a", "b", "c", "y"), np.column_stack([X, y]))
+    cols = ("a", "b", "c")
+    deep = Job("knn", train, "y", query=Table("query", cols, 0.3 * _sphere(rng, 3000)))
+    beyond = 3 + rng.uniform(size=(3000, 3))  # outside every range: no hull test
+    plain = Job("knn", train, "y", query=Table("query", cols, beyond))
+    items, s_deep = _items(replace(deep, caps=Caps(cost_s=1e9)))
+    _, s_plain = _items(replace(plain, caps=Caps(cost_s=1e9)))
+    assert s_deep.locality > 1.5 * s_plain.locality > 0
+    assert cost.total(items, s_deep) == pytest.approx(items[0].seconds(s_deep) + s_deep.locality)
+    # no limit: nothing is measured
+    assert _items(deep)[1].locality == 0.0
+    cap = 0.5 * (cost.total(items, s_deep) + cost.total(items, s_plain))
+    with pytest.raises(OverLimit, match="fewer query rows"):
+        pipeline.run(replace(deep, caps=Caps(cost_s=cap)))
+    assert pipeline.run(replace(plain, caps=Caps(cost_s=cap))).method == "knn"
+
+
+def test_cv_plus_intervals_at_every_row_grow_faster_than_the_rows() -> None:
+    item = cost.Item("knn", {"k": 10}, None)
+    small = cost.Shape.of(20_000, 1, 0, TuningSpec())
+    large = cost.Shape.of(200_000, 1, 0, TuningSpec())
+    knn_only = cost.knn(item.settings, None, large) / cost.knn(item.settings, None, small)
+    share = (item.seconds(large) - cost.knn(item.settings, None, large) - 200_000 * cost.ROW_S) / (
+        item.seconds(small) - cost.knn(item.settings, None, small) - 20_000 * cost.ROW_S
+    )
+    assert share > 10 * 1.5  # ten times the rows, each searched in ten times larger folds
+    assert knn_only > 0

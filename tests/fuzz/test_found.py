@@ -161,11 +161,14 @@ def test_cell_folds_state_the_bounds_they_are_checked_against(doc, client) -> No
 
 def test_an_over_long_request_line_is_a_documented_414(doc, tmp_path) -> None:
     """Found by the long run: a query string of long `features` names passed gunicorn's
-    request-line limit, and its 414 (its own text/html page) was not in the document."""
+    request-line limit, and its 414 (then gunicorn's own text/html page) was not in the
+    document. The worker now answers it as problem+json, and the document says so."""
     for path, ops in doc["paths"].items():
         for op in ops.values():
             if any(p["in"] == "query" for p in op.get("parameters", ())):
-                assert "text/html" in op["responses"]["414"]["content"], path
+                content = op["responses"]["414"]["content"]
+                assert list(content) == ["application/problem+json"], path
     with serving(tmp_path / "server.log") as port:
         status, body = request(port, "POST", "/v1/predict?" + "&".join(["features=abcdefgh"] * 500))
     assert status == 414, body[:200]
+    assert json.loads(body)["code"] == "uri_too_long"

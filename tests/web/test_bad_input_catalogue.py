@@ -86,6 +86,15 @@ def capped(send_with: Callable[[FlaskClient, bytes], TestResponse], spare: int) 
     return send
 
 
+def on_small(send: Send, **limits: int) -> Send:
+    """Send to an app with small table limits, so that an over-limit body stays small."""
+    return lambda _: send(create_app(Settings(**limits)).test_client())
+
+
+SMALL = {"max_rows": 100, "max_query_rows": 100, "max_cells": 1000, "max_columns": 10}
+BIG_NAME = "a" * 2**20  # a 1 MiB field name: echoed cut to 80 characters and its length
+
+
 def with_length(c: FlaskClient, data: bytes) -> TestResponse:
     return c.post("/v1/predict", data=data, content_type="application/json")
 
@@ -103,6 +112,25 @@ def csv_at(line: object, column: str | None = None, part: str = "train") -> dict
     if column is not None:
         where["column"] = column
     return where
+
+
+XYW = '"columns":["x","y","w"]'
+W_ROWS = ",".join(f"[{x},{y},1]" for x, y in curve(12))
+
+
+def weighted_body(weights: list[Any]) -> dict[str, Any]:
+    """A predict body on :func:`curve` with the weight column ``w`` holding ``weights``."""
+    rows = [[x, y, w] for (x, y), w in zip(curve(12), weights, strict=True)]
+    return {
+        "method": "linear",
+        "target": "y",
+        "weight_by": "w",
+        "train": table(["x", "y", "w"], rows),
+    }
+
+
+def weighted(weights: list[Any]) -> Send:
+    return post_json(weighted_body(weights))
 
 
 CONSTANT_X = [[2.0, float(i % 3)] for i in range(12)]
@@ -306,6 +334,54 @@ CASES: dict[str, Case] = {
         capped(post_without_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)
     ),
     "over-cap-multipart": Case(capped(as_multipart, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
+    # a content coding: none is read (415 naming the header)
+    **{
+        f"content-encoding-{coding}": Case(
+            post_json(body(), **{"Content-Encoding": coding}), 415, detail=("Content-Encoding",)
+        )
+        for coding in ("gzip", "br", "deflate", "x-unheard-of")
+    },
+    # limits met while parsing, before the table is held
+    "json-values-over-any-table": Case(
+        on_small(post_raw("[" + ",".join(["[]"] * 3000) + "]"), **SMALL),
+        413,
+        detail=("NEARWISE_MAX_CELLS",),
+    ),
+    "csv-rows-over-the-limit": Case(
+        on_small(post_csv(b"x,y\n" + b"1,2\n" * 101), **SMALL),
+        413,
+        {"part": "train"},
+        ("NEARWISE_MAX_ROWS",),
+    ),
+    "csv-one-wide-row": Case(
+        on_small(post_csv(b"x,y\n" + b"1," * 2000 + b"1\n"), **SMALL),
+        413,
+        {"part": "train"},
+        ("NEARWISE_MAX_CELLS",),
+    ),
+    "csv-blank-line-inside": Case(post_csv(b"x,y\n1,2\n\n3,4\n"), 422, csv_at(3)),
+    "form-list-over-any-limit": Case(
+        lambda c: c.post(
+            CSV_HEAD,
+            data={
+                "train": (io.BytesIO(b"x,y\n1,2\n"), "t.csv"),
+                "grid.k": ",".join(map(str, range(1, 300))),
+            },
+        ),
+        422,
+        at("/grid/k"),
+    ),
+    # echoes are cut: the place is still named
+    "unknown-field-of-1-mib": Case(
+        post_json(body(**{BIG_NAME: 1})), 422, at(f"/{'a' * 80}… (1048576 characters)")
+    ),
+    "unknown-field-lone-surrogate": Case(
+        post_raw('{"\\ud800":1,"method":"knn","target":"y"}'), 422, at("/\\ud800")
+    ),
+    # numbers at the edges: range errors before the cost estimate; subnormal cells
+    "k-2-to-the-70": Case(post_json(body(params={"k": 2**70})), 422, at("/params/k")),
+    "grid-k-2-to-the-70": Case(post_json(body(grid={"k": [1, 2**70]})), 422, at("/grid/k/1")),
+    "subnormal-feature-cell": Case(raw_train(f"{ROWS},[1e-310,1]"), 422, at("/train/rows/12/0")),
     # CSV with a broken encoding or quoting
     "csv-latin1": Case(post_csv("x,y\n1,2\n2,3\ncaf\xe9,4\n".encode("latin-1")), 400, csv_at(4)),
     "csv-utf16": Case(post_csv("x,y\n1,2\n".encode("utf-16")), 400, detail=("UTF-8",)),
@@ -319,6 +395,45 @@ CASES: dict[str, Case] = {
         post_parts(b"x,y\n" + b"".join(b"%d,%d\n" % (i, i % 3) for i in range(12)), b"x\n1\nabc\n"),
         422,
         csv_at(3, "x", "query"),
+    ),
+    # row weights (weight_by): each bad weight is named at its cell
+    "weight-negative": Case(weighted([1.0] * 11 + [-1.0]), 422, at("/train/rows/11/2")),
+    "weight-nan-literal": Case(
+        raw_train(f"{W_ROWS},[5,1,NaN]", ',"weight_by":"w"', XYW), 422, at("/train/rows/12/2")
+    ),
+    "weight-missing": Case(weighted([1.0] * 5 + [None] + [1.0] * 6), 422, at("/train/rows/5/2")),
+    "weight-infinite": Case(
+        raw_train(f"{W_ROWS},[5,1,Infinity]", ',"weight_by":"w"', XYW), 422, at("/train/rows/12/2")
+    ),
+    "weight-text": Case(weighted([1.0] * 3 + ["heavy"] + [1.0] * 8), 422, at("/train/rows/3/2")),
+    "weight-all-zero": Case(weighted([0.0] * 12), 422, at("/weight_by")),
+    "weight-unknown-column": Case(post_json(body(weight_by="n_readings")), 422, at("/weight_by")),
+    "weight-is-the-target": Case(post_json(body(weight_by="y")), 422, at("/weight_by")),
+    "weight-listed-as-feature": Case(
+        post_json({**weighted_body([1.0] * 12), "features": ["x", "w"]}), 422, at("/features/1")
+    ),
+    "weight-zero-in-query": Case(
+        post_json(
+            {
+                **weighted_body([1.0] * 12),
+                "query": {"columns": ["x", "w"], "rows": [[1.0, 2.0], [2.0, 0.0]]},
+            }
+        ),
+        422,
+        at("/query/rows/1/1"),
+    ),
+    "weight-csv-negative": Case(
+        post_csv(
+            b"x,y,w\n" + b"".join(b"%d,%d,1\n" % (i, i % 3) for i in range(11)) + b"11,2,-3\n",
+            CSV_HEAD + "&weight_by=w",
+        ),
+        422,
+        csv_at(13, "w"),
+    ),
+    "weight-cell-text": Case(
+        lambda c: c.get("/v1/cell?x=1,2,3,4,5,6&y=1,2,3,4,5,7&w=1,1,a,1,1,1&at=2"),
+        422,
+        {"parameter": "w"},
     ),
 }
 

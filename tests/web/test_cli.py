@@ -68,8 +68,42 @@ def test_serve_sets_one_blas_thread_and_gunicorn_defaults(monkeypatch) -> None:
         "bind": ["127.0.0.1:8080"],
         "workers": 3,
         "threads": 10,
-        "worker_class": "gthread",
+        "worker_class": "nearwise.web.worker.NearwiseWorker",
     }
+
+
+def test_serve_help_gives_the_settings_defaults(capsys) -> None:
+    with pytest.raises(SystemExit):
+        cli.main(["serve", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    d = Settings()
+    assert f"NEARWISE_BIND or {d.bind})" in text
+    assert f"NEARWISE_WORKERS or {d.workers})" in text
+    assert f"NEARWISE_THREADS or {d.threads})" in text
+
+
+@pytest.mark.parametrize(
+    ("name", "raw", "ok"),
+    [
+        ("NEARWISE_HEADER_TIMEOUT_S", "2.5", True),
+        ("NEARWISE_HEADER_TIMEOUT_S", "0", False),
+        ("NEARWISE_BODY_TIMEOUT_S", "60", True),
+        ("NEARWISE_BODY_TIMEOUT_S", "-1", False),
+        ("NEARWISE_WORKER_MEMORY_MB", "0", True),
+        ("NEARWISE_WORKER_MEMORY_MB", "4096", True),
+        ("NEARWISE_WORKER_MEMORY_MB", "-1", False),
+        ("NEARWISE_WORKER_MEMORY_MB", "2.5", False),
+    ],
+)
+def test_the_read_deadlines_and_memory_guard_are_settings(monkeypatch, capsys, name, raw, ok):
+    monkeypatch.setenv(name, raw)
+    assert cli.main(["serve", "--print-config"]) == (0 if ok else 2)
+    out = capsys.readouterr()
+    if ok:
+        shown = dict(line.split("=", 1) for line in out.out.splitlines())
+        assert float(shown[name]) == float(raw)
+    else:
+        assert name in out.err
 
 
 @pytest.fixture
@@ -128,9 +162,12 @@ def test_the_command_reads_its_settings_before_numpy_is_loaded() -> None:
     import subprocess
     import sys
 
+    # The master also loads the worker class; prometheus_client must wait for the metrics
+    # directory variable that the master sets on starting.
     code = (
-        "import sys, nearwise.cli\n"
-        "print(sorted(m for m in ('numpy', 'scipy', 'sklearn', 'flask') if m in sys.modules))"
+        "import sys, nearwise.cli, nearwise.web.worker\n"
+        "names = ('numpy', 'scipy', 'sklearn', 'flask', 'prometheus_client')\n"
+        "print(sorted(m for m in names if m in sys.modules))"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"

@@ -24,7 +24,7 @@ def test_pointer_follows_rfc_6901(path: tuple, expected: str) -> None:
 
 
 def test_csv_places_use_part_line_and_column() -> None:
-    part = CsvPart("train", 'x,y\n1,2\n"multi\nline",3\n4,5\n', ("x", "y"))
+    part = CsvPart("train", b'x,y\n1,2\n"multi\nline",3\n4,5\n', ("x", "y"))
     parts = {"train": part}
     assert error_entry(Where(("train", "rows", 2, 1), "bad"), parts) == {
         "part": "train",

@@ -10,8 +10,8 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from nearwise.core.data import Table, _check_finite
-from nearwise.core.errors import BadCell, BadTable, InvalidValue, UnknownName, Where
+from nearwise.core.data import Table, _check_finite, listed
+from nearwise.core.errors import BadCell, BadTable, InvalidValue, UnknownName, Where, shown
 
 
 def feature_arrays(
@@ -22,8 +22,8 @@ def feature_arrays(
     if len(set(train.columns)) != len(train.columns):
         dup = next(c for c in train.columns if train.columns.count(c) > 1)
         raise BadTable(
-            f"column names must be unique; `{dup}` appears more than once in train.",
-            [Where(("train", "columns"), f"duplicate column `{dup}`")],
+            f"column names must be unique; `{shown(dup)}` appears more than once in train.",
+            [Where(("train", "columns"), f"duplicate column `{shown(dup)}`")],
         )
     if features is not None and len(set(features)) != len(features):
         raise InvalidValue("`features` names a column twice.", [Where(("features",), "twice")])
@@ -44,9 +44,9 @@ def _index(table: Table, name: str, path: tuple) -> int:
     if name in table.columns:
         return table.columns.index(name)
     raise UnknownName(
-        f"column `{name}` is not in the {table.name} table; its columns are "
-        f"{', '.join(table.columns)}.",
-        [Where(path, f"no column `{name}` in {table.name}")],
+        f"column `{shown(name)}` is not in the {table.name} table; its columns are "
+        f"{listed(table.columns)}.",
+        [Where(path, f"no column `{shown(name)}` in {table.name}")],
     )
 
 
@@ -55,8 +55,8 @@ def _numbers(table: Table, idx: list[int]) -> np.ndarray:
         if j in table.labels:
             i = next(r for r, c in enumerate(table.labels[j]) if isinstance(c, str))
             raise BadCell(
-                f"{table.name} column `{table.columns[j]}` must hold numbers; row {i} holds "
-                f"text {table.labels[j][i]!r}.",
+                f"{table.name} column `{shown(table.columns[j])}` must hold numbers; row {i} "
+                f"holds text {shown(table.labels[j][i], quoted=True)}.",
                 [Where((table.name, "rows", i, j), "expected a number, found text")],
             )
     block = table.values[:, idx]

@@ -21,7 +21,14 @@ from typing import Any
 import numpy as np
 
 from nearwise.core import cost, pipeline, uncertainty
-from nearwise.core.errors import InvalidValue, NearwiseError, OverLimit, UnknownName, Where
+from nearwise.core.errors import (
+    InvalidValue,
+    NearwiseError,
+    OverBudget,
+    OverLimit,
+    UnknownName,
+    Where,
+)
 from nearwise.core.methods import METHODS, Method
 from nearwise.core.results import Notice, PredictResult, TuningReport
 from nearwise.core.spec import Job
@@ -152,6 +159,7 @@ def tune_all(job: Job) -> tuple[pipeline.Context, dict[str, pipeline.Tuned], lis
     for method, prm, grd in zip(methods, params, grids, strict=True):
         try:
             settings, grid = pipeline.check_method(method, job, prm, grd, intervals=False)
+            method.check_range(settings, grid, ctx.folds)  # before the cost estimate
             if job.method == "auto":  # auto answers with intervals: the method must give them
                 uncertainty.check(job.interval, method, method.interval_kinds_for(settings))
                 pipeline.check_model_interval(method, job)
@@ -165,7 +173,7 @@ def tune_all(job: Job) -> tuple[pipeline.Context, dict[str, pipeline.Tuned], lis
         try:
             tuned[method.name] = pipeline.tune(ctx, method, settings, grid)
         except NearwiseError as err:
-            if named or err.code == "time_budget_exceeded":
+            if named or isinstance(err, OverBudget):  # abandoned requests too
                 raise _with_method(err, method.name) from None
             skipped.append(Notice("method_skipped", f"{method.name} was left out: {err.detail}"))
     if not tuned:
@@ -191,7 +199,7 @@ def rank(ctx: pipeline.Context, tuned: dict[str, pipeline.Tuned]) -> list[RankRo
                 error=float(t.scores.error[c]),
                 error_se=float(t.scores.error_se[c]),
                 df=float(df) if np.isfinite(df) else None,
-                cv_r2=pipeline.cv_r2(ctx.y, t.scores, c),
+                cv_r2=pipeline.cv_r2(ctx.y, t.scores, c, ctx.w),
             )
         )
     return sorted(rows, key=lambda r: (r.error, r.method))

@@ -24,9 +24,13 @@ from nearwise.core.spec import Caps, TuningSpec
 #: Per-row work every method shares: parsing into arrays, sorting by content, locality flags.
 ROW_S = 0.8e-6
 #: Intervals at the answer rows (the query, or every training row without one): K-fold CV+
-#: bisects over the folds' residuals (per answer row and fold); jackknife+ (loo, gcv) forms every
-#: leave-one-out prediction (per answer row and training row).
-CV_PLUS_S = 4e-6
+#: narrows a bracket per answer row by counting each fold's sorted residuals below a value
+#: (about 14 passes per end): per answer row and fold, times the training rows to the power
+#: CV_PLUS_GROWTH (larger sorted arrays miss the cache more: 0.75 us at 2,000 rows, 3 to 6 us
+#: at 250,000); jackknife+ (loo, gcv) forms every leave-one-out prediction (per answer row and
+#: training row).
+CV_PLUS_S = 0.1e-6
+CV_PLUS_GROWTH = 0.3
 JACKKNIFE_S = 2e-8
 #: Leave-a-window-out solves from a hat matrix: per step and candidate, and per cubed window.
 WINDOW_STEP_S = 1.5e-6
@@ -50,6 +54,7 @@ class Shape:
     models: int
     scheme: str = "kfold"
     width: int = 1  # window: the most rows one held-out step leaves out
+    locality: float = 0.0  # seconds of the query rows' locality flags, as measured
 
     def window_fast(self, candidates: int) -> tuple[Shape, float]:
         """For a method with a leave-a-window-out fast path: the shape of its one fit on all
@@ -80,9 +85,12 @@ class Shape:
         return cls(n, p, q, 1, 1.0, 2, spec.scheme)
 
     def rows(self, n: int) -> Shape:
+        # The locality flags' search and hull grow with the rows: at most in proportion.
+        local = self.locality * n / max(self.n, 1)
         if self.scheme == "window":  # about one step per row
-            return replace(self, n=n, fits=max(1, round(self.fits * n / max(self.n, 1))))
-        return replace(self, n=n)
+            fits = max(1, round(self.fits * n / max(self.n, 1)))
+            return replace(self, n=n, fits=fits, locality=local)
+        return replace(self, n=n, locality=local)
 
     @property
     def answers(self) -> int:
@@ -268,14 +276,15 @@ class Item:
 
     def seconds(self, s: Shape) -> float:
         if s.train_share < 1:
-            intervals = s.answers * (s.models - 1) * CV_PLUS_S
+            intervals = s.answers * (s.models - 1) * CV_PLUS_S * s.n**CV_PLUS_GROWTH
         else:
             intervals = s.answers * s.n * JACKKNIFE_S
         return ESTIMATES[self.name](self.settings, self.grid, s) + s.n * ROW_S + intervals
 
 
 def total(items: Sequence[Item], s: Shape) -> float:
-    return sum(item.seconds(s) for item in items)
+    """The request's estimate: every method's share, and the locality flags once."""
+    return sum(item.seconds(s) for item in items) + s.locality
 
 
 def rows_under(items: Sequence[Item], s: Shape, limit: float) -> int:

@@ -12,6 +12,22 @@ from dataclasses import dataclass
 
 PathPart = str | int
 
+#: The most characters of a caller's value (a name, a cell, a header) an error message echoes.
+ECHO_CHARS = 80
+
+
+def shown(value: object, quoted: bool = False, limit: int = ECHO_CHARS) -> str:
+    """A caller's value as an error message echoes it: at most ``limit`` characters,
+    longer text cut with an ellipsis and its full length stated (``abc… (1048576
+    characters)``), lone surrogates written as escapes; ``quoted`` puts the text in quotes as
+    ``repr`` does. Every echo goes through here, so that no answer grows with what was sent."""
+    text = value if isinstance(value, str) else str(value)
+    cut = len(text) > limit
+    head = text[:limit] + "…" if cut else text
+    # repr escapes a lone surrogate itself; plain text gets the same escape (UTF-8 has none)
+    out = repr(head) if quoted else head.encode("utf-8", "backslashreplace").decode("utf-8")
+    return f"{out} ({len(text)} characters)" if cut else out
+
 
 @dataclass(frozen=True)
 class Where:
@@ -99,3 +115,15 @@ class OverBudget(NearwiseError):
 
     code = "time_budget_exceeded"
     title = "Time budget exceeded"
+
+
+class Abandoned(OverBudget):
+    """The client closed its connection: nobody waits for the answer, so the work stopped.
+
+    A subclass of :class:`OverBudget` so that every handler of an overrun also stops an
+    abandoned request (the web layer answers 503 with this code, which nobody reads, and
+    counts and logs it under the code ``client_closed_request``, the 499 of some proxies).
+    """
+
+    code = "client_closed_request"
+    title = "Client closed the request"

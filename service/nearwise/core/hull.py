@@ -45,6 +45,8 @@ from scipy import sparse
 from scipy.optimize import linprog
 from scipy.spatial import ConvexHull, QhullError
 
+from nearwise.core.budget import checkpoint
+
 #: Distance from the hull, in units of the largest feature range, still counted as inside.
 HULL_TOL = 1e-7
 #: Largest affine dimension decided by qhull facets.
@@ -59,6 +61,10 @@ BATCH = 100
 MAX_ROUNDS = 20
 #: Fixed directions whose extreme rows seed the programs and certify clear outsiders.
 N_DIRECTIONS = 128
+#: Query rows x facets (or directions) computed at once: 8 MB of float64 per chunk, so the
+#: facet test's memory does not grow with the query (20,000 rows x 200,000 facets of rows on
+#: a sphere would be 30 GiB at once), and the time budget is checked between chunks.
+FACET_CELLS = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -131,6 +137,17 @@ def hull_test(
     return HullTest(outside, tested, dim, "lp")
 
 
+def subspace(Z: np.ndarray) -> np.ndarray:
+    """The training rows in the coordinates the test uses: centered, divided by the largest
+    feature range, in an orthonormal basis of the affine subspace they span (its dimension
+    is the number of columns)."""
+    centre = Z.mean(axis=0)
+    size = float(np.ptp(Z, axis=0).max()) if Z.size else 0.0
+    U = (Z - centre) / (size if size > 0 else 1.0)
+    basis, _ = _flat_basis(U, U[:0])
+    return U @ basis
+
+
 def _flat_basis(U: np.ndarray, Uq: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Orthonormal basis of the directions the rows spread along, and the queries off it."""
     n, p = U.shape
@@ -159,7 +176,31 @@ def _by_facets(W: np.ndarray, Wq: np.ndarray) -> np.ndarray | None:
         eq = ConvexHull(W).equations  # unit normals: a @ w + b <= 0 inside
     except QhullError:
         return None
-    return (Wq @ eq[:, :-1].T + eq[:, -1] > HULL_TOL).any(axis=1)
+    return beyond(Wq, eq[:, :-1], eq[:, -1])
+
+
+def beyond(Wq: np.ndarray, normals: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """For each row w of ``Wq``: is a @ w + b > HULL_TOL for some row a of ``normals`` (with its
+    offset b)?
+
+    In chunks of at most FACET_CELLS query rows x facets, the budget checked before each: one
+    matrix product of [w, 1] with [normals, offsets]' per chunk (2 ns per row and facet on
+    one core), then the largest value of each row.
+    """
+    m = Wq.shape[0]
+    out = np.zeros(m, dtype=bool)
+    if m == 0 or normals.shape[0] == 0:
+        return out
+    planes = np.ascontiguousarray(np.column_stack([normals, offsets]).T)  # (dim + 1, facets)
+    step = max(1, FACET_CELLS // normals.shape[0])
+    for start in range(0, m, step):
+        checkpoint()
+        w = Wq[start : start + step]
+        # one expression: the chunk's products are freed before the next chunk's are made
+        out[start : start + step] = (np.column_stack([w, np.ones(len(w))]) @ planes).max(
+            axis=1
+        ) > HULL_TOL
+    return out
 
 
 def _by_lp(W: np.ndarray, Wq: np.ndarray, budget: int) -> tuple[np.ndarray, np.ndarray]:
@@ -172,13 +213,14 @@ def _by_lp(W: np.ndarray, Wq: np.ndarray, budget: int) -> tuple[np.ndarray, np.n
     D = np.random.default_rng(0).standard_normal((N_DIRECTIONS, dim))
     D /= np.linalg.norm(D, axis=1)[:, None]
     top, seeds = _extremes(W, D)
-    clear = (Wq @ D.T > top + HULL_TOL).any(axis=1)
+    clear = beyond(Wq, D, -top)
     outside[clear] = done[clear] = True
     width = min(2 * (dim + 1), W.shape[0])
     sets: dict[int, np.ndarray] = {}
     rounds: dict[int, int] = {}
     queue = list(np.flatnonzero(~clear)[::-1])  # in order of index, the first at the end
     while (sets or queue) and budget > 0:
+        checkpoint()
         while queue and len(sets) < min(budget, BATCH):
             i = int(queue.pop())
             sets[i], rounds[i] = seeds, 0
@@ -202,6 +244,7 @@ def _extremes(W: np.ndarray, D: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     arg = np.zeros(D.shape[0], dtype=int)
     chunk = 8192
     for start in range(0, W.shape[0], chunk):
+        checkpoint()
         proj = D @ W[start : start + chunk].T  # (directions, chunk)
         j = proj.argmax(axis=1)
         best = proj[np.arange(D.shape[0]), j]

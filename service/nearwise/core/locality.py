@@ -31,11 +31,13 @@ from typing import Any
 import numpy as np
 from scipy.spatial.distance import cdist
 
-from nearwise.core import hull
+from nearwise.core import hull, locality_cost
+from nearwise.core.budget import Deadline, checkpoint
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import InvalidValue, TooFewRows, Where
-from nearwise.core.neighbors import Nearest
+from nearwise.core.neighbors import Nearest, sample_rows
 from nearwise.core.results import Notice
+from nearwise.core.spec import Caps
 
 CODES = ("outside_range", "outside_hull", "far_from_data", "hull_not_tested")
 #: far_from_data: nearest distance over typical spacing above this (a rule of thumb) ...
@@ -49,6 +51,8 @@ FRACTIONS = (0.01, 0.05, 0.10)
 #: Training rows over which the medians of the typical spacing and the radii are taken.
 SPACING_SAMPLE = 1000
 RADIUS_SAMPLE = 500
+#: Nearest rows searched per sampled row for one at another location; beyond, the distinct rows.
+SPACING_WINDOW = 16
 
 
 @dataclass(frozen=True)
@@ -236,22 +240,12 @@ def _skipped_message(dim: int) -> str:
     )
 
 
-def _sample(Z: np.ndarray, size: int) -> np.ndarray:
-    """Up to ``size`` row numbers, chosen by a fixed seed among the rows sorted by a fixed
-    random projection of their content, so the choice does not depend on the row order."""
-    n = Z.shape[0]
-    if n <= size:
-        return np.arange(n)
-    order = np.argsort(Z @ np.random.default_rng(1).standard_normal(Z.shape[1]), kind="stable")
-    return order[np.sort(np.random.default_rng(0).choice(n, size, replace=False))]
-
-
 def typical_spacing(Z: np.ndarray, near: Nearest | None = None) -> float:
     """Median distance from a training row to its nearest row at a different location.
 
     Duplicated rows are skipped over, so the spacing is not 0 unless all rows coincide. For
     more than :data:`SPACING_SAMPLE` rows the median is taken over that many rows, chosen
-    as in :func:`_sample`, each measured against all rows.
+    as in :func:`.neighbors.sample_rows`, each measured against all rows.
 
     References
     ----------
@@ -259,18 +253,23 @@ def typical_spacing(Z: np.ndarray, near: Nearest | None = None) -> float:
     """
     n = Z.shape[0]
     near = Nearest(Z) if near is None else near
-    rows = Z[_sample(Z, SPACING_SAMPLE)]
+    rows = Z[sample_rows(Z, SPACING_SAMPLE)]
     first = np.full(rows.shape[0], np.inf)
     todo = np.arange(rows.shape[0])
     k = min(2, n)
-    while todo.size:
+    while todo.size and k <= SPACING_WINDOW:
         d = near.distances(rows[todo], max(k, 2))
-        pos = np.where((d > 0) & np.isfinite(d), d, np.inf).min(axis=1)
-        first[todo] = pos
+        first[todo] = np.where((d > 0) & np.isfinite(d), d, np.inf).min(axis=1)
+        todo = todo[~np.isfinite(first[todo])]
         if k >= n:
-            break
-        todo = todo[~np.isfinite(pos)]
-        k = min(2 * k, n)
+            todo = todo[:0]
+        k = min(2 * k, n) if k < n else k + 1
+    if todo.size:
+        # Rows repeated more than SPACING_WINDOW times: search the distinct rows, where the
+        # nearest row at another location is the second nearest (the row itself is first).
+        distinct = np.unique(Z, axis=0)
+        if distinct.shape[0] > 1:
+            first[todo] = Nearest(distinct).distances(rows[todo], 2)[:, 1]
     found = first[np.isfinite(first)]
     return float(np.median(found)) if found.size else 0.0
 
@@ -290,17 +289,18 @@ def neighborhood_radii(Z: np.ndarray, orders: Sequence[int]) -> np.ndarray:
     """For each k in ``orders``: median over rows of the distance to the k-th nearest other row.
 
     Rows are ``Z``'s (scaled); each k is in [1, n - 1]. For more than :data:`RADIUS_SAMPLE`
-    rows the median is over that many rows (chosen as in :func:`_sample`), each measured
-    against all rows: cost O(RADIUS_SAMPLE n p).
+    rows the median is over that many rows (chosen as in :func:`.neighbors.sample_rows`),
+    each measured against all rows: cost O(RADIUS_SAMPLE n p).
     """
     n = Z.shape[0]
-    centres = Z[_sample(Z, RADIUS_SAMPLE)]
+    centres = Z[sample_rows(Z, RADIUS_SAMPLE)]
     ks = np.asarray(orders, dtype=int)  # the row itself is at index 0
     block = max(1, 2_000_000 // n)
-    out = [
-        np.partition(cdist(centres[i : i + block], Z, "sqeuclidean"), np.unique(ks), axis=1)[:, ks]
-        for i in range(0, centres.shape[0], block)
-    ]
+    out = []
+    for i in range(0, centres.shape[0], block):
+        checkpoint()
+        d2 = cdist(centres[i : i + block], Z, "sqeuclidean")
+        out.append(np.partition(d2, np.unique(ks), axis=1)[:, ks])
     return np.median(np.sqrt(np.vstack(out)), axis=0)
 
 
@@ -311,6 +311,9 @@ def summary(
     fraction: float | None = None,
     Xq: np.ndarray | None = None,
     scale: str = "standard",
+    *,
+    caps: Caps | None = None,
+    deadline: Deadline | None = None,
 ) -> dict[str, Any]:
     """The locality diagnostics of a training table, without fitting anything.
 
@@ -326,6 +329,12 @@ def summary(
     Xq : ndarray, shape (m, p), optional
         Query rows to flag.
     scale : {"standard", "range", "none"}
+    caps : Caps, optional
+        With ``caps.cost_s``: the work is measured and estimated first
+        (:mod:`nearwise.core.locality_cost`) and refused with
+        :class:`~nearwise.core.errors.OverLimit` above it, before any other work.
+    deadline : Deadline, optional
+        The time budget, checked between blocks of every search and of the hull test.
 
     Returns
     -------
@@ -343,11 +352,23 @@ def summary(
     Hastie, Tibshirani & Friedman (2009), *The Elements of Statistical Learning*, 2nd ed.,
     section 2.5.
     """
+    _check_options(X.shape[0], k, fraction, scale)
+    with (Deadline(None) if deadline is None else deadline).scope():
+        return _summary(X, names, k, fraction, Xq, scale, caps)
+
+
+def _summary(X, names, k, fraction, Xq, scale, caps) -> dict[str, Any]:
     n, p = X.shape
-    _check_options(n, k, fraction, scale)
     scaler = Scaler.fit(X, scale)
     Z = scaler.transform(X)
     near = Nearest(Z)
+    Zq = None if Xq is None else scaler.transform(Xq)
+    if caps is not None and caps.cost_s is not None:
+        none = np.zeros((0, p))
+        measured = locality_cost.probe(
+            X, Z, near, none if Xq is None else Xq, none if Zq is None else Zq
+        )
+        locality_cost.check(measured, caps)
     spacing = typical_spacing(Z, near)
     asked = k if fraction is None else max(1, math.ceil(round(fraction * n, 9)))
     notices = []
@@ -355,7 +376,7 @@ def summary(
         notices.append(not_local_notice(asked, n, p))
     query: list[dict[str, Any]] = []
     if Xq is not None:
-        loc = _locality(X, Xq, Z, scaler.transform(Xq), near, spacing)
+        loc = _locality(X, Xq, Z, Zq, near, spacing)
         query = [
             {"nearest": float(d), "ratio": float(r), "flags": list(f)}
             for d, r, f in zip(loc.nearest, loc.ratio, loc.flags, strict=True)

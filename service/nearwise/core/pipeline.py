@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
-from nearwise.core import cost, locality, sequence, serial, tuning, uncertainty
-from nearwise.core.budget import Deadline
+from nearwise.core import cost, locality, locality_cost, sequence, serial, tuning, uncertainty
+from nearwise.core.budget import Deadline, blocks
 from nearwise.core.data import Prepared, prepare
 from nearwise.core.errors import BadCell, NotApplicable, OverLimit, UnknownName, Where
 from nearwise.core.methods import METHODS, Method
@@ -36,8 +36,11 @@ def _finite(v: float) -> float | None:
     return float(v) if np.isfinite(v) else None
 
 
-def _error(resid: np.ndarray, metric: str) -> float:
-    return float(np.sqrt(np.mean(resid**2)) if metric == "rmse" else np.mean(np.abs(resid)))
+def _error(resid: np.ndarray, metric: str, w: np.ndarray | None = None) -> float:
+    """RMSE or MAE of ``resid``, weighted by ``w`` if given (sum w loss / sum w)."""
+    loss = resid**2 if metric == "rmse" else np.abs(resid)
+    mean = float(np.mean(loss) if w is None else np.sum(w * loss) / np.sum(w))
+    return float(np.sqrt(mean)) if metric == "rmse" else mean
 
 
 @dataclass
@@ -54,6 +57,7 @@ class Context:
     line: sequence.Timeline | None = None  # where the working rows lie along order_by
     gap: serial.Gap | None = None  # window and blocks: the gap in force
     noise: tuple[float, int] | None = None  # the pilot's noise lag-1 estimate, steps used
+    w: np.ndarray | None = None  # with weight_by: the working rows' weights (positive)
 
 
 @dataclass
@@ -76,17 +80,26 @@ class Tuned:
 
 def setup(job: Job) -> Context:
     """Check the request's shared options and data, sort rows by content, assign folds."""
-    deadline = Deadline(job.time_budget_s)
+    deadline = job.clock()
+    with deadline.scope():
+        return _setup(job, deadline)
+
+
+def _setup(job: Job, deadline: Deadline) -> Context:
     tuning.check_spec(job.tuning)
     check_fold_fits(job)
     spec = job.tuning
-    data = prepare(job.train, job.target, job.features, job.query, spec.group_by, spec.order_by)
+    data = prepare(
+        job.train, job.target, job.features, job.query, spec.group_by, spec.order_by, job.weight_by
+    )
     line = None
     if spec.order_by is not None:
         line = sequence.timeline(job.train, spec.order_by).take(data.kept)
     # Work on the rows sorted by content (and place in time), so that no answer depends on the
     # order they came in.
     keys = (data.y, *data.X.T[::-1]) if line is None else (line.key, data.y, *data.X.T[::-1])
+    if data.weights is not None:  # rows that differ in weight alone are ordered by it
+        keys = (data.weights, *keys)
     canon = np.lexsort(keys)
     X, y = data.X[canon], data.y[canon]
     groups = None if data.groups is None else data.groups[canon]
@@ -100,7 +113,8 @@ def setup(job: Job) -> Context:
         folds, gap = serial.make_folds(spec, line, noise, deadline.check)
     else:
         folds = tuning.make_folds(X.shape[0], spec, groups, deadline.check)
-    return Context(job, data, canon, X, y, folds, deadline, line, gap, noise)
+    w = None if data.weights is None else data.weights[canon]
+    return Context(job, data, canon, X, y, folds, deadline, line, gap, noise, w)
 
 
 def check_model_interval(method: Method, job: Job) -> None:
@@ -148,7 +162,12 @@ def shape(ctx: Context) -> cost.Shape:
     """The size of the request's work, for the cost estimate."""
     q = 0 if ctx.data.X_query is None else int(ctx.data.X_query.shape[0])
     n, folds = ctx.X.shape[0], ctx.folds
-    return cost.Shape.of(n, ctx.X.shape[1], q, ctx.job.tuning, folds.n_folds, n - folds.min_train)
+    s = cost.Shape.of(n, ctx.X.shape[1], q, ctx.job.tuning, folds.n_folds, n - folds.min_train)
+    if q and ctx.job.caps.cost_s is not None:  # measured on the data (locality_cost)
+        with ctx.deadline.scope():
+            measured = locality_cost.measure(ctx.X, ctx.data.X_query)
+        s = replace(s, locality=measured.seconds())
+    return s
 
 
 def check_method(
@@ -172,14 +191,20 @@ def check_method(
 
 def tune(ctx: Context, method: Method, settings: dict[str, Any], grid) -> Tuned:
     """Score every candidate of ``method`` on the shared folds and choose one."""
+    with ctx.deadline.scope():
+        return _tune(ctx, method, settings, grid)
+
+
+def _tune(ctx: Context, method: Method, settings: dict[str, Any], grid) -> Tuned:
     # ``line``: where the working rows lie along order_by (None without it), for fits whose
     # error figures account for serial dependence (linear: HAC standard errors).
-    work: dict[str, Any] = {"features": ctx.data.features, "line": ctx.line}
+    # ``weights``: the rows' precision weights (None: all 1), read by every method.
+    work: dict[str, Any] = {"features": ctx.data.features, "line": ctx.line, "weights": ctx.w}
     values = method.candidates(ctx.X, ctx.y, ctx.folds, settings, grid, work)
     ctx.deadline.check()
     path = method.path(ctx.X, ctx.y, ctx.folds, settings, values, work)
     ctx.deadline.check()
-    scores = tuning.score(ctx.y, path.oof, ctx.folds, ctx.job.tuning.metric, path.gcv_scale)
+    scores = tuning.score(ctx.y, path.oof, ctx.folds, ctx.job.tuning.metric, path.gcv_scale, ctx.w)
     best, chosen = tuning.choose(
         scores.error, scores.error_se, ctx.job.tuning.rule, ctx.folds.scheme
     )
@@ -199,12 +224,18 @@ def run(job: Job) -> PredictResult:
     method = get_method(job.method)
     settings, grid = check_method(method, job, job.params, job.grid)
     ctx = setup(job)
+    method.check_range(settings, grid, ctx.folds)  # range errors before the cost estimate
     cost.check([cost.Item(method.name, settings, grid)], shape(ctx), job.caps)
     return answer(ctx, tune(ctx, method, settings, grid))
 
 
 def answer(ctx: Context, t: Tuned) -> PredictResult:
     """Fit the chosen candidate to all rows and answer with predictions and error figures."""
+    with ctx.deadline.scope():
+        return _answer(ctx, t)
+
+
+def _answer(ctx: Context, t: Tuned) -> PredictResult:
     job, data, X, y, folds = ctx.job, ctx.data, ctx.X, ctx.y, ctx.folds
     method, settings, values, path, scores = t.method, t.settings, t.values, t.path, t.scores
     chosen, work = t.chosen, t.work
@@ -215,15 +246,30 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
     at_query = data.X_query is not None
     where = data.X_query if at_query else data.X_all
     with np.errstate(over="ignore", invalid="ignore"):
-        value_at = model.predict(where)
+        value_at = predict_rows(model, where, X.shape[0])
         summary = model.summary(data.features)
     _check_predictions(value_at, "query" if at_query else "train")
-    sigma_cv = float(np.sqrt(np.mean(scores.residual[chosen] ** 2)))
+    # The noise of a row of weight 1: with weights, mean(w r^2) estimates sigma^2.
+    unit = 1.0 if ctx.w is None else ctx.w
+    sigma_cv = float(np.sqrt(np.mean(scores.residual[chosen] ** 2 * unit)))
     oof_resid = _oof_residual(y, path, folds, chosen, model)
     dep = serial.dependence(oof_resid, ctx.line, ctx.canon, ctx.noise)
     widen = serial.level_factor(dep, folds.scheme, job.interval.kind)
+    w_at = data.query_weights if at_query else None  # the answered rows' weights (None: 1)
     bars = uncertainty.compute(
-        job.interval, model, path, folds, chosen, X, y, where, value_at, sigma_cv, widen
+        job.interval,
+        model,
+        path,
+        folds,
+        chosen,
+        X,
+        y,
+        where,
+        value_at,
+        sigma_cv,
+        widen,
+        w=ctx.w,
+        w_at=w_at,
     )
     notices = [
         *_fit_notices(data, t, folds, model, at_query),
@@ -250,9 +296,11 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         rows_dropped=data.rows_dropped,
         cv_error=float(scores.error[chosen]),
         cv_error_se=float(scores.error_se[chosen]),
-        cv_r2=cv_r2(y, scores, chosen),
-        train_error=_error(y - model.fitted, job.tuning.metric),
+        cv_r2=cv_r2(y, scores, chosen, ctx.w),
+        train_error=_error(y - model.fitted, job.tuning.metric, ctx.w),
         df=model.df,
+        rows_zero_weight=data.rows_zero_weight,
+        weight_by=job.weight_by,
     )
     curve = None
     if job.curve_points and X.shape[1] == 1:
@@ -260,7 +308,7 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
         with np.errstate(over="ignore", invalid="ignore"):
             at = model.predict(grid)
         band = uncertainty.compute(
-            job.interval, model, path, folds, chosen, X, y, grid, at, sigma_cv, widen
+            job.interval, model, path, folds, chosen, X, y, grid, at, sigma_cv, widen, w=ctx.w
         )
         curve = {"x": grid[:, 0], "value": at, "lower": band.lower, "upper": band.upper}
     return PredictResult(
@@ -287,6 +335,23 @@ def answer(ctx: Context, t: Tuned) -> PredictResult:
     )
 
 
+#: Query rows x training rows predicted in one call at most (the budget is checked between
+#: calls), and at least 1,024 rows.
+PREDICT_BLOCK_CELLS = 2_000_000
+
+
+def predict_rows(model, Xq: np.ndarray, n: int = 1) -> np.ndarray:
+    """``model.predict(Xq)`` in blocks of rows (each row's prediction depends on its own
+    features only), the budget checked before each, so that no call holds a large
+    temporary (a thin-plate kernel block is rows x ``n`` training rows: 16 MB) or runs
+    long."""
+    out = np.empty(Xq.shape[0])
+    most = max(1024, PREDICT_BLOCK_CELLS // max(n, 1))
+    for at in blocks(Xq.shape[0], most=most, first=1024):
+        out[at] = model.predict(Xq[at])
+    return out
+
+
 def _series(ctx: Context, resid: np.ndarray, dep) -> dict[str, Any] | None:
     """With order_by: the out-of-fold residuals against it, in time order (for pictures)."""
     if ctx.line is None:
@@ -308,11 +373,16 @@ def curve_grid(X: np.ndarray, points: int) -> np.ndarray:
     return np.linspace(lo - pad, hi + pad, points)[:, None]
 
 
-def cv_r2(y: np.ndarray, scores: tuning.Scores, c: int) -> float | None:
-    """Out-of-fold R^2 of candidate c: 1 - pooled squared residuals / total sum of squares."""
+def cv_r2(
+    y: np.ndarray, scores: tuning.Scores, c: int, w: np.ndarray | None = None
+) -> float | None:
+    """Out-of-fold R^2 of candidate c: 1 - pooled squared residuals / total sum of squares
+    (both weighted by ``w`` if given, about the weighted mean)."""
     resid = scores.residual[c]
-    tss = float(np.sum((y - y.mean()) ** 2)) * resid.shape[0]
-    return (1.0 - float(np.sum(resid**2)) / tss) if tss > 0 else None
+    wt = np.ones(y.size) if w is None else w / np.max(w)
+    ybar = float(np.sum(wt * y) / np.sum(wt))
+    tss = float(np.sum(wt * (y - ybar) ** 2)) * resid.shape[0]
+    return (1.0 - float(np.sum(wt * resid**2)) / tss) if tss > 0 else None
 
 
 def report(

@@ -58,6 +58,8 @@ class FitReport:
     cv_r2: float | None
     train_error: float
     df: float | None
+    rows_zero_weight: int = 0  # training rows of weight 0, left out like rows_dropped
+    weight_by: str | None = None  # the column of row weights, if any
 
 
 @dataclass(frozen=True)

@@ -6,6 +6,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from nearwise.core.budget import Deadline
 from nearwise.core.data import Table
 
 SCHEMES = ("kfold", "loo", "gcv", "window", "blocks")
@@ -70,7 +71,10 @@ class Job:
     """One predict request, after the envelope was checked and the tables parsed.
 
     ``params`` and ``grid`` hold the caller's values as sent (JSON scalars and lists); the
-    core checks them against the method's constraints. ``time_budget_s`` bounds the run.
+    core checks them against the method's constraints. ``time_budget_s`` bounds the run;
+    ``deadline``, when given, replaces it: the caller's clock, started when the caller chose
+    (the web layer: once the request is parsed) and carrying its ``abandoned`` callable, so
+    that the same budget also bounds what the caller does after the run (pictures, CSV).
     """
 
     method: str
@@ -86,3 +90,9 @@ class Job:
     methods: Sequence[str] | None = None  # for compare: the methods to rank (None: all that apply)
     curve_points: int = 0  # one feature: also evaluate the fit on this many points (pictures)
     caps: Caps = field(default_factory=Caps)
+    weight_by: str | None = None  # a train column of row weights (precision; 0 drops a row)
+    deadline: Deadline | None = field(default=None, compare=False, repr=False)
+
+    def clock(self) -> Deadline:
+        """The run's deadline: ``deadline``, or a new one of ``time_budget_s`` from now."""
+        return self.deadline if self.deadline is not None else Deadline(self.time_budget_s)

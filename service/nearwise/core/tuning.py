@@ -294,7 +294,12 @@ class Scores:
 
 
 def score(
-    y: np.ndarray, oof: np.ndarray, folds: Folds, metric: str, gcv_scale: np.ndarray | None = None
+    y: np.ndarray,
+    oof: np.ndarray,
+    folds: Folds,
+    metric: str,
+    gcv_scale: np.ndarray | None = None,
+    weights: np.ndarray | None = None,
 ) -> Scores:
     """Score every candidate from its out-of-fold predictions.
 
@@ -307,6 +312,13 @@ def score(
 
     For GCV, ``gcv_scale`` holds 1 - df/n per candidate; residuals are divided by it, so the
     squared error equals the GCV score of Craven & Wahba.
+
+    With row ``weights`` w_i every mean is weighted: the pooled error is sum w loss / sum w,
+    each fold's error the weighted mean over its rows (its standard error as above, from the
+    folds' errors). For leave-one-out and GCV, whose units are the rows, the standard error is
+    that of a weighted mean, sqrt(n / (n - 1) sum w_i^2 (l_i - L)^2) / sum w_i, which equals
+    sd(l) / sqrt(n) when the weights are equal. Weighted GCV is sum w r^2 / (sum w (1 -
+    df/n)^2), the score of Craven & Wahba with weights scaled to mean 1.
     """
     resid = y[None, None, :] - oof
     if gcv_scale is not None:
@@ -314,24 +326,31 @@ def score(
             resid = resid / gcv_scale[:, None, None]
     loss = resid**2 if metric == "rmse" else np.abs(resid)
     n_c = oof.shape[0]
+    # Weights scaled to at most 1, so that w * loss cannot overflow where loss does not.
+    wt = np.ones(y.size) if weights is None else weights / np.max(weights)
     if folds.folded:
         assert folds.fold_id is not None
         k = folds.n_folds
         units = np.empty((n_c, folds.repeats * k))
         for r in range(folds.repeats):
             ids = folds.fold_id[r]
-            cnt = np.bincount(ids, minlength=k)
+            cnt = np.bincount(ids, weights=wt, minlength=k)
             for c in range(n_c):
                 units[c, r * k : (r + 1) * k] = (
-                    np.bincount(ids, weights=loss[c, r], minlength=k) / cnt
+                    np.bincount(ids, weights=wt * loss[c, r], minlength=k) / cnt
                 )
     else:
         units = loss[:, 0, :]
-    pooled = loss.reshape(n_c, -1).mean(axis=1)
+    if weights is None:
+        pooled = loss.reshape(n_c, -1).mean(axis=1)
+    else:
+        pooled = (loss * wt).reshape(n_c, -1).sum(axis=1) / (wt.sum() * folds.repeats)
     per_repeat = units.reshape(n_c, folds.repeats, -1)
     m = per_repeat.shape[2]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        if m > 1:
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        if m > 1 and weights is not None and not folds.folded:
+            se_units = _weighted_mean_se(units, wt)
+        elif m > 1:
             # Scaled before the standard deviation so that squares of huge errors (targets
             # near the 1e100 limit) do not overflow.
             big = np.max(np.abs(per_repeat), axis=(1, 2))
@@ -350,6 +369,18 @@ def score(
     error = np.where(bad, np.inf, error)
     error_se = np.where(bad | ~np.isfinite(error_se), np.inf, error_se)
     return Scores(error, error_se, units, resid, oof)
+
+
+def _weighted_mean_se(units: np.ndarray, wt: np.ndarray) -> np.ndarray:
+    """Per candidate (row of ``units``), the standard error of the weighted mean of its
+    entries: sqrt(n / (n - 1) sum w_i^2 (l_i - L)^2) / sum w_i, L the weighted mean."""
+    n = units.shape[1]
+    big = np.max(np.abs(units), axis=1)
+    big = np.where(np.isfinite(big) & (big > 0), big, 1.0)
+    u = units / big[:, None]
+    mean = (u @ wt) / wt.sum()
+    dev = (u - mean[:, None]) * wt[None, :]
+    return big * np.sqrt(n / (n - 1) * np.sum(dev**2, axis=1)) / wt.sum()
 
 
 def choose(

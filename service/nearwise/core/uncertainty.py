@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from nearwise.core import intervals
+from nearwise.core.budget import blocks, checkpoint
 from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
 from nearwise.core.methods.base import Fitted, Method, PathResult
@@ -87,16 +88,28 @@ def compute(
     value: np.ndarray,
     sigma_cv: float,
     widen: float = 1.0,
+    *,
+    w: np.ndarray | None = None,
+    w_at: np.ndarray | None = None,
 ) -> ErrorBars:
     """Standard errors and interval bounds at the rows ``Xq`` whose predictions are ``value``.
 
     Every figure depends on a row's features alone, so rows that repeat one another (training
     rows at repeated settings, most often) are computed once.
+
+    ``w`` holds the training rows' weights and ``w_at`` those of the rows answered (None: 1):
+    intervals are for a new observation of that weight, whose noise variance is sigma^2 / w.
+    CV+ and jackknife+ scale the residuals by sqrt(w_i) (the conformity score |r_i| sqrt(w_i)),
+    and the interval at a row of weight w0 by 1 / sqrt(w0); the model intervals take 1 / w0
+    for the new observation's noise.
     """
-    distinct, first, inverse = np.unique(Xq, axis=0, return_index=True, return_inverse=True)
+    key = Xq if w_at is None else np.column_stack([Xq, w_at])
+    distinct, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
     inverse = inverse.reshape(-1)
+    w0 = None if w_at is None else distinct[:, -1]
+    distinct = distinct[:, : Xq.shape[1]]
     std_error, lower, upper, report = _bars(
-        spec, model, path, folds, chosen, X, y, distinct, value[first], sigma_cv
+        spec, model, path, folds, chosen, X, y, distinct, value[first], sigma_cv, w, w0
     )
     std_error, lower, upper = std_error[inverse], lower[inverse], upper[inverse]
     # An undefined bound (NaN: no noise estimate) is unbounded, never a zero-width interval.
@@ -133,13 +146,18 @@ def _bars(
     Xq: np.ndarray,
     value: np.ndarray,
     sigma_cv: float,
+    w: np.ndarray | None = None,
+    w0: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict]:
     """std_error, lower and upper at the rows ``Xq`` whose predictions are ``value`` (before
-    clamping around the values)."""
+    clamping around the values); ``w``, ``w0``: the weights of the training and those rows."""
     std_error = model.std_error(Xq, sigma_cv)
     report = {"level": spec.level, "kind": spec.kind, "adaptive": spec.adaptive}
     if spec.kind == "model":
-        lower, upper = model.model_interval(Xq, spec.level)
+        if w0 is None:
+            lower, upper = model.model_interval(Xq, spec.level)
+        else:
+            lower, upper = model.model_interval(Xq, spec.level, w0)
         report["construction"] = "model"
     else:
         if folds.scheme == "gcv":
@@ -149,11 +167,16 @@ def _bars(
         spread_q = spread_train = None
         if spec.adaptive:
             sc = Scaler.fit(X, "standard")
+            scaled = resid if w is None else resid * np.sqrt(w)
             spread_q, spread_train = intervals.local_spread(
-                sc.transform(X), resid, sc.transform(Xq)
+                sc.transform(X), scaled, sc.transform(Xq)
             )
+        if w is not None:  # weights enter as a spread 1 / sqrt(w): see compute
+            spread_train = (1.0 if spread_train is None else spread_train) / np.sqrt(w)
+            if w0 is not None:
+                spread_q = (1.0 if spread_q is None else spread_q) / np.sqrt(w0)
         if folds.keep_models:
-            mu = np.stack([fm.predict(Xq, chosen) for fm in path.fold_models])
+            mu = fold_predictions(path.fold_models, Xq, chosen, X.shape[0])
             lower, upper = intervals.cv_plus(
                 mu, folds.fold_id[0], resid, spec.level, spread_q, spread_train
             )
@@ -175,3 +198,18 @@ def _bars(
             report["construction"] = "jackknife_plus"
             report["guarantee"] = GUARANTEE["loo"]
     return std_error, lower, upper, report
+
+
+def fold_predictions(models, Xq: np.ndarray, chosen: int, n: int) -> np.ndarray:
+    """Each fold model's prediction of candidate ``chosen`` at ``Xq``, shape (folds, m).
+
+    In blocks of query rows, the budget checked before each fold's share of a block, so that
+    no single call runs long or holds a large temporary (a thin-plate fold model forms a
+    rows x training rows kernel block).
+    """
+    mu = np.empty((len(models), Xq.shape[0]))
+    for at in blocks(Xq.shape[0], most=max(1024, intervals.CHUNK_CELLS // max(n, 1))):
+        for f, fm in enumerate(models):
+            checkpoint()
+            mu[f, at] = fm.predict(Xq[at], chosen)
+    return mu

@@ -6,6 +6,7 @@ from collections.abc import Sequence
 
 from flask import request
 
+from nearwise.core.errors import shown
 from nearwise.web.problems import Problem
 
 _CHUNK = 64 * 1024
@@ -16,8 +17,10 @@ def read_body(limit: int) -> bytes:
 
     A declared ``Content-Length`` over the limit is refused before reading. A body without
     one (chunked transfer) is read up to ``limit + 1`` bytes, so an oversized stream is
-    refused rather than silently cut.
+    refused rather than silently cut. A body with a content coding (``Content-Encoding``
+    other than ``identity``) is refused before reading: 415, as RFC 9110 section 8.4 asks.
     """
+    check_encoding()
     env = request.environ
     stream = env["wsgi.input"]
     length = request.content_length
@@ -47,11 +50,32 @@ def read_body(limit: int) -> bytes:
             raise _too_large(limit, "sent without Content-Length")
 
 
+#: The content codings a body may have (RFC 9110 section 8.4.1); ``identity`` is none at all.
+CODINGS = ("identity",)
+
+
+def check_encoding() -> None:
+    """Refuse (415) a body with a content coding the service does not decode, naming the
+    ``Content-Encoding`` header; the answer's ``Accept-Encoding`` lists the codings read."""
+    sent = request.headers.get("Content-Encoding", "")
+    codings = [c.strip().lower() for c in sent.split(",") if c.strip()]
+    unknown = [c for c in codings if c not in CODINGS]
+    if unknown:
+        raise Problem(
+            415,
+            f"The body has the content coding {shown(unknown[0], quoted=True)} "
+            f"(Content-Encoding: {shown(sent)}); bodies are read without one. Send it "
+            "uncompressed, without a Content-Encoding header.",
+            code="unsupported_content_encoding",
+            headers={"Accept-Encoding": ", ".join(CODINGS)},
+        )
+
+
 def _too_large(limit: int, found: str) -> Problem:
     return Problem(
         413,
         f"The body is larger than the limit of {limit} bytes set by NEARWISE_MAX_BODY_BYTES "
-        f"({found}). Send fewer rows per request.",
+        f"({shown(found)}). Send fewer rows per request.",
         code="body_too_large",
     )
 
@@ -72,7 +96,7 @@ def negotiate(offered: Sequence[str]) -> str:
             names = [k for k, v in FORMATS.items() if v in offered]
             raise Problem(
                 422,
-                f"`format` must be one of {', '.join(names)} here; got {fmt!r}.",
+                f"`format` must be one of {', '.join(names)} here; got {shown(fmt, quoted=True)}.",
                 [{"parameter": "format", "message": "unknown format"}],
                 code="invalid_request",
             )
@@ -84,14 +108,14 @@ def negotiate(offered: Sequence[str]) -> str:
         raise Problem(
             406,
             f"This endpoint answers {' or '.join(offered)}; the Accept header allows neither "
-            f"({request.headers['Accept']!r}).",
+            f"({shown(request.headers['Accept'], quoted=True)}).",
         )
     return best
 
 
 def unsupported_media_type(accepted: Sequence[str]) -> Problem:
     """The 415 for a body of a type the endpoint does not read."""
-    sent = request.mimetype or "no Content-Type"
+    sent = shown(request.mimetype) or "no Content-Type"
     return Problem(
         415,
         f"This endpoint reads {', '.join(accepted)} bodies; got {sent}.",

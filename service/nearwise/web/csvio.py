@@ -6,6 +6,17 @@ accepted, quoted numbers are numbers, and a cell holding only spaces is empty (a
 commas. Undeclared, a file that only makes sense in another dialect (a header split by
 semicolons or tabs, or a cell such as ``1,500`` that is a number only if the comma is a decimal
 or thousands separator) is refused with a message naming the parameters to set.
+
+Limits are checked while reading, before a table is held: a part with more cells (counted from
+its separators and line breaks, quoted cells read as the csv reader reads them) than a table
+within ``NEARWISE_MAX_CELLS`` and ``NEARWISE_MAX_COLUMNS`` holds is refused before any row is
+read (:mod:`.prescan`); a header
+over ``NEARWISE_MAX_COLUMNS`` is refused before the rows; rows are read only up to the row limit
+(``NEARWISE_MAX_ROWS``, ``NEARWISE_MAX_QUERY_ROWS``, or fewer if ``NEARWISE_MAX_CELLS`` allows
+fewer). Blank lines at the end are dropped before reading (a run of them costs one pass of
+C code); a blank line before a data row is read as a row (so it counts toward the row limit)
+and refused as a row of no cells. Cells are held as variable-width strings
+(``numpy.dtypes.StringDType``), so one long cell does not widen every other.
 """
 
 from __future__ import annotations
@@ -13,16 +24,19 @@ from __future__ import annotations
 import csv
 import io
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from itertools import islice
 from typing import Any
 
 import numpy as np
+from numpy.dtypes import StringDType
 
 from nearwise.core.data import Table
-from nearwise.core.errors import BadTable, Where
+from nearwise.core.errors import BadTable, Where, shown
+from nearwise.web import prescan
 from nearwise.web.problems import Problem
-from nearwise.web.tables import Limits, Parsed, check_finite, check_shape
+from nearwise.web.tables import Limits, Parsed, check_finite, check_shape, most_rows, too_large
 
 _NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
 #: Digits with commas or points in a way that would be a number under another reading.
@@ -88,17 +102,18 @@ def dialect_from(values: Mapping[str, str]) -> Dialect:
 
 @dataclass
 class CsvPart:
-    """A CSV part as sent; maps data row ``i`` to the line it starts on (the header is line 1)."""
+    """A CSV part as sent (UTF-8 bytes, no byte-order mark); maps data row ``i`` to the line
+    it starts on (the header is line 1)."""
 
     name: str
-    text: str
+    data: bytes
     columns: tuple[str, ...] = ()
     delimiter: str = ","
     _lines: list[int] = field(default_factory=list)
 
     def line_of(self, row: int) -> int:
         if not self._lines:
-            reader = csv.reader(io.StringIO(self.text), strict=True, delimiter=self.delimiter)
+            reader = csv.reader(_lines(self.data), strict=True, delimiter=self.delimiter)
             next(reader, None)
             start = reader.line_num + 1
             for _ in reader:
@@ -107,9 +122,15 @@ class CsvPart:
         return self._lines[row] if row < len(self._lines) else row + 2
 
 
-def _decode(name: str, data: bytes) -> str:
+def _lines(data: bytes) -> io.TextIOWrapper:
+    """The lines of a UTF-8 part, decoded a chunk at a time as they are read (the bytes are
+    shared, not copied: no second copy of the part is held while reading it)."""
+    return io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline="\n")
+
+
+def _check_utf8(name: str, data: bytes) -> None:
     try:
-        return data.decode("utf-8-sig")
+        data.decode("utf-8")  # checked whole, so the message can name the line; not kept
     except UnicodeDecodeError as exc:
         line = data[: exc.start].count(b"\n") + 1
         bom = data[:2] in (b"\xff\xfe", b"\xfe\xff")
@@ -132,10 +153,10 @@ def _decode(name: str, data: bytes) -> str:
         ) from None
 
 
-def _check_header_dialect(name: str, text: str, dialect: Dialect) -> None:
+def _check_header_dialect(name: str, data: bytes, dialect: Dialect) -> None:
     """Refuse a header line that is plainly split by another delimiter than the one in force."""
-    end = text.find("\n")
-    first = text if end < 0 else text[:end]
+    end = data.find(b"\n")
+    first = (data if end < 0 else data[:end]).decode("utf-8")
     if dialect.delimiter in first:
         return
     others = [d for d in (";", "\t", "|", ",") if d != dialect.delimiter and d in first]
@@ -172,17 +193,19 @@ def _check_header_dialect(name: str, text: str, dialect: Dialect) -> None:
     )
 
 
-def _open_quote_line(text: str) -> int | None:
+def _open_quote_line(data: bytes, delimiter: str) -> int | None:
     """The line (1-based) where a quoted cell opens and never closes, if one does."""
-    inside, opened, line = False, None, 1
-    for ch in text:
-        if ch == '"':
-            inside = not inside  # a doubled quote "" toggles twice: no net change
-            if inside:
-                opened = line
-        elif ch == "\n":
-            line += 1
-    return opened if inside else None
+    at = prescan.open_quote(data, delimiter)
+    return None if at is None else data.count(b"\n", 0, at) + 1
+
+
+def _check_cells(name: str, data: bytes, delimiter: str, limits: Limits) -> None:
+    """Refuse a part with more cells than any table within the limits holds (its header
+    included: at most NEARWISE_MAX_CELLS + NEARWISE_MAX_COLUMNS), before reading a row."""
+    found = prescan.csv_cells(data, delimiter, limits.max_cells + limits.max_columns)
+    if found is not None:
+        size = f"{found} or more cells by its separators and line breaks (header included)"
+        raise too_large(name, size, limits, (name,))
 
 
 def read_csv(
@@ -194,23 +217,29 @@ def read_csv(
 ) -> Parsed:
     """Parse one CSV part (UTF-8, a header line first) in the given dialect.
 
-    The part is recorded in ``parts`` first, so errors inside it can name its lines.
+    The part is recorded in ``parts`` first, so errors inside it can name its lines. Limits
+    are checked while reading (see the module's notes).
     """
-    text = _decode(name, data)
-    part = CsvPart(name, text, delimiter=dialect.delimiter)
+    # Blank lines at the end are dropped here, before any is read as a row.
+    data = data.removeprefix(b"\xef\xbb\xbf").rstrip(b"\r\n")
+    _check_utf8(name, data)
+    part = CsvPart(name, data, delimiter=dialect.delimiter)
     parts[name] = part
-    _check_header_dialect(name, text, dialect)
-    reader = csv.reader(io.StringIO(text), strict=True, delimiter=dialect.delimiter)
+    _check_header_dialect(name, data, dialect)
+    _check_cells(name, data, dialect.delimiter, limits)
+    reader = csv.reader(_lines(data), strict=True, delimiter=dialect.delimiter)
     try:
         header = next(reader, None)
-        rows = list(reader)
+        most = most_rows(name, header, limits) if header else 0
+        rows = list(islice(reader, most + 1))  # one past the limit says it is passed
     except csv.Error as exc:
-        line = _open_quote_line(text) if "end of data" in str(exc) else None
+        line = _open_quote_line(data, dialect.delimiter) if "end of data" in str(exc) else None
         line = line or reader.line_num
+        message = shown(exc)
         raise Problem(
             400,
-            f"The {name} part is not readable CSV at line {line}: {exc}.",
-            [{"part": name, "line": line, "message": str(exc)}],
+            f"The {name} part is not readable CSV at line {line}: {message}.",
+            [{"part": name, "line": line, "message": message}],
         ) from None
     if not header:
         raise Problem(
@@ -218,13 +247,11 @@ def read_csv(
             f"The {name} part is empty; it needs a header line naming the columns.",
             [{"part": name, "line": 1, "message": "no header line"}],
         )
-    while rows and not rows[-1]:
-        rows.pop()  # blank lines at the end of the file
     part.columns = tuple(header)
-    check_shape(name, header, len(rows), limits)
+    check_shape(name, header, len(rows), limits, stopped=len(rows) > most)
     p = len(header)
     try:
-        cells = np.array(rows, dtype=str).reshape(len(rows), p)
+        cells = np.array(rows, dtype=StringDType()).reshape(len(rows), p)
     except ValueError:
         i = next(i for i, r in enumerate(rows) if len(r) != p)
         hint = ""
@@ -239,8 +266,8 @@ def read_csv(
     numbers = cells
     if dialect.decimal == ",":
         _refuse_points(name, cells, dialect)
-        numbers = np.char.replace(cells, ",", ".") if cells.size else cells
-    plain = text.isascii() and "_" not in text
+        numbers = np.strings.replace(cells, ",", ".") if cells.size else cells
+    plain = data.isascii() and b"_" not in data
     values, labels, is_num = _convert(numbers, cells, plain)
     if dialect.decimal == "." and labels:
         _refuse_commas(name, labels, dialect)
@@ -252,14 +279,14 @@ def _refuse_points(name: str, cells: np.ndarray, dialect: Dialect) -> None:
     """With decimal commas, a number-like cell holding a point is ambiguous (1.500)."""
     if not cells.size:
         return
-    dotted = np.nonzero(np.char.find(cells, ".") >= 0)
+    dotted = np.nonzero(np.strings.find(cells, ".") >= 0)
     for i, j in zip(*dotted, strict=True):
         cell = str(cells[i, j])
         if _SEPARATED.fullmatch(cell):
             raise Problem(
                 400,
-                f"{name} row {i}, column {j} holds {cell!r}, a number with a point while "
-                f"{dialect.name} is in force: is the point a thousands separator? Remove "
+                f"{name} row {i}, column {j} holds {shown(cell, True)}, a number with a point "
+                f"while {dialect.name} is in force: is the point a thousands separator? Remove "
                 "thousands separators, or send `decimal=point` if points mark decimals.",
                 [Where((name, "rows", int(i), int(j)), "point in a number; decimal=comma")],
                 code=UNDECLARED,
@@ -273,8 +300,8 @@ def _refuse_commas(name: str, labels: dict[int, np.ndarray], dialect: Dialect) -
             if isinstance(cell, str) and "," in cell and _SEPARATED.fullmatch(cell):
                 raise Problem(
                     400,
-                    f"{name} row {i}, column {j} holds {cell!r}: with decimal=point (the "
-                    "default) that is not a number, and it is not guessed whether the comma "
+                    f"{name} row {i}, column {j} holds {shown(cell, True)}: with decimal=point "
+                    "(the default) that is not a number, and it is not guessed whether the comma "
                     "is a decimal mark (1,5 = 1.5) or a thousands separator (1,500 = 1500). "
                     "For decimal commas set `decimal=comma` (with `delimiter=;` for "
                     "semicolon-separated files); otherwise remove the thousands separators.",
@@ -290,18 +317,26 @@ def _convert(
 
     ``numbers`` is parsed; ``cells`` (the text as sent) is kept for labels.
     """
-    is_num = numbers != ""
+    is_num = np.ones(numbers.shape, dtype=bool)
     values = np.empty(numbers.shape)
     labels: dict[int, np.ndarray] = {}
     for j in range(numbers.shape[1]):
         col = numbers[:, j]
         if plain:
             try:
-                values[:, j] = np.where(is_num[:, j], col, "nan").astype(np.float64)
+                values[:, j] = col.astype(np.float64)  # every cell a number: the common case
+                continue
+            except ValueError:
+                is_num[:, j] = filled = col != ""
+            try:
+                values[:, j] = np.nan
+                values[filled, j] = col[filled].astype(np.float64)  # numbers and empty cells
                 continue
             except ValueError:
                 pass
-        objs = np.frompyfunc(_cell, 1, 1)(col)
+        else:
+            is_num[:, j] = col != ""
+        objs = np.frompyfunc(_cell, 1, 1)(col.astype(object))
         is_text = np.frompyfunc(lambda c: isinstance(c, str), 1, 1)(objs).astype(bool)
         is_none = np.frompyfunc(lambda c: c is None, 1, 1)(objs).astype(bool)
         values[:, j] = np.where(is_text | is_none, np.nan, objs).astype(np.float64)
@@ -335,26 +370,36 @@ def write_rows(
     cells: Sequence[Sequence[Any]],
     extra: dict[str, list[Any]],
     dialect: Dialect = PLAIN,
+    check: Callable[[], None] | None = None,
 ) -> str:
-    """The input rows as sent, then one column per entry of ``extra`` (already text or None)."""
+    """The input rows as sent, then one column per entry of ``extra`` (already text or None).
+
+    ``check`` (the request's time budget) is called every WRITE_CHECK_ROWS rows."""
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\r\n", delimiter=dialect.delimiter)
     writer.writerow([neutral(c) for c in (*columns, *extra)])
     added = list(zip(*extra.values(), strict=True)) if extra else [()] * len(cells)
-    for row, more in zip(cells, added, strict=True):
+    for i, (row, more) in enumerate(zip(cells, added, strict=True)):
+        if check is not None and i % WRITE_CHECK_ROWS == 0:
+            check()
         writer.writerow(
             [*(_text(c, dialect) for c in row), *("" if m is None else m for m in more)]
         )
     return out.getvalue()
 
 
+#: Rows written between two checks of the time budget (about 0.1 s of writing on one core).
+WRITE_CHECK_ROWS = 4096
+
+
 def write_table(
     columns: Sequence[str],
     rows: Sequence[Sequence[Any]],
     dialect: Dialect = PLAIN,
+    check: Callable[[], None] | None = None,
 ) -> str:
     """A table of text, numbers and None (empty cells) in the dialect."""
-    return write_rows(columns, rows, {}, dialect)
+    return write_rows(columns, rows, {}, dialect, check)
 
 
 def texts(values: Sequence[float | None], dialect: Dialect) -> list[str | None]:

@@ -35,15 +35,21 @@ class Number(fields.Float):
 
 
 class Scalar(fields.Field):
-    """A parameter value: text, a boolean or a finite number (checked further by the core)."""
+    """A parameter value: text (at most ``max_length`` characters), a boolean or a finite
+    number (checked further by the core)."""
 
     default_error_messages = {  # noqa: RUF012 - marshmallow's own convention
         "invalid": "Not a valid value: expected text, a boolean or a finite number.",
+        "long": "Longer than maximum length {max_length}.",
     }
 
-    def __init__(self, **kwargs: Any) -> None:
+    def __init__(self, max_length: int | None = None, **kwargs: Any) -> None:
         kwargs.setdefault("metadata", {})
-        kwargs["metadata"] = {"type": ["string", "number", "boolean"], **kwargs["metadata"]}
+        schema: dict[str, Any] = {"type": ["string", "number", "boolean"]}
+        if max_length is not None:
+            schema["maxLength"] = max_length  # applies to the text form only
+        kwargs["metadata"] = {**schema, **kwargs["metadata"]}
+        self.max_length = max_length
         super().__init__(**kwargs)
 
     def _deserialize(self, value: Any, attr: Any, data: Any, **kwargs: Any) -> Any:
@@ -51,6 +57,8 @@ class Scalar(fields.Field):
             raise self.make_error("invalid")
         if not isinstance(value, str | bool | int | float):
             raise self.make_error("invalid")
+        if isinstance(value, str) and self.max_length is not None and len(value) > self.max_length:
+            raise self.make_error("long", max_length=self.max_length)
         return value
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
@@ -35,18 +36,25 @@ def _training(intake: Intake, feature: str, target: str):
     return x[usable], y[usable], usable
 
 
-def predict_answer(result: PredictResult, intake: Intake) -> Response:
+def predict_answer(
+    result: PredictResult, intake: Intake, check: Callable[[], None] | None = None
+) -> Response:
+    """The SVG answer of a predict; ``check`` (the request's time budget,
+    ``job.deadline.check``) is passed on to the drawing."""
     x = y = rows = query = None
     if len(result.features) == 1:
         x, y, rows = _training(intake, result.features[0], result.target)
         query = _column(intake, "query", result.features[0])
-    svg = pictures.predict_svg(result, x, y, query, train_rows=rows)
+    svg = pictures.predict_svg(result, x, y, query, train_rows=rows, check=check)
     return Response(svg, content_type=f"{SVG}; charset=utf-8")
 
 
-def compare_answer(result: CompareResult, intake: Intake) -> Response:
+def compare_answer(
+    result: CompareResult, intake: Intake, check: Callable[[], None] | None = None
+) -> Response:
+    """The SVG answer of a comparison; ``check`` as for :func:`predict_answer`."""
     x = y = None
     if len(result.features) == 1:
         x, y, _ = _training(intake, result.features[0], result.target)
-    svg = pictures.compare_svg(result, x, y)
+    svg = pictures.compare_svg(result, x, y, check=check)
     return Response(svg, content_type=f"{SVG}; charset=utf-8")

@@ -8,6 +8,11 @@ character other than spaces (and a byte-order mark) is ``{``, otherwise a ``text
 
 ``delimiter`` and ``decimal`` (query string or form field; not part of the JSON document) set
 the CSV dialect of the parts read and of a CSV answer; see :mod:`nearwise.web.csvio`.
+
+Limits are checked before anything large is built: a JSON body whose commas and brackets
+(outside strings) count more values or arrays than a request within the limits holds is
+refused (413) before it is parsed (:func:`json_bounds`); CSV parts are checked while read
+(:func:`nearwise.web.csvio.read_csv`); a list form field holds at most :func:`most_items`.
 """
 
 from __future__ import annotations
@@ -22,8 +27,8 @@ from marshmallow import Schema
 from werkzeug.datastructures import FileStorage, MultiDict
 from werkzeug.formparser import FormDataParser
 
-from nearwise.core.errors import InvalidValue, Where
-from nearwise.web import forms
+from nearwise.core.errors import InvalidValue, Where, shown
+from nearwise.web import forms, prescan
 from nearwise.web.body import read_body, unsupported_media_type
 from nearwise.web.csvio import PLAIN, CsvPart, Dialect, dialect_from, read_csv
 from nearwise.web.jsonio import DuplicateKey, TooDeep, loads_strict
@@ -55,7 +60,7 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
         raise unsupported_media_type(READS)
     charset = request.mimetype_params.get("charset", "utf-8").lower()
     if charset not in ("utf-8", "us-ascii"):
-        raise Problem(415, f"Bodies are read as UTF-8; got charset={charset}.")
+        raise Problem(415, f"Bodies are read as UTF-8; got charset={shown(charset)}.")
     body = read_body(settings.max_body_bytes)
     limits = Limits(
         settings.max_rows, settings.max_columns, settings.max_cells, settings.max_query_rows
@@ -64,6 +69,7 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
         mimetype = JSON if body.removeprefix(b"\xef\xbb\xbf").lstrip()[:1] == b"{" else CSV
         body = body.removeprefix(b"\xef\xbb\xbf") if mimetype == JSON else body
     if mimetype == JSON:
+        _check_json_size(body, settings)
         return _json(body, limits, full)
     if mimetype == CSV:
         if request.mimetype_params.get("header", "present").lower() != "present":
@@ -76,9 +82,42 @@ def read_request(settings: Settings, full: Schema, fields_only: Schema) -> Intak
             raise Problem(
                 400, f"The {request.mimetype} body is empty; it should hold the train table."
             )
-        return _csv({"train": [body]}, MultiDict(), limits, fields_only)
+        return _csv({"train": [body]}, MultiDict(), limits, fields_only, most_items(settings))
     files, form = _multipart(body, settings.max_body_bytes)
-    return _csv(files, MultiDict([*form.items(multi=True)]), limits, fields_only)
+    form = MultiDict([*form.items(multi=True)])
+    return _csv(files, form, limits, fields_only, most_items(settings))
+
+
+def most_items(settings: Settings) -> int:
+    """The most items a list field (``features``, ``methods``, ``grid.NAME``) of a request
+    within the limits holds: more is always refused, so it is never parsed."""
+    return max(settings.max_columns, settings.max_grid, settings.max_methods)
+
+
+def json_bounds(settings: Settings) -> tuple[int, int]:
+    """The most values and the most arrays and objects a JSON request within the limits
+    holds: both tables at their cell and row limits, their column names, and room for the
+    other fields (every grid at its limit for a dozen parameters, and more)."""
+    query_rows = settings.max_rows if settings.max_query_rows is None else settings.max_query_rows
+    containers = settings.max_rows + query_rows + 1_000
+    other = 2 * settings.max_columns + 12 * settings.max_grid + 1_000
+    return 2 * settings.max_cells + containers + other, containers
+
+
+def _check_json_size(body: bytes, settings: Settings) -> None:
+    """Refuse (413) a JSON body that holds more values, or more arrays and objects, than any
+    request within the limits, before it is parsed (:mod:`nearwise.web.prescan`)."""
+    values, containers = json_bounds(settings)
+    found = prescan.json_over(body, values, containers)
+    if found is not None:
+        raise Problem(
+            413,
+            f"The body holds up to {found[0]} values in {found[1]} arrays and objects (by its "
+            f"commas and brackets); a request within the limits holds at most {values} values "
+            f"in {containers} arrays and objects (NEARWISE_MAX_ROWS, NEARWISE_MAX_QUERY_ROWS, "
+            "NEARWISE_MAX_CELLS, NEARWISE_MAX_COLUMNS). Send fewer rows per request.",
+            code="table_too_large",
+        )
 
 
 def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
@@ -100,7 +139,7 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
             422,
             "With a JSON body every field goes in the body; query-string parameters are not read "
             "(except `delimiter` and `decimal`, for a CSV answer, and `format`).",
-            [{"parameter": k, "message": "not read with a JSON body"} for k in extra],
+            [{"parameter": shown(k), "message": "not read with a JSON body"} for k in extra],
             code="invalid_request",
         )
     dialect = _dialect(request.args, MultiDict())
@@ -159,7 +198,8 @@ def _split_parts(items: list[tuple[str, Any]]) -> tuple[dict[str, list[bytes]], 
             parts.setdefault(name, []).append(data)
         elif isinstance(item, FileStorage):
             raise InvalidValue(
-                f"A file part named `{name}` was sent; only `train` and `query` are read as files.",
+                f"A file part named `{shown(name)}` was sent; only `train` and `query` are read "
+                "as files.",
                 [Where((name,), "unknown part")],
             )
         else:
@@ -167,7 +207,9 @@ def _split_parts(items: list[tuple[str, Any]]) -> tuple[dict[str, list[bytes]], 
     return parts, rest
 
 
-def _csv(parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema: Schema) -> Intake:
+def _csv(
+    parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema: Schema, items: int
+) -> Intake:
     dialect = _dialect(request.args, form)
     merged = MultiDict(
         [(k, v) for k, v in form.items(multi=True) if k not in DIALECT and k not in ANSWER]
@@ -183,7 +225,7 @@ def _csv(parts: dict[str, list[bytes]], form: MultiDict, limits: Limits, schema:
         if name in merged:
             raise forms.twice(name)
         merged.setlist(name, request.args.getlist(name))
-    doc = forms.collect(((k, merged.getlist(k)) for k in merged), schema)
+    doc = forms.collect(((k, merged.getlist(k)) for k in merged), schema, items)
     data = load(schema, doc)
     csv_parts: dict[str, CsvPart] = {}
     g.csv_parts = csv_parts

@@ -9,12 +9,14 @@ from typing import Any
 
 import numpy as np
 
+from nearwise.core.errors import shown
+
 
 class DuplicateKey(ValueError):
     """A JSON object names the same key twice; ``path`` points at the second one."""
 
     def __init__(self, path: tuple[str | int, ...]) -> None:
-        super().__init__(f"key `{path[-1]}` appears more than once in one object")
+        super().__init__(f"key `{shown(path[-1])}` appears more than once in one object")
         self.path = path
 
 

@@ -16,10 +16,16 @@ PROBLEM_WHEN = {
     413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked), or a table is "
     "over NEARWISE_MAX_ROWS (NEARWISE_MAX_QUERY_ROWS for a query), NEARWISE_MAX_COLUMNS or "
     "NEARWISE_MAX_CELLS.",
+    408: "The request head was not whole within NEARWISE_HEADER_TIMEOUT_S of its first byte, "
+    "or the body not within NEARWISE_BODY_TIMEOUT_S of the head (code `request_timeout`; "
+    "answered by `nearwise serve` itself, which then closes the connection).",
     414: "The request line (path and query string) is over the HTTP server's limit (4094 "
-    "bytes under `nearwise serve`): the server answers before the service, with its own "
-    "text/html page. Send long field lists as form fields or in a JSON body.",
-    415: "The body's media type is not one this endpoint reads.",
+    "bytes under `nearwise serve`; code `uri_too_long`, answered by the server before the "
+    "service). Send long field lists as form fields or in a JSON body.",
+    415: "The body's media type is not one this endpoint reads, or the body has a content "
+    "coding (`Content-Encoding` other than `identity`; code `unsupported_content_encoding`).",
+    431: "The request head is over the HTTP server's limits (code `header_too_large`): more "
+    "than 64 KiB, more than 100 fields, or a field over 8190 bytes under `nearwise serve`.",
     422: "Readable but invalid: unknown field, method or parameter, a bad cell (pointer to "
     "its row and column), too few rows for the folds, an unsupported dimension, a request "
     "over a limit of the service (code `over_limit`: grid size, folds x repeats, methods, "
@@ -46,15 +52,11 @@ PROBLEM_HEADERS = {
 }
 
 
-#: Statuses the HTTP server answers itself, before the service sees the request.
-SERVER_ANSWERS = {414: {"text/html": {"schema": {"type": "string"}}}}
-
-
 def problems(*statuses: int) -> dict[str, Any]:
     """``responses`` entries for the given problem statuses."""
     out: dict[str, Any] = {}
     for s in statuses:
-        content = SERVER_ANSWERS.get(s, {"application/problem+json": {"schema": ProblemSchema}})
+        content = {"application/problem+json": {"schema": ProblemSchema}}
         entry: dict[str, Any] = {"description": PROBLEM_WHEN[s], "content": content}
         if s in PROBLEM_HEADERS:
             entry["headers"] = PROBLEM_HEADERS[s]

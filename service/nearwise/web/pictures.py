@@ -63,6 +63,15 @@ _RC: dict[str, Any] = {
     "grid.alpha": 0.3,
 }
 _LOCK = threading.Lock()
+#: Seconds between two checks of the time budget while waiting for the lock.
+LOCK_POLL_S = 0.1
+#: Points drawn per series at most (training data, query points, residuals over time): a
+#: picture of 250,000 points took 20 s to write and weighed 65 MB, one of 10,000 points
+#: 0.7 s. Beyond it, evenly spaced ranks along x are drawn and the legend says so.
+MAX_POINTS = 10_000
+#: Query points drawn with their interval bars at most (each is two SVG elements).
+MAX_QUERY_POINTS = 2_000
+Check = Callable[[], None]
 
 _INK = "#222222"
 _DATA = "#7f7f7f"
@@ -92,6 +101,7 @@ def predict_svg(
     query_x: np.ndarray | None,
     *,
     train_rows: np.ndarray | None = None,
+    check: Check | None = None,
 ) -> str:
     """An SVG picture of a predict answer.
 
@@ -106,6 +116,9 @@ def predict_svg(
     Without a query the predictions concern the training rows; rows with flags (for example
     ``unusual_response``) are then circled on the data. ``train_rows`` gives the training-table
     row number of each entry of ``train_x`` when rows were dropped (default: 0, 1, ...).
+
+    Large answers are thinned (see :data:`MAX_POINTS`); ``check`` (the request's time
+    budget) is called while waiting for the drawing lock and between the drawing steps.
     """
     fit_panel = len(result.features) == 1 and (
         result.curve is not None or (train_x is not None and train_y is not None)
@@ -115,23 +128,27 @@ def predict_svg(
 
     series = result.series
 
-    def draw(fig: Figure) -> None:
+    def draw(fig: Figure, check: Check) -> None:
         axes = _panels(fig, 2 if fit_panel else 1, below=series is not None)
         if fit_panel:
             _draw_predict_fit(axes[0], result, train_x, train_y, query_x, train_rows)
+            check()
         _draw_tuning(axes[1 if fit_panel else 0], result.tuning, result.params)
         if series is not None:
-            draw_residuals(axes[-1], series, result.tuning, _name(series["column"]))
+            check()
+            draw_residuals(axes[-1], _thin_series(series), result.tuning, _name(series["column"]))
         _finish(fig, title, f"parameters: {chosen}", result.warnings)
 
     width = 11.0 if fit_panel else 6.4
-    return _render(draw, (width, 5.6 if series is None else 9.2), title)
+    return _render(draw, (width, 5.6 if series is None else 9.2), title, check)
 
 
 def compare_svg(
     result: CompareResult,
     train_x: np.ndarray | None,
     train_y: np.ndarray | None,
+    *,
+    check: Check | None = None,
 ) -> str:
     """An SVG picture of a comparison.
 
@@ -146,33 +163,76 @@ def compare_svg(
     title = f"Methods compared for {_name(result.target)} {_against(result.features)}"
     subtitle = f"recommended: {result.recommended}"
 
-    def draw(fig: Figure) -> None:
+    def draw(fig: Figure, check: Check) -> None:
         axes = _panels(fig, 2 if fit_panel else 1)
         if fit_panel:
             _draw_compare_fit(axes[0], result, train_x, train_y)
+            check()
         _draw_compare_tuning(axes[-1], result)
         _finish(fig, title, subtitle, result.warnings)
 
-    return _render(draw, (11.0, 5.6) if fit_panel else (6.4, 5.6), title)
+    return _render(draw, (11.0, 5.6) if fit_panel else (6.4, 5.6), title, check)
 
 
 # --------------------------------------------------------------------------- figure plumbing
 
 
-def _render(draw: Callable[[Figure], None], size: tuple[float, float], title: str) -> str:
-    with _LOCK, matplotlib.rc_context():
-        matplotlib.rcdefaults()
-        matplotlib.rcParams.update(_RC)
-        fig = Figure(figsize=size, layout="constrained")
-        FigureCanvasSVG(fig)
-        draw(fig)
-        out = io.BytesIO()
-        fig.savefig(
-            out,
-            format="svg",
-            metadata={"Date": None, "Creator": "nearwise", "Title": title},
-        )
+def _render(
+    draw: Callable[[Figure, Check], None],
+    size: tuple[float, float],
+    title: str,
+    check: Check | None = None,
+) -> str:
+    check = check or _unchecked
+    # Wait for the lock while the budget lasts: another request may be drawing.
+    while not _LOCK.acquire(timeout=LOCK_POLL_S):
+        check()
+    try:
+        with matplotlib.rc_context():
+            matplotlib.rcdefaults()
+            matplotlib.rcParams.update(_RC)
+            fig = Figure(figsize=size, layout="constrained")
+            FigureCanvasSVG(fig)
+            check()
+            draw(fig, check)
+            check()
+            out = io.BytesIO()
+            fig.savefig(
+                out,
+                format="svg",
+                metadata={"Date": None, "Creator": "nearwise", "Title": title},
+            )
+    finally:
+        _LOCK.release()
     return out.getvalue().decode("utf-8")
+
+
+def _unchecked() -> None:
+    return None
+
+
+def _thin(x: np.ndarray, mask: np.ndarray | None = None, most: int = 0) -> np.ndarray:
+    """Positions of at most ``most`` (default MAX_POINTS) of the entries of ``x`` selected by
+    ``mask`` (default all): all of them, or evenly spaced ranks in the order of ``x``."""
+    most = most or MAX_POINTS
+    idx = np.flatnonzero(np.ones(x.shape[0], dtype=bool) if mask is None else mask)
+    if idx.size <= most:
+        return idx
+    order = idx[np.argsort(x[idx], kind="stable")]
+    return np.sort(order[np.linspace(0, idx.size - 1, most).round().astype(int)])
+
+
+def _shown(label: str, kept: int, total: int) -> str:
+    return label if kept == total else f"{label} ({kept:,} of {total:,} shown)"
+
+
+def _thin_series(series: dict[str, Any]) -> dict[str, Any]:
+    """The residuals over time, at most MAX_POINTS of them (evenly spaced in time order)."""
+    t = np.asarray(series["t"])
+    if t.shape[0] <= MAX_POINTS:
+        return series
+    keep = np.linspace(0, t.shape[0] - 1, MAX_POINTS).round().astype(int)
+    return {**series, "t": t[keep], "residual": np.asarray(series["residual"])[keep]}
 
 
 def _panels(fig: Figure, count: int, below: bool = False) -> list[Axes]:
@@ -254,7 +314,9 @@ def _draw_predict_fit(
     ax.set_ylim(lo, hi)
 
     if has_data:
-        ax.scatter(tx, ty, s=14, color=_DATA, alpha=0.7, linewidths=0, label="training data")
+        keep = _thin(tx)
+        label = _shown("training data", keep.size, tx.shape[0])
+        ax.scatter(tx[keep], ty[keep], s=14, color=_DATA, alpha=0.7, linewidths=0, label=label)
         ax.collections[-1].set_gid("data")
     level = (result.interval or {}).get("level")
     band_label = f"{level:.0%} interval" if isinstance(level, float) else "interval"
@@ -286,6 +348,8 @@ def _draw_predict_fit(
             flags = tuple(pred.flags[r] for r in rows)
             flagged = np.array([bool(f) for f in flags], dtype=bool)
             if flagged.any():
+                total = int(flagged.sum())
+                flagged = np.isin(np.arange(tx.shape[0]), _thin(tx, flagged))
                 ax.scatter(
                     tx[flagged],
                     ty[flagged],
@@ -293,7 +357,11 @@ def _draw_predict_fit(
                     facecolors="none",
                     edgecolors=_FLAG,
                     linewidths=1.5,
-                    label=_flag_label("flagged training row", flags, flagged),
+                    label=_shown(
+                        _flag_label("flagged training row", flags, flagged),
+                        int(flagged.sum()),
+                        total,
+                    ),
                 )
                 ax.collections[-1].set_gid("flagged")
                 _flag_notes(ax, tx, ty, flags, flagged, "row", rows)
@@ -309,6 +377,9 @@ def _draw_points(ax, x, value, bars, mask, name: str, label: str) -> None:
     and color. ``bars`` is (lower, upper, lo, hi): unbounded ends are clipped to [lo, hi]."""
     if not mask.any():
         return
+    total = int(mask.sum())
+    mask = np.isin(np.arange(x.shape[0]), _thin(x, mask, MAX_QUERY_POINTS))
+    label = _shown(label, int(mask.sum()), total)
     lower, upper, lo, hi = bars
     plain = name == "query"
     color = _QUERY if plain else _FLAG
@@ -366,7 +437,9 @@ def _flag_notes(ax, x, y, flags, mask, word: str, rows: np.ndarray | None = None
 def _draw_compare_fit(ax: Axes, result: CompareResult, train_x, train_y) -> None:
     tx, ty = _column(train_x), _column(train_y)
     if tx is not None and ty is not None and tx.shape == ty.shape:
-        ax.scatter(tx, ty, s=14, color=_DATA, alpha=0.7, linewidths=0, label="training data")
+        keep = _thin(tx)
+        label = _shown("training data", keep.size, tx.shape[0])
+        ax.scatter(tx[keep], ty[keep], s=14, color=_DATA, alpha=0.7, linewidths=0, label=label)
         ax.collections[-1].set_gid("data")
     for i, name in enumerate(_method_order(result)):
         curve = (result.curves or {}).get(name)

@@ -3,6 +3,12 @@
 Body members: ``type``, ``title``, ``status``, ``detail``, ``code`` and ``errors``. Each entry
 of ``errors`` is ``{"pointer": RFC 6901 pointer, "message"}`` for JSON input or
 ``{"part", "line", "column", "message"}`` for a cell of a CSV part. No stack trace leaves.
+
+Echoes are bounded: a name, cell or header value a message repeats is cut to
+:data:`~nearwise.core.errors.ECHO_CHARS` (80) characters with its full length stated
+(:func:`~nearwise.core.errors.shown`), pointer segments and CSV column names included; as a
+backstop every ``detail`` is cut at :data:`DETAIL_CHARS`, every entry's text at
+:data:`ENTRY_CHARS`, and ``errors`` lists at most :data:`MAX_ERRORS` entries.
 """
 
 from __future__ import annotations
@@ -11,11 +17,12 @@ import logging
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Protocol
+from urllib.parse import urlsplit
 
 from flask import Flask, Response, g
 from werkzeug.exceptions import HTTPException
 
-from nearwise.core.errors import NearwiseError, OverBudget, Where
+from nearwise.core.errors import NearwiseError, OverBudget, Where, shown
 from nearwise.web.jsonio import dumps
 from nearwise.web.metrics import note_problem
 
@@ -23,6 +30,12 @@ PROBLEM_JSON = "application/problem+json"
 #: Seconds a client is asked to wait after a 503.
 RETRY_AFTER_S = 10
 log = logging.getLogger("nearwise.web")
+
+#: Backstops on a problem's size, whatever a message echoes: characters of ``detail``, of each
+#: text in an ``errors`` entry, and entries in ``errors``.
+DETAIL_CHARS = 4000
+ENTRY_CHARS = 1000
+MAX_ERRORS = 100
 
 #: Stable codes for HTTP-level problems, by status.
 HTTP_CODES = {
@@ -63,8 +76,10 @@ class CsvSource(Protocol):
 
 
 def pointer(path: Sequence[str | int]) -> str:
-    """RFC 6901 JSON Pointer for a path: ``("train", "rows", 3, 1)`` -> ``/train/rows/3/1``."""
-    return "".join("/" + str(p).replace("~", "~0").replace("/", "~1") for p in path)
+    """RFC 6901 JSON Pointer for a path: ``("train", "rows", 3, 1)`` -> ``/train/rows/3/1``.
+
+    A segment longer than ECHO_CHARS (a huge field name) is cut as :func:`shown` cuts it."""
+    return "".join("/" + shown(p).replace("~", "~0").replace("/", "~1") for p in path)
 
 
 def error_entry(where: Where, csv_parts: Mapping[str, CsvSource]) -> dict[str, Any]:
@@ -74,8 +89,8 @@ def error_entry(where: Where, csv_parts: Mapping[str, CsvSource]) -> dict[str, A
     if part is None:
         return {"pointer": pointer(path), "message": where.message}
     if len(path) < 2 or path[1] not in ("rows", "columns"):
-        return {"part": path[0], "message": where.message}
-    entry: dict[str, Any] = {"part": path[0]}
+        return {"part": shown(path[0]), "message": where.message}
+    entry: dict[str, Any] = {"part": shown(path[0])}
     if path[1] == "columns":
         entry["line"] = 1
         col = path[2] if len(path) > 2 else None
@@ -83,7 +98,7 @@ def error_entry(where: Where, csv_parts: Mapping[str, CsvSource]) -> dict[str, A
         entry["line"] = part.line_of(int(path[2])) if len(path) > 2 else None
         col = path[3] if len(path) > 3 else None
     if isinstance(col, int) and 0 <= col < len(part.columns):
-        entry["column"] = part.columns[col]
+        entry["column"] = shown(part.columns[col])
     entry["message"] = where.message
     return {k: v for k, v in entry.items() if v is not None}
 
@@ -96,19 +111,23 @@ def problem_response(
     errors: Sequence[dict[str, Any]] = (),
     headers: Mapping[str, str] | None = None,
 ) -> Response:
-    """Build the ``application/problem+json`` response."""
+    """Build the ``application/problem+json`` response (its texts bounded, see above)."""
     body = {
         "type": f"/problems/{code}",
         "title": title,
         "status": status,
-        "detail": detail,
+        "detail": shown(detail, limit=DETAIL_CHARS),
         "code": code,
-        "errors": list(errors),
+        "errors": [_bounded(e) for e in list(errors)[:MAX_ERRORS]],
     }
     note_problem(code)
     resp = Response(dumps(body), status=status, mimetype=PROBLEM_JSON)
     resp.headers.update(dict(headers or {}))
     return resp
+
+
+def _bounded(entry: dict[str, Any]) -> dict[str, Any]:
+    return {k: shown(v, limit=ENTRY_CHARS) if isinstance(v, str) else v for k, v in entry.items()}
 
 
 def _csv_parts() -> Mapping[str, CsvSource]:
@@ -132,6 +151,16 @@ def handle(exc: Exception) -> Response:
         headers = {k: v for k, v in exc.get_headers() if k.lower() not in ("content-type",)}
         code = HTTP_CODES.get(exc.code, "http_error")
         return problem_response(exc.code, _phrase(exc.code), _http_detail(exc), code, (), headers)
+    if isinstance(exc, MemoryError):  # the worker's address-space guard (worker.py)
+        log.warning("a request ran out of memory (NEARWISE_WORKER_MEMORY_MB)")
+        return problem_response(
+            503,
+            _phrase(503),
+            "The request needed more memory than a worker may use; send fewer rows or query "
+            "rows, or try again later.",
+            "out_of_memory",
+            headers={"Retry-After": str(RETRY_AFTER_S)},
+        )
     log.error("unexpected error while answering a request", exc_info=exc)
     return problem_response(
         500,
@@ -160,6 +189,27 @@ def _http_detail(exc: HTTPException) -> str:
     return str(exc.description or _phrase(exc.code or 500))
 
 
+def relative_location(resp: Response) -> Response:
+    """Make a redirect's ``Location`` a path on this host, never built from ``Host``.
+
+    Werkzeug's own redirects (a path with doubled slashes, ``/v1//predict``, is sent on to
+    ``/v1/predict`` with a 308) write an absolute URL from the request's ``Host`` header, which
+    a client or a proxy may set to any name. The path and query are kept; the scheme and host
+    are dropped (RFC 9110 section 10.2.2 allows a relative reference), leading slashes are
+    folded to one (``//name`` would name another host), and the redirect's HTML body, which
+    repeats the URL, is left out."""
+    target = resp.headers.get("Location")
+    if target is None or not 300 <= resp.status_code < 400:
+        return resp
+    parts = urlsplit(target)
+    path = "/" + parts.path.lstrip("/")
+    resp.headers["Location"] = path + (f"?{parts.query}" if parts.query else "")
+    resp.set_data(b"")
+    resp.headers.pop("Content-Type", None)
+    return resp
+
+
 def install(app: Flask) -> None:
-    """Register :func:`handle` for every exception."""
+    """Register :func:`handle` for every exception, and :func:`relative_location`."""
     app.register_error_handler(Exception, handle)
+    app.after_request(relative_location)

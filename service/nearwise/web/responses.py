@@ -87,6 +87,16 @@ class FitReportSchema(Strict):
     cv_r2 = _num("1 - cross-validated MSE / variance of the target.", nullable=True)
     train_error = _num("Error on the training rows.", nullable=True)
     df = _num("Effective degrees of freedom of the final fit.", nullable=True)
+    rows_zero_weight = fields.Integer(
+        metadata=_doc("Training rows of weight 0 in the `weight_by` column, left out of the fit.")
+    )
+    weight_by = fields.String(
+        allow_none=True,
+        metadata=_doc(
+            "The column of row weights (null: every row weighs 1). With weights, `cv_error`, "
+            "`cv_r2` and `train_error` are weighted means over the rows."
+        ),
+    )
 
 
 class IntervalReportSchema(Strict):

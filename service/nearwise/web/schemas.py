@@ -176,7 +176,7 @@ class _JobFields(Strict):
     )
     params = fields.Dict(
         keys=_name(),
-        values=Scalar(),
+        values=Scalar(MAX_NAME),
         metadata=_doc("Fixed parameter values; a fixed parameter is not tuned.", example={"k": 10}),
     )
     grid = fields.Dict(
@@ -193,6 +193,17 @@ class _JobFields(Strict):
     )
     tuning = fields.Nested(TuningSchema, metadata=_doc("Cross-validation settings."))
     interval = fields.Nested(IntervalSchema, metadata=_doc("Prediction interval settings."))
+    weight_by = _name(
+        metadata=_doc(
+            "A train column of row weights: numbers 0 or more, read as precision weights "
+            "(a row of weight w has noise variance sigma^2 / w, as in weighted least squares). "
+            "Every method fits the weighted criterion; cross-validated errors are weighted "
+            "means; a row of weight 0 is left out (counted in `fit.rows_zero_weight`). Not a "
+            "feature. A query table holding this column gives its rows' weights for the "
+            "intervals (positive); otherwise a predicted row has weight 1.",
+            example="n_readings",
+        )
+    )
 
 
 class PredictFields(_JobFields):
@@ -200,6 +211,7 @@ class PredictFields(_JobFields):
 
     method = fields.String(
         required=True,
+        validate=validate.Length(max=MAX_NAME),
         metadata=_doc(
             "`knn`, `linear`, `spline` or `additive`, or `auto` (compare them on the same "
             "folds and use the recommended one); see GET /v1/methods.",
@@ -213,7 +225,7 @@ class CompareFields(_JobFields):
     """Every compare field except the tables."""
 
     methods = fields.List(
-        fields.String(metadata={"enum": list(METHODS)}),
+        fields.String(validate=validate.Length(max=MAX_NAME), metadata={"enum": list(METHODS)}),
         validate=validate.Length(min=1),
         metadata=_doc(
             "Methods to compare, each once; default: every method that applies to the number "

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import asdict
 from typing import Any
 from urllib.parse import quote
@@ -15,10 +16,15 @@ from nearwise.web.jsonio import dumps, jsonable
 from nearwise.web.tables import Parsed
 
 _OPTIONAL = ("residual", "cv_residual", "std_error", "lower", "upper")
+#: Rows turned into JSON objects between two checks of the time budget (about 0.03 s).
+CHECK_ROWS = 4096
+Check = Callable[[], None]
 
 
-def compare_document(result: CompareResult, tuning: dict[str, Any]) -> dict[str, Any]:
-    """The JSON answer of ``POST /v1/compare``."""
+def compare_document(
+    result: CompareResult, tuning: dict[str, Any], check: Check | None = None
+) -> dict[str, Any]:
+    """The JSON answer of ``POST /v1/compare`` (``check``: see :func:`predict_document`)."""
     doc = {
         "target": result.target,
         "features": list(result.features),
@@ -30,7 +36,7 @@ def compare_document(result: CompareResult, tuning: dict[str, Any]) -> dict[str,
         "warnings": _warnings(result.warnings),
     }
     if result.prediction is not None:
-        doc["prediction"] = predict_document(result.prediction)
+        doc["prediction"] = predict_document(result.prediction, check)
     return doc
 
 
@@ -40,8 +46,9 @@ def _warnings(notices) -> list[dict[str, Any]]:
     ]
 
 
-def predict_document(result: PredictResult) -> dict[str, Any]:
-    """The JSON answer of ``POST /v1/predict``."""
+def predict_document(result: PredictResult, check: Check | None = None) -> dict[str, Any]:
+    """The JSON answer of ``POST /v1/predict``; ``check`` (the request's time budget,
+    ``job.deadline.check``) is called between blocks of rows."""
     tuning = asdict(result.tuning)
     doc = {
         "method": result.method,
@@ -52,7 +59,7 @@ def predict_document(result: PredictResult) -> dict[str, Any]:
         "fit": jsonable(asdict(result.fit)),
         "model": jsonable(result.model),
         "interval": jsonable(result.interval),
-        "predictions": prediction_rows(result.predictions),
+        "predictions": prediction_rows(result.predictions, check),
         "warnings": _warnings(result.warnings),
     }
     if result.comparison is not None:
@@ -74,16 +81,23 @@ def _flags(preds: Predictions, n: int) -> list[list[str]]:
     return [list(f) for f in preds.flags]
 
 
-def prediction_rows(preds: Predictions) -> list[dict[str, Any]]:
-    """One object per row: ``value``, then the optional members present, then ``flags``."""
+def prediction_rows(preds: Predictions, check: Check | None = None) -> list[dict[str, Any]]:
+    """One object per row: ``value``, then the optional members present, then ``flags``;
+    ``check`` is called before every CHECK_ROWS rows."""
     n = len(preds.value)
     names = ["value", *(k for k in _OPTIONAL if getattr(preds, k) is not None)]
     cols = [_column(getattr(preds, k)) for k in names]
     flags = _flags(preds, n)
-    return [
-        dict([*zip(names, vals, strict=True), ("flags", f)])
-        for *vals, f in zip(*cols, flags, strict=True)
-    ]
+    out: list[dict[str, Any]] = []
+    for start in range(0, n, CHECK_ROWS):
+        if check is not None:
+            check()
+        at = slice(start, start + CHECK_ROWS)
+        out.extend(
+            dict([*zip(names, vals, strict=True), ("flags", f)])
+            for *vals, f in zip(*(c[at] for c in cols), flags[at], strict=True)
+        )
+    return out
 
 
 def dataset_codes(result: PredictResult) -> list[str]:
@@ -91,29 +105,36 @@ def dataset_codes(result: PredictResult) -> list[str]:
     return list(dict.fromkeys(n.code for n in result.warnings if not n.rows))
 
 
-def predict_csv(result: PredictResult, rows: Parsed, dialect: Dialect = PLAIN) -> str:
+def predict_csv(
+    result: PredictResult, rows: Parsed, dialect: Dialect = PLAIN, check: Check | None = None
+) -> str:
     """The CSV answer: the rows' own columns as sent, then the prediction columns.
 
     ``rows`` is the query table, or the training table when there is no query; in that case
     ``residual`` and ``cv_residual`` columns follow ``prediction``. Numbers are written in
-    ``dialect`` (delimiter and decimal mark); echoed cells as sent.
+    ``dialect`` (delimiter and decimal mark); echoed cells as sent. ``check`` (the request's
+    time budget) is called between columns and blocks of rows.
     """
     preds = result.predictions
     n = len(preds.value)
-    extra: dict[str, list[Any]] = {"prediction": _texts(preds.value, n, dialect)}
+    extra: dict[str, list[Any]] = {"prediction": _texts(preds.value, n, dialect, check)}
     if preds.residual is not None:
-        extra["residual"] = _texts(preds.residual, n, dialect)
+        extra["residual"] = _texts(preds.residual, n, dialect, check)
     if preds.cv_residual is not None:
-        extra["cv_residual"] = _texts(preds.cv_residual, n, dialect)
+        extra["cv_residual"] = _texts(preds.cv_residual, n, dialect, check)
     for k in ("std_error", "lower", "upper"):
-        extra[k] = _texts(getattr(preds, k), n, dialect)
+        extra[k] = _texts(getattr(preds, k), n, dialect, check)
     extra["flags"] = [" ".join(f) for f in _flags(preds, n)]
-    return write_rows(rows.table.columns, rows.cells, extra, dialect)
+    return write_rows(rows.table.columns, rows.cells, extra, dialect, check)
 
 
-def _texts(values: np.ndarray | None, n: int, dialect: Dialect) -> list[str | None]:
+def _texts(
+    values: np.ndarray | None, n: int, dialect: Dialect, check: Check | None = None
+) -> list[str | None]:
     if values is None:
         return [None] * n
+    if check is not None:
+        check()
     return texts(_column(values), dialect)
 
 
@@ -141,15 +162,18 @@ def compare_codes(result: CompareResult) -> list[str]:
 LOCALITY_COLUMNS = ("nearest", "ratio", "flags")
 
 
-def locality_csv(doc: dict[str, Any], rows: Parsed, dialect: Dialect = PLAIN) -> str:
-    """Per query row: its cells as sent, then ``nearest``, ``ratio`` and ``flags``."""
+def locality_csv(
+    doc: dict[str, Any], rows: Parsed, dialect: Dialect = PLAIN, check: Check | None = None
+) -> str:
+    """Per query row: its cells as sent, then ``nearest``, ``ratio`` and ``flags``; ``check``
+    (the request's time budget) is called between blocks of rows."""
     query = doc["query"]
     extra: dict[str, list[Any]] = {
         "nearest": texts([_number(q["nearest"]) for q in query], dialect),
         "ratio": texts([_number(q["ratio"]) for q in query], dialect),
         "flags": [" ".join(q["flags"]) for q in query],
     }
-    return write_rows(rows.table.columns, rows.cells, extra, dialect)
+    return write_rows(rows.table.columns, rows.cells, extra, dialect, check)
 
 
 def locality_headers(doc: dict[str, Any], dialect: Dialect = PLAIN) -> dict[str, str]:

@@ -51,6 +51,17 @@ class Settings:
     time_budget_s: float = 30.0
     #: Seconds gunicorn lets in-flight requests finish after SIGTERM.
     graceful_timeout_s: int = 35
+    #: Seconds from the first byte of a request until its whole header must have arrived; past
+    #: it the answer is 408 and the connection closes. Headers are read without a thread.
+    header_timeout_s: float = 10.0
+    #: Seconds from the end of the header until the whole body must have arrived (408 past it),
+    #: and the longest an answer may take to send. Bodies are read without a thread, so waiting
+    #: costs a socket and the bytes so far: 120 s lets a 32 MiB body come at 2.3 Mbit/s.
+    body_timeout_s: float = 120.0
+    #: MiB of address space a worker may add to what it holds once loaded (about 0.37 GiB);
+    #: an allocation past it fails as a 503 ``out_of_memory`` answer instead of the OOM killer.
+    #: 0 turns the guard off.
+    worker_memory_mb: int = 3072
     api_keys: tuple[str, ...] = ()
     #: Service endpoints answered without an API key when keys are set (/v1/* always needs one).
     open_endpoints: tuple[str, ...] = ("/healthz", "/readyz", "/metrics")
@@ -120,6 +131,13 @@ def _positive_int(name: str, raw: str) -> int:
     text = raw.strip()
     if not text.isascii() or not text.isdigit() or int(text) < 1:
         raise SettingsError(f"{name} must be a positive integer; got {raw!r}.")
+    return int(text)
+
+
+def _non_negative_int(name: str, raw: str) -> int:
+    text = raw.strip()
+    if not text.isascii() or not text.isdigit():
+        raise SettingsError(f"{name} must be a whole number, 0 or more; got {raw!r}.")
     return int(text)
 
 
@@ -196,6 +214,9 @@ _READERS: dict[str, Callable[[str, str], Any]] = {
     "max_cost_s": _positive_float,
     "time_budget_s": _positive_float,
     "graceful_timeout_s": _positive_int,
+    "header_timeout_s": _positive_float,
+    "body_timeout_s": _positive_float,
+    "worker_memory_mb": _non_negative_int,
     "api_keys": _list,
     "open_endpoints": _open_endpoints,
     "cors_origins": _list,

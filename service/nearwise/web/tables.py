@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from nearwise.core.data import Table
-from nearwise.core.errors import BadCell, BadTable, Where
+from nearwise.core.errors import BadCell, BadTable, Where, shown
 from nearwise.web.problems import Problem
 
 _NUMERIC = {float, int, type(None)}
@@ -48,29 +48,56 @@ class Parsed:
     cells: list[list[Any]]
 
 
-def check_shape(name: str, columns: list[str], n_rows: int, limits: Limits) -> None:
-    """Refuse tables over the limits (413) and duplicate column names (422)."""
-    p = len(columns)
-    most = limits.max_rows
+def row_limit(name: str, limits: Limits) -> int:
+    """The row limit of the table ``name`` (the query's is the lower of its own and train's)."""
     if name == "query" and limits.max_query_rows is not None:
-        most = min(most, limits.max_query_rows)
+        return min(limits.max_rows, limits.max_query_rows)
+    return limits.max_rows
+
+
+def too_large(name: str, size: str, limits: Limits, path: tuple) -> Problem:
+    """The 413 for a table of ``size`` (``"300 rows x 2 columns"``) over the limits."""
+    most = row_limit(name, limits)
+    return Problem(
+        413,
+        f"The {name} table has {size}; the limits are "
+        f"{most} rows, {limits.max_columns} columns and {limits.max_cells} cells "
+        f"(NEARWISE_MAX_{'QUERY_' if most != limits.max_rows else ''}ROWS, "
+        "NEARWISE_MAX_COLUMNS, NEARWISE_MAX_CELLS).",
+        [Where(path, "table over the size limits")],
+        code="table_too_large",
+    )
+
+
+def most_rows(name: str, columns: list[str], limits: Limits) -> int:
+    """The most rows a table with these columns may have (rows and cells limits); a 413 if
+    the columns alone are over the limit. A reader stops one row past this number."""
+    p = len(columns)
+    if p > limits.max_columns:
+        raise too_large(name, f"{p} columns", limits, (name,))
+    return min(row_limit(name, limits), limits.max_cells // max(p, 1))
+
+
+def check_shape(
+    name: str, columns: list[str], n_rows: int, limits: Limits, stopped: bool = False
+) -> None:
+    """Refuse tables over the limits (413) and duplicate column names (422).
+
+    ``stopped``: reading stopped after ``n_rows`` rows, one past :func:`most_rows`; the table
+    holds at least that many."""
+    p = len(columns)
+    most = row_limit(name, limits)
     if n_rows > most or p > limits.max_columns or n_rows * p > limits.max_cells:
-        raise Problem(
-            413,
-            f"The {name} table has {n_rows} rows x {p} columns; the limits are "
-            f"{most} rows, {limits.max_columns} columns and {limits.max_cells} cells "
-            f"(NEARWISE_MAX_{'QUERY_' if most != limits.max_rows else ''}ROWS, "
-            "NEARWISE_MAX_COLUMNS, NEARWISE_MAX_CELLS).",
-            [Where((name, "rows") if n_rows > most else (name,), "table over the size limits")],
-            code="table_too_large",
-        )
+        rows = f"more than {n_rows - 1}" if stopped else str(n_rows)
+        path = (name, "rows") if n_rows > most else (name,)
+        raise too_large(name, f"{rows} rows x {p} columns", limits, path)
     seen: dict[str, int] = {}
     for j, col in enumerate(columns):
         _check_name(name, j, col)
         if col in seen:
             raise BadTable(
-                f"Column names must be unique; `{col}` appears more than once in {name}.",
-                [Where((name, "columns", j), f"duplicate column `{col}`")],
+                f"Column names must be unique; `{shown(col)}` appears more than once in {name}.",
+                [Where((name, "columns", j), f"duplicate column `{shown(col)}`")],
             )
         seen[col] = j
 

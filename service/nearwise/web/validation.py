@@ -6,7 +6,7 @@ from typing import Any
 
 from marshmallow import Schema, ValidationError, fields
 
-from nearwise.core.errors import InvalidValue, Where
+from nearwise.core.errors import InvalidValue, Where, shown
 
 
 def load(schema: Schema, doc: Any) -> dict[str, Any]:
@@ -16,9 +16,10 @@ def load(schema: Schema, doc: Any) -> dict[str, Any]:
     except ValidationError as exc:
         where = list(_flatten(exc.messages, schema, ()))
         first = where[0]
+        at = ".".join(shown(p) for p in first.path) or "the top level"
         raise InvalidValue(
-            f"The request is not valid: {len(where)} problem(s); the first is at "
-            f"`{'.'.join(map(str, first.path)) or 'the top level'}`: {first.message}",
+            f"The request is not valid: {len(where)} problem(s); the first is at `{at}`: "
+            f"{first.message}",
             where,
         ) from None
 

@@ -12,6 +12,10 @@ pass over the rows reduces every fold (``additive_basis``), and one SVD per fold
 candidate (``additive_solve``). Leave-one-out and GCV keep the basis and lambda-hat of all rows
 and are exact for them (the leverages of the penalized least squares).
 
+With row weights w_i the fit minimizes sum_i w_i (y_i - f(x_i))^2 plus the penalties: every
+reduction runs on the rows times sqrt(w_i), where the algebra (and REML, up to a constant) is
+the unweighted one. A training row's leverage is w_i x_i'(X'WX + S)^-1 x_i.
+
 References
 ----------
 Hastie, T. & Tibshirani, R. (1990). *Generalized Additive Models*, Chapman & Hall.
@@ -34,7 +38,7 @@ from nearwise.core.methods.additive_basis import (
 )
 from nearwise.core.methods.additive_model import FittedAdditive, FoldAdditive
 from nearwise.core.methods.additive_solve import Reduced, Smoother
-from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.methods.base import Method, Param, PathResult, row_weights
 
 GRID_SIZE = 20
 MAX_WIGGLY = 600  # penalized columns in all: each REML step factors a square system this size
@@ -91,7 +95,8 @@ class Additive(Method):
     )
     model_interval_doc = (
         "Bayesian band f +/- z sqrt(sigma^2 (1 + x0'(X'X + S)^-1 x0)); its coverage holds on "
-        "average over the design points rather than at every point (Nychka 1988)."
+        "average over the design points rather than at every point (Nychka 1988). With "
+        "`weight_by`, X'X is X'WX, sigma^2 = sum w e^2 / (n - df) and the 1 becomes 1 / w0."
     )
     references = (
         "Hastie & Tibshirani (1990), Generalized Additive Models",
@@ -120,21 +125,26 @@ class Additive(Method):
         return basis
 
     @staticmethod
-    def _fold_parts(basis, X, y, ids, k, check) -> list[np.ndarray]:
+    def _fold_parts(basis, X, y, ids, k, check, w=None) -> list[np.ndarray]:
         """The R factor of each test fold's rows (their union is the training folds)."""
-        return [reduce_rows(basis, X[ids == f], y[ids == f], check) for f in range(k)]
+        return [
+            reduce_rows(basis, X[ids == f], y[ids == f], check, None if w is None else w[ids == f])
+            for f in range(k)
+        ]
 
     def _full(self, X, y, folds, basis, work) -> Smoother:
         """lambda-hat and the SVD of all rows, computed once per run."""
         if work is not None and "full" in work:
             return work["full"]
+        w = row_weights(work)
         if folds is not None and folds.scheme == "kfold":
-            parts = self._fold_parts(basis, X, y, folds.fold_id[0], folds.n_folds, folds.check)
+            ids = folds.fold_id[0]
+            parts = self._fold_parts(basis, X, y, ids, folds.n_folds, folds.check, w)
             if work is not None:
                 work["fold_parts"] = parts
             aug = stack(parts)
         else:
-            aug = reduce_rows(basis, X, y, lambda: None)
+            aug = reduce_rows(basis, X, y, lambda: None, w)
         smoother = Smoother.of(Reduced.of(aug, basis.k, X.shape[0]), [b for _, b in basis.blocks])
         if work is not None:
             work["full"] = smoother
@@ -228,8 +238,9 @@ class Additive(Method):
         full = self._full(X, y, folds, basis, work)
         df = np.array([full.df(v) for v in s])
         blocks = [b for _, b in basis.blocks]
+        w = row_weights(work)
         if folds.scheme == "window":
-            return PathResult(self._window(X, y, folds, basis, full, s), df)
+            return PathResult(self._window(X, y, folds, basis, full, s, w), df)
         if folds.folded:
             oof = np.empty((s.size, folds.repeats, n))
             models = []
@@ -242,12 +253,13 @@ class Additive(Method):
                 elif r == 0 and work is not None and "fold_parts" in work:
                     parts = work["fold_parts"]
                 else:
-                    parts = self._fold_parts(basis, X, y, ids, k, folds.check)
+                    parts = self._fold_parts(basis, X, y, ids, k, folds.check, w)
                 for f in range(k):
                     folds.check()
                     train, test = folds.train_mask(f, ids), ids == f
                     if gapped:
-                        aug = reduce_rows(basis, X[train], y[train], folds.check)
+                        wt = None if w is None else w[train]
+                        aug = reduce_rows(basis, X[train], y[train], folds.check, wt)
                     else:
                         aug = stack([parts[g] for g in range(k) if g != f])
                     sm = Smoother.of(Reduced.of(aug, basis.k, int(train.sum())), blocks)
@@ -265,17 +277,21 @@ class Additive(Method):
             q1, g = full.pieces(*basis.design(X[start : start + BLOCK]))
             for c, v in enumerate(s):
                 h[c, start : start + BLOCK] = full.quad(q1, g, v)
+        if w is not None:
+            h *= w[None, :]  # w_i x_i'(X'WX + S)^-1 x_i
         with np.errstate(divide="ignore", invalid="ignore"):
             loo = y[None, :] - (y[None, :] - fitted) / (1 - h)
         loo = np.where(h < 1 - 1e-10, loo, np.nan)
         return PathResult(loo[:, None, :], df)
 
     @staticmethod
-    def _window(X, y, folds, basis, full: Smoother, s: np.ndarray) -> np.ndarray:
+    def _window(X, y, folds, basis, full: Smoother, s: np.ndarray, w=None) -> np.ndarray:
         """Leave-a-window-out predictions from the hat matrix of the fit to all rows, with the
         per-feature weights that REML chose on all rows held fixed (as for leave-one-out):
-        H_ab = q1_a . q1_b + sum_j g_aj g_bj / (sig2_j + s), from :meth:`Smoother.pieces`."""
+        H_ab = q1_a . q1_b + sum_j g_aj g_bj / (sig2_j + s), from :meth:`Smoother.pieces`
+        (with row weights, on the rows times sqrt(w), where H is symmetric)."""
         n = X.shape[0]
+        sw = np.ones(n) if w is None else np.sqrt(w)
         fitted = evaluate(basis, X, full.red.kept, full.coefs(s)).T
         q1 = np.empty((n, full.red.kept.size))
         g = np.empty((n, full.sig2.size))
@@ -286,12 +302,15 @@ class Additive(Method):
         oof = np.empty((s.size, 1, n))
         for c, v in enumerate(s):
             G = g / np.sqrt(full.sig2 + v)[None, :]
-            P = np.concatenate([q1, G], axis=1)
-            oof[c, 0] = windows.window_oof(
-                y,
-                fitted[c],
-                folds,
-                lambda rows, P=P: np.einsum("bik,bjk->bij", P[rows], P[rows]),
+            P = np.concatenate([q1, G], axis=1) * sw[:, None]
+            oof[c, 0] = (
+                windows.window_oof(
+                    y * sw,
+                    fitted[c] * sw,
+                    folds,
+                    lambda rows, P=P: np.einsum("bik,bjk->bij", P[rows], P[rows]),
+                )
+                / sw
             )
         return oof
 
@@ -299,4 +318,4 @@ class Additive(Method):
         basis = self._basis(X, settings, work)
         smoother = self._full(X, y, None, basis, work)
         names = tuple((work or {}).get("features") or (f"x{j}" for j in range(X.shape[1])))
-        return FittedAdditive(basis, smoother, float(value), X, y, names)
+        return FittedAdditive(basis, smoother, float(value), X, y, names, row_weights(work))

@@ -204,14 +204,21 @@ class Basis:
 
 
 def reduce_rows(
-    basis: Basis, X: np.ndarray, y: np.ndarray, check: Callable[[], None]
+    basis: Basis,
+    X: np.ndarray,
+    y: np.ndarray,
+    check: Callable[[], None],
+    w: np.ndarray | None = None,
 ) -> np.ndarray:
-    """R of the QR decomposition of [N, W, y] over the given rows, block by block."""
+    """R of the QR decomposition of [N, W, y] over the given rows, block by block; with row
+    weights ``w``, of the rows times sqrt(w) (weighted least squares)."""
     parts = []
     for start in range(0, X.shape[0], BLOCK):
         check()
         N, W = basis.design(X[start : start + BLOCK])
         D = np.column_stack([N, W, y[start : start + BLOCK]])
+        if w is not None:
+            D *= np.sqrt(w[start : start + BLOCK])[:, None]
         parts.append(np.linalg.qr(D, mode="r"))
     return stack(parts)
 

@@ -41,6 +41,9 @@ class FittedAdditive(BayesianBand):
     X: np.ndarray
     y: np.ndarray
     names: tuple[str, ...]
+    # Row weights (None: all 1): the fit is weighted least squares plus the penalties, and
+    # sigma^2 = sum w e^2 / (n - df) the noise variance of a row of weight 1.
+    row_w: np.ndarray | None = None
     coef: np.ndarray = field(init=False)
     fitted: np.ndarray = field(init=False)
     df: float = field(init=False)
@@ -64,7 +67,8 @@ class FittedAdditive(BayesianBand):
         room = self.n - self.df
         if room <= 1e-9:
             return float("nan")
-        return float(np.sum((self.y - self.fitted) ** 2) / room)
+        wt = 1.0 if self.row_w is None else self.row_w
+        return float(np.sum(wt * (self.y - self.fitted) ** 2) / room)
 
     def _pieces(self, Xq: np.ndarray, only: int | None = None):
         parts = [
@@ -89,8 +93,10 @@ class FittedAdditive(BayesianBand):
         return self._train
 
     def leverage(self) -> np.ndarray:
-        """A_ii of every training row (equal to its posterior variance in units of sigma^2)."""
-        return self.variance(self.X)
+        """A_ii of every training row: w_i x_i'(X'WX + S)^-1 x_i, its posterior variance in
+        units of sigma^2 times its weight."""
+        h = self.variance(self.X)
+        return h if self.row_w is None else h * self.row_w
 
     def loo_residuals(self) -> np.ndarray:
         """e_i / (1 - A_ii): exact leave-one-out residuals at the same basis and lambdas."""
@@ -108,6 +114,8 @@ class FittedAdditive(BayesianBand):
         inv = 1.0 / (self.smoother.sig2 + self.smoothing)
         base = self.predict(Xq)
         step = self.loo_residuals()
+        if self.row_w is not None:  # the smoother weight of row i carries its weight w_i
+            step = step * self.row_w
 
         def block(rows: np.ndarray) -> np.ndarray:
             weight = q1q[rows] @ q1t.T + (gq[rows] * inv) @ gt.T

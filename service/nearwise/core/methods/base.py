@@ -123,8 +123,22 @@ CV_PLUS_DOC = (
     "rows and multiplied back at the query (Lei et al. 2018, section 5.2). Bounds are widened "
     "where needed so that lower <= value <= upper. With `tuning.order_by`: CV+ on contiguous "
     "blocks (`blocks`) or the jackknife on leave-a-window-out residuals (`window`), widened by "
-    "sqrt(1 + 1/m) for m effective rows; no finite-sample guarantee for dependent rows."
+    "sqrt(1 + 1/m) for m effective rows; no finite-sample guarantee for dependent rows. "
+    "With `weight_by` the residuals are scaled by sqrt(w_i) and the interval at a query row "
+    "by 1 / sqrt(w0), w0 its weight (1 unless the query table holds the weight column)."
 )
+
+
+def row_weights(work: Mapping[str, Any] | None) -> np.ndarray | None:
+    """The rows' precision weights, ``work["weights"]`` (positive, one per row in the order of
+    ``X``), or None when every row weighs 1.
+
+    A weight w_i says Var(noise_i) = sigma^2 / w_i: every method minimizes the weighted sum of
+    squares sum_i w_i (y_i - f(x_i))^2 (plus its penalty), or, for kNN, averages the
+    neighbors' targets with weights w_i. The linear smoothers work on the rows multiplied by
+    sqrt(w_i), where their algebra is the unweighted one.
+    """
+    return None if work is None else work.get("weights")
 
 
 class Method:
@@ -132,7 +146,8 @@ class Method:
 
     Subclasses set the class attributes and implement ``candidates``, ``path`` and ``fit``.
     The pipeline calls them in that order on the same data; ``work`` is a scratch dict for
-    that one run, where a method may keep a factorization that a later step can reuse.
+    that one run, where a method may keep a factorization that a later step can reuse, and
+    where the pipeline passes the rows' weights (``work["weights"]``, see :func:`row_weights`).
     """
 
     name: str = ""
@@ -183,6 +198,11 @@ class Method:
     def is_bound(self, value: Any, folds: Folds, work: Mapping[str, Any] | None = None) -> bool:
         """Whether ``value`` is a hard limit of the tuned parameter (no widening possible)."""
         return False
+
+    def check_range(self, settings: Mapping[str, Any], grid, folds: Folds) -> None:
+        """Check values whose range depends on the data (``Param.data_range``) against the
+        folds. The pipeline calls it before the cost estimate, so that an out-of-range value
+        is refused as such and never priced; none by default."""
 
     def check_grid(self, grid: Mapping[str, Sequence[Any]], settings: Mapping[str, Any]):
         """Return the caller's candidate list for the tuned parameter, or None for the default."""

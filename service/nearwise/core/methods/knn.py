@@ -4,6 +4,11 @@ Ties at the k-th distance are shared out: the neighbors tied with the k-th one e
 fractional weight, so that the prediction does not depend on the order of the rows. Without
 ties this is the usual kNN average and equals scikit-learn's ``KNeighborsRegressor``.
 
+With row weights w_j the prediction is the weighted average sum w_j y_j / sum w_j over the
+neighbors (times 1/d_j with distance weights; a tied run's members enter with their equal
+fraction of their own weights): the ratio of the averages of w y and of w, each computed as
+above (:func:`_average`).
+
 References
 ----------
 Fix, E. & Hodges, J. L. (1951). Discriminatory analysis, nonparametric discrimination.
@@ -19,10 +24,11 @@ import numpy as np
 from scipy.spatial import cKDTree
 from sklearn.neighbors import NearestNeighbors
 
+from nearwise.core.budget import blocks
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
 from nearwise.core.locality import not_local_notice
-from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.methods.base import Method, Param, PathResult, row_weights
 from nearwise.core.results import Notice
 from nearwise.core.tuning import Folds
 
@@ -160,12 +166,14 @@ def predict_all_k(
     weights: str,
     self_rows: np.ndarray | None = None,
     drop: Drop | None = None,
+    w_index: np.ndarray | None = None,
 ) -> np.ndarray:
     """Predictions at ``Xq`` for every k in 1..kmax, shape (n_query, kmax).
 
     One query of kmax + 1 neighbors serves all k; rows whose tied run reaches past the window
     are queried again with a wider window until the run is complete. ``self_rows`` (each query
-    row's own index row) or ``drop`` name index rows a query row must not use.
+    row's own index row) or ``drop`` name index rows a query row must not use; ``w_index``
+    holds the index rows' weights (None: all 1).
     """
     n_index = y_index.shape[0]
     if self_rows is not None:
@@ -180,10 +188,19 @@ def predict_all_k(
         w = d.shape[1]
         open_run = (d[:, kmax - 1] == d[:, w - 1]) & (w < n_avail[rows])
         done = ~open_run
-        out[rows[done]] = _all_k(d[done], y_index[ind[done]], kmax, weights)
+        out[rows[done]] = _average(d[done], ind[done], y_index, w_index, kmax, weights)
         rows = rows[open_run]
         width = min(2 * width, int(n_avail.max()))
     return out
+
+
+def _average(d, ind, y, w, kmax: int, weights: str) -> np.ndarray:
+    """:func:`_all_k` of the neighbors ``ind``; with row weights ``w``, the weighted average
+    as the ratio of the averages of w y and of w."""
+    if w is None:
+        return _all_k(d, y[ind], kmax, weights)
+    wn = w[ind]
+    return _all_k(d, wn * y[ind], kmax, weights) / _all_k(d, wn, kmax, weights)
 
 
 def _complete_windows(index: Index, Xq: np.ndarray, need: int, n_index: int):
@@ -261,10 +278,25 @@ class FoldKNN:
     y: np.ndarray
     weights: str
     values: tuple[int, ...]
+    w: np.ndarray | None = None  # row weights (None: all 1)
 
     def predict(self, Xq: np.ndarray, c: int) -> np.ndarray:
         k = self.values[c]
-        return predict_all_k(self.index, self.y, self.scaler.transform(Xq), k, self.weights)[:, -1]
+        Xs = self.scaler.transform(Xq)
+        return _by_blocks(self.index, self.y, Xs, k, self.weights, self.w)
+
+
+def _by_blocks(
+    index: Index, y: np.ndarray, Xs: np.ndarray, k: int, weights: str, w=None
+) -> np.ndarray:
+    """The k-neighbor predictions at the scaled rows ``Xs``, in blocks of rows with the budget
+    checked before each: a block's neighbor windows hold at most FIT_BLOCK_CELLS entries, and
+    blocks are sized to take about budget.BLOCK_TARGET_S (a search on degenerate data costs a
+    thousand times more per row than on spread-out rows)."""
+    out = np.empty(Xs.shape[0])
+    for at in blocks(Xs.shape[0], most=max(1, FIT_BLOCK_CELLS // (k + 1))):
+        out[at] = predict_all_k(index, y, Xs[at], k, weights, w_index=w)[:, -1]
+    return out
 
 
 @dataclass
@@ -280,10 +312,12 @@ class FittedKNN:
     df: float
     typical_radius: float
     Xs: np.ndarray  # the scaled training rows
+    w: np.ndarray | None = None  # row weights (None: all 1)
 
     def predict(self, Xq: np.ndarray) -> np.ndarray:
         Xs = self.scaler.transform(Xq)
-        return predict_all_k(self.index, self.y, Xs, self.k, self.weights)[:, -1]
+        k = self.k
+        return _by_blocks(self.index, self.y, Xs, k, self.weights, self.w)
 
     def notices(self) -> list:
         n, p = self.index.n_samples_fit_, self.index.n_features_in_
@@ -313,11 +347,15 @@ class FittedKNN:
         Xs = self.scaler.transform(Xq)
         train = self.Xs
         span = train.max(axis=0) - train.min(axis=0)
-        _, ind = self.index.kneighbors(Xs, n_neighbors=self.k)
-        nb = train[ind]  # (m, k, p)
-        spread = nb.max(axis=1) - nb.min(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            wide = np.flatnonzero((spread > WIDE_FRACTION * span).any(axis=1))
+        is_wide = np.zeros(Xs.shape[0], dtype=bool)
+        # In blocks: the neighbors' rows (m, k, p) of every query row are never all held.
+        for at in blocks(Xs.shape[0], most=max(1, FIT_BLOCK_CELLS // (self.k * Xs.shape[1]))):
+            _, ind = self.index.kneighbors(Xs[at], n_neighbors=self.k)
+            nb = train[ind]  # (rows, k, p)
+            spread = nb.max(axis=1) - nb.min(axis=1)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                is_wide[at] = (spread > WIDE_FRACTION * span).any(axis=1)
+        wide = np.flatnonzero(is_wide)
         if not wide.size:
             return []
         return [
@@ -332,8 +370,12 @@ class FittedKNN:
 
     def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
         """sigma / sqrt(k): the noise in an average of k targets; the bias of the local
-        average is not included."""
-        return np.full(Xq.shape[0], sigma_cv / np.sqrt(self.k))
+        average is not included. With row weights, sigma / sqrt(the k neighbors' summed
+        weights), sigma the noise of a row of weight 1."""
+        if self.w is None:
+            return np.full(Xq.shape[0], sigma_cv / np.sqrt(self.k))
+        Xs = self.scaler.transform(Xq)
+        return sigma_cv / np.sqrt(self.k * _by_blocks(self.index, self.w, Xs, self.k, "uniform"))
 
     def loo_predictions(self, Xq: np.ndarray):
         """mu_{-i}(x0) for every training row i, by blocks of query rows.
@@ -350,7 +392,7 @@ class FittedKNN:
             for sub, d, ind in _complete_windows(self.index, Xs[rows], self.k + 1, n):
                 for j in range(d.shape[1]):
                     keep = np.delete(np.arange(d.shape[1]), j)
-                    pred = _all_k(d[:, keep], self.y[ind[:, keep]], self.k, self.weights)
+                    pred = _average(d[:, keep], ind[:, keep], self.y, self.w, self.k, self.weights)
                     out[sub, ind[:, j]] = pred[:, -1]
             return out
 
@@ -433,6 +475,12 @@ class KNN(Method):
                 [Where(path, f"outside [1, {hi}]")],
             )
 
+    def check_range(self, settings, grid, folds):
+        if "k" in settings:
+            self._check_k(settings["k"], folds, ("params", "k"))
+        for i, k in enumerate(grid or ()):
+            self._check_k(k, folds, ("grid", "k", i))
+
     def candidates(self, X, y, folds, settings, grid, work=None):
         if folds.scheme == "gcv":
             raise NotApplicable(
@@ -440,12 +488,10 @@ class KNN(Method):
                 "(leave-one-out is exact and costs one neighbor query).",
                 [Where(("tuning", "scheme"), "gcv does not apply to knn")],
             )
+        self.check_range(settings, grid, folds)
         if "k" in settings:
-            self._check_k(settings["k"], folds, ("params", "k"))
             return [settings["k"]]
         if grid is not None:
-            for i, k in enumerate(grid):
-                self._check_k(k, folds, ("grid", "k", i))
             return self.order(grid)
         return self.order(range(1, min(MAX_DEFAULT_K, self.max_k(folds)) + 1))
 
@@ -453,6 +499,7 @@ class KNN(Method):
         kmax = max(values)
         cols = np.asarray(values) - 1
         weights, scale = settings["weights"], settings["scale"]
+        w = row_weights(work)
         if folds.scheme in ("loo", "window"):
             # One neighbor query of all rows, each leaving out its own row (loo) or the rows
             # within the gap of its step (window); features scaled once with all rows.
@@ -471,7 +518,9 @@ class KNN(Method):
             for start in range(0, X.shape[0], step):
                 folds.check()
                 rows = np.arange(start, min(X.shape[0], start + step))
-                pred = predict_all_k(index, y, Xs[rows], kmax, weights, drop=drop.take(rows))
+                pred = predict_all_k(
+                    index, y, Xs[rows], kmax, weights, drop=drop.take(rows), w_index=w
+                )
                 oof[:, 0, rows] = pred[:, cols].T
             models = ()
         else:
@@ -480,10 +529,14 @@ class KNN(Method):
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
                 index = _index(sc.transform(X[train]))
-                pred = predict_all_k(index, y[train], sc.transform(X[test]), kmax, weights)
-                oof[:, r, test] = pred[:, cols].T
+                Xt = sc.transform(X[test])
+                for at in blocks(test.size, most=max(1, FIT_BLOCK_CELLS // (kmax + 1))):
+                    wt = None if w is None else w[train]
+                    pred = predict_all_k(index, y[train], Xt[at], kmax, weights, w_index=wt)
+                    oof[:, r, test[at]] = pred[:, cols].T
                 if r == 0 and folds.keep_models:
-                    models.append(FoldKNN(sc, index, y[train], weights, tuple(values)))
+                    wt = None if w is None else w[train]
+                    models.append(FoldKNN(sc, index, y[train], weights, tuple(values), wt))
         df = X.shape[0] / np.asarray(values, dtype=float)
         return PathResult(oof, df, fold_models=tuple(models))
 
@@ -498,16 +551,25 @@ class KNN(Method):
         fitted = np.empty(n)
         radius = np.empty(n)
         # In blocks of rows, so that the neighbor windows of 250,000 rows are never all held at
-        # once (each row's figures depend on its own window only).
-        step = max(1, FIT_BLOCK_CELLS // (k + 1))
-        for start in range(0, n, step):
-            block = np.arange(start, min(n, start + step))
+        # once (each row's figures depend on its own window only), sized by their time so
+        # that the budget is checked often (blocks() checks it before each).
+        for part in blocks(n, most=max(1, FIT_BLOCK_CELLS // (k + 1))):
+            block = np.arange(part.start, part.stop)
             for rows, d, ind in _complete_windows(index, Xs[block], min(k + 1, n), n):
                 at = block[rows]
-                fitted[at] = _all_k(d, y[ind], k, settings["weights"])[:, -1]
+                fitted[at] = _average(d, ind, y, row_weights(work), k, settings["weights"])[:, -1]
                 is_self = ind == at[:, None]
                 order = np.argsort(is_self, axis=1, kind="stable")
                 radius[at] = np.take_along_axis(d, order, axis=1)[:, min(k, n - 1) - 1]
         return FittedKNN(
-            k, settings["weights"], sc, index, y, fitted, n / k, float(np.median(radius)), Xs
+            k,
+            settings["weights"],
+            sc,
+            index,
+            y,
+            fitted,
+            n / k,
+            float(np.median(radius)),
+            Xs,
+            row_weights(work),
         )

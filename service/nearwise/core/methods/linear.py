@@ -25,9 +25,9 @@ from nearwise.core import windows
 from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
 from nearwise.core.methods import penalized
-from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.methods.base import Method, Param, PathResult, row_weights
 from nearwise.core.methods.linear_fit import FittedLinear, FoldLinear
-from nearwise.core.methods.polynomial import design, monomials, qr_kept
+from nearwise.core.methods.polynomial import design, monomials, qr_kept, weighted_sums
 from nearwise.core.results import Notice
 
 __all__ = ["FittedLinear", "FoldLinear", "Linear", "monomials"]
@@ -105,7 +105,9 @@ class Linear(Method):
         "sqrt(1 + x0' (X'X)^-1 x0); exact when the polynomial is the true mean and the noise "
         "is normal with constant variance. With `tuning.order_by`, x0' (X'X)^-1 x0 sigma^2 is "
         "replaced by the HAC variance of the mean (Newey & West 1987, Bartlett weights, "
-        "floor(4 (n/100)^(2/9)) lags, rows in time order). Not offered with a penalty"
+        "floor(4 (n/100)^(2/9)) lags, rows in time order). Not offered with a penalty. With "
+        "`weight_by`: weighted least squares, X'X is X'WX, sigma^2 = sum w e^2 / (n - p) and "
+        "the new observation's 1 becomes 1 / w0 (statsmodels WLS get_prediction)"
     )
     references = (
         "Montgomery, Peck & Vining (2012), Introduction to Linear Regression Analysis, 5th ed.",
@@ -231,12 +233,17 @@ class Linear(Method):
         top = self._terms(p, max(values), settings)
         D = design(sc.transform(X), top)
         sizes = [len(self._terms(p, d, settings)) for d in values]
+        # Weighted least squares is least squares on the rows times sqrt(w) (Dw, yw); fits
+        # are evaluated on the unscaled design.
+        w = row_weights(work)
+        sw = np.ones(n) if w is None else np.sqrt(w)
+        Dw, yw = D * sw[:, None], y * sw
         if folds.keep_models:
             oof = np.empty((len(values), folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
-                Q, R, kept = qr_kept(D[train])
-                qty = Q.T @ y[train]
+                Q, R, kept = qr_kept(Dw[train])
+                qty = Q.T @ yw[train]
                 betas = []
                 for c, size in enumerate(sizes):
                     q = int(np.count_nonzero(kept < size))
@@ -245,26 +252,29 @@ class Linear(Method):
                     betas.append((kept[:q], beta))
                 if r == 0:
                     models.append(FoldLinear(sc, top, tuple(betas)))
-            _, _, kept = qr_kept(D)
+            _, _, kept = qr_kept(Dw)
             df = np.array([np.count_nonzero(kept < size) for size in sizes], dtype=float)
             return PathResult(oof, df, fold_models=tuple(models))
-        Q, R, kept = qr_kept(D)
-        qty = Q.T @ y
+        Q, R, kept = qr_kept(Dw)
+        qty = Q.T @ yw
         fits = np.cumsum(Q * qty[None, :], axis=1)
-        lev = np.cumsum(Q**2, axis=1)
+        lev = np.cumsum(Q**2, axis=1)  # weighted leverages h_ii = w_i x_i'(X'WX)^-1 x_i
         qs = [int(np.count_nonzero(kept < size)) - 1 for size in sizes]
-        fitted = fits[:, qs].T  # (candidates, n)
+        fitted = fits[:, qs].T / sw[None, :]  # (candidates, n)
         df = np.asarray([q + 1 for q in qs], dtype=float)
         if folds.scheme == "window":
-            # Leave-a-window-out from the hat matrix Q Q' of the fit to all rows.
+            # Leave-a-window-out from the hat matrix Q Q' of the fit to all (scaled) rows.
             oof = np.empty((len(values), 1, n))
             for c, q in enumerate(qs):
                 Qc = Q[:, : q + 1]
-                oof[c, 0] = windows.window_oof(
-                    y,
-                    fitted[c],
-                    folds,
-                    lambda rows, Qc=Qc: np.einsum("bik,bjk->bij", Qc[rows], Qc[rows]),
+                oof[c, 0] = (
+                    windows.window_oof(
+                        yw,
+                        fitted[c] * sw,
+                        folds,
+                        lambda rows, Qc=Qc: np.einsum("bik,bjk->bij", Qc[rows], Qc[rows]),
+                    )
+                    / sw
                 )
             return PathResult(oof, df)
         if folds.scheme == "gcv":
@@ -283,17 +293,18 @@ class Linear(Method):
         terms = self._terms(p, int(value), settings)
         sc = Scaler.fit(X, "standard")
         D = design(sc.transform(X), terms)
-        Q, R, kept = qr_kept(D)
+        w = row_weights(work)
+        sw = np.ones(n) if w is None else np.sqrt(w)
+        Q, R, kept = qr_kept(D * sw[:, None])
         if n <= kept.size:
             raise InvalidValue(
                 f"degree {value} cannot be fitted to {n} rows: {kept.size} of its terms are "
                 "determined, which leaves no residual degrees of freedom. Use a lower degree.",
                 [Where(("params", "degree"), "degree too high for these data")],
             )
-        beta = linalg.solve_triangular(R, Q.T @ y)
+        beta = linalg.solve_triangular(R, Q.T @ (y * sw))
         fitted = D[:, kept] @ beta
-        rss = float(np.sum((y - fitted) ** 2))
-        tss = float(np.sum((y - y.mean()) ** 2))
+        rss, tss = weighted_sums(y, fitted, w)
         sigma = float(np.sqrt(rss / (n - kept.size)))
         r2 = 1.0 - rss / tss if tss > 0 else 1.0
         names = tuple((work or {}).get("features") or (f"x{j}" for j in range(p)))
@@ -304,5 +315,5 @@ class Linear(Method):
         if line is not None:
             if line.key.shape != y.shape:
                 raise ValueError("the timeline does not match the rows fitted")
-            hac, lags = FittedLinear.hac_root(Q, y - fitted, line.key)
-        return FittedLinear(terms, kept, sc, beta, Q, R, y, fitted, sigma, r2, names, hac, lags)
+            hac, lags = FittedLinear.hac_root(Q, (y - fitted) * sw, line.key)
+        return FittedLinear(terms, kept, sc, beta, Q, R, y, fitted, sigma, r2, names, hac, lags, w)

@@ -77,6 +77,13 @@ class FittedLinear:
     # With order_by: C (k x k) with the HAC covariance of ``beta`` = R^-1 C C' R^-T, and L.
     hac: np.ndarray | None = None
     hac_lags: int | None = None
+    # Row weights (None: all 1). Weighted least squares: Q R is the QR of the design rows
+    # times sqrt(w), sigma^2 = sum w e^2 / (n - p) the variance of a row of weight 1.
+    w: np.ndarray | None = None
+
+    @property
+    def _sw(self) -> np.ndarray:
+        return np.ones(self.y.size) if self.w is None else np.sqrt(self.w)
 
     @staticmethod
     def hac_root(Q: np.ndarray, resid: np.ndarray, key: np.ndarray) -> tuple[np.ndarray, int]:
@@ -148,22 +155,29 @@ class FittedLinear:
             return self._spread(self._a(Xq))
         return self.sigma * self.leverage_root(Xq)
 
-    def model_interval(self, Xq: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
+    def model_interval(
+        self, Xq: np.ndarray, level: float, w0: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
         """t interval for a new observation, t = t(n - p, (1 + level) / 2).
 
         Classical: f +/- t sigma sqrt(1 + h0). With order_by: f +/- t sqrt(se_HAC(f)^2 +
         sigma^2), se_HAC(f) the HAC standard error of the fitted mean (:meth:`std_error`).
+        A new observation of weight w0 (1 unless given) has noise variance sigma^2 / w0:
+        f +/- t sigma sqrt(1 / w0 + h0), as statsmodels' ``WLS.get_prediction(exog,
+        weights=w0).summary_frame(obs=True)``.
         """
         t = stats.t.ppf(0.5 + level / 2, self.n - self.kept.size)
+        noise = self.sigma if w0 is None else self.sigma / np.sqrt(w0)
         if self.hac is not None:
-            half = t * np.hypot(self.sigma, self._spread(self._a(Xq)))
+            half = t * np.hypot(noise, self._spread(self._a(Xq)))
         else:
             root = self.leverage_root(Xq)
-            half = t * self.sigma * np.hypot(1.0, root)
+            half = t * np.hypot(noise, self.sigma * root)
         f = self.predict(Xq)
         return f - half, f + half
 
     def _leverage_train(self) -> np.ndarray:
+        """h_ii = w_i x_i'(X'WX)^-1 x_i, the diagonal of the (weighted) hat matrix."""
         return np.sum(self.Q**2, axis=1)
 
     def loo_residuals(self) -> np.ndarray:
@@ -174,8 +188,11 @@ class FittedLinear:
         """mu_{-i}(x0) = mu(x0) - a0'q_i e_i / (1 - h_i) for every training row i (Belsley,
         Kuh & Welsch 1980)."""
         A = self._a(Xq)
-        base = A @ (self.Q.T @ self.y)  # equals predict(Xq)
-        step = self.loo_residuals()
+        sw = self._sw
+        base = A @ (self.Q.T @ (self.y * sw))  # equals predict(Xq)
+        # With weights, q_i is the row of Q of the scaled design: the step is sqrt(w_i) e_i /
+        # (1 - h_i).
+        step = self.loo_residuals() * sw
 
         def block(rows: np.ndarray) -> np.ndarray:
             return base[rows, None] - (A[rows] @ self.Q.T) * step[None, :]
@@ -184,8 +201,12 @@ class FittedLinear:
 
     def query_notices(self, Xq: np.ndarray) -> list[Notice]:
         """``high_leverage``: h0 above the largest training leverage, the hidden
-        extrapolation of Montgomery, Peck & Vining (2012, section 3.8)."""
-        return high_leverage(self.leverage_root(Xq), self._leverage_train(), "x0'(X'X)^-1 x0")
+        extrapolation of Montgomery, Peck & Vining (2012, section 3.8). With weights both
+        sides are x'(X'WX)^-1 x, the training rows' leverages divided by their weights."""
+        h = self._leverage_train()
+        if self.w is not None:
+            h = h / self.w
+        return high_leverage(self.leverage_root(Xq), h, "x0'(X'X)^-1 x0")
 
     def aliased(self) -> list[str]:
         dropped = sorted(set(range(len(self.terms))) - set(self.kept.tolist()))

@@ -9,6 +9,13 @@ intercept is not penalized. ``alpha`` means what it means in scikit-learn on tho
 - lasso minimizes ||y - b0 - Z w||^2 / (2 n) + alpha ||w||_1 (``sklearn.linear_model.Lasso``),
   n the number of rows being fitted.
 
+With row weights w_i the squares are weighted, as scikit-learn's ``sample_weight`` does:
+ridge minimizes sum_i w_i (y_i - b0 - z_i'b)^2 + alpha ||b||^2 (``Ridge``, weights as given)
+and lasso sum_i w_i (y_i - b0 - z_i'b)^2 / (2 sum_i w_i) + alpha ||b||_1 (``Lasso``, which
+rescales the weights to sum to n). The standardizations (of the features, then of the basis
+columns) use the weighted mean and sd, as ``StandardScaler().fit(X, sample_weight=w)``; the
+solvers run on the centered rows times sqrt(w_i), where the algebra below is unweighted.
+
 Ridge's whole path comes from one SVD of the centered basis per fold, w = V diag(d / (d^2 +
 alpha)) U'y, and its leave-one-out and GCV scores from the hat matrix of the full-data SVD.
 Lasso's path is scikit-learn's coordinate-descent ``lasso_path`` per fold, warm-started along
@@ -40,9 +47,9 @@ from sklearn.linear_model import lasso_path
 from nearwise.core import windows
 from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
-from nearwise.core.methods.base import PathResult
+from nearwise.core.methods.base import PathResult, row_weights
 from nearwise.core.methods.penalized_fit import FittedPenalized
-from nearwise.core.methods.polynomial import design, monomials
+from nearwise.core.methods.polynomial import design, monomials, weighted_scaler
 
 PENALTIES = ("ridge", "lasso")
 GRID_SIZE = 30
@@ -75,10 +82,15 @@ class Basis:
     constant: np.ndarray
 
     @classmethod
-    def fit(cls, X: np.ndarray, terms: list[tuple[int, ...]]) -> Basis:
-        scaler = Scaler.fit(X, "standard")
+    def fit(cls, X: np.ndarray, terms: list[tuple[int, ...]], w: np.ndarray | None = None) -> Basis:
+        """Standardizations learned from the rows ``X`` (weighted by ``w`` if given)."""
+        scaler = weighted_scaler(X, w)
         B = design(scaler.transform(X), terms)[:, 1:]
-        mean, sd = B.mean(axis=0), B.std(axis=0)
+        if w is None:
+            mean, sd = B.mean(axis=0), B.std(axis=0)
+        else:
+            mean = np.average(B, axis=0, weights=w)
+            sd = np.sqrt(np.average((B - mean) ** 2, axis=0, weights=w))
         constant = (np.ptp(B, axis=0) == 0) | (sd <= CONSTANT_TOL * np.max(np.abs(B), axis=0))
         return cls(scaler, terms, mean, np.where(constant, 1.0, sd), constant)
 
@@ -153,19 +165,36 @@ def lasso_coefs(Zc: np.ndarray, yc: np.ndarray, alphas) -> tuple[np.ndarray, np.
     return W, converged
 
 
-def solve(Z, y, penalty, alphas):
+def centered(Z, y, w):
+    """(weighted) column means, mean of y, and the centered rows times sqrt(w)."""
+    if w is None:
+        zbar, ybar = Z.mean(axis=0), float(y.mean())
+        return zbar, ybar, Z - zbar, y - ybar
+    zbar, ybar = np.average(Z, axis=0, weights=w), float(np.average(y, weights=w))
+    sw = np.sqrt(w)
+    return zbar, ybar, (Z - zbar) * sw[:, None], (y - ybar) * sw
+
+
+def lasso_scale(w, n: int) -> float:
+    """The factor on alpha for the scaled rows r~ = sqrt(w) r: sum w r^2 / (2 sum w) + alpha
+    |b|_1 is (n / sum w) (|r~|^2 / (2 n) + alpha (sum w / n) |b|_1), lasso_path's objective
+    at alpha sum w / n."""
+    return 1.0 if w is None else float(np.sum(w)) / n
+
+
+def solve(Z, y, penalty, alphas, w=None):
     """Intercepts (one per alpha), coefficients W (columns per alpha) and convergence flags.
 
     ``Z`` is the basis on the rows being fitted; it is centered here, so the intercept is the
-    unpenalized b0 = mean y - mean(Z) w.
+    unpenalized b0 = mean y - mean(Z) w (weighted means with weights ``w``).
     """
-    zbar, ybar = Z.mean(axis=0), float(y.mean())
-    Zc, yc = Z - zbar, y - ybar
+    zbar, ybar, Zc, yc = centered(Z, y, w)
     converged = np.ones(len(alphas), dtype=bool)
     if penalty == "ridge":
         W = RidgeSVD.of(Zc, yc).coefs(alphas)
     else:
-        W, converged = lasso_coefs(Zc, yc, alphas)
+        scaled = np.asarray(alphas, dtype=float) * lasso_scale(w, y.size)
+        W, converged = lasso_coefs(Zc, yc, scaled)
     return ybar - zbar @ W, W, converged
 
 
@@ -196,22 +225,26 @@ def terms_for(p: int, settings) -> list[tuple[int, ...]]:
 
 def _full(X, y, terms, penalty, work) -> tuple[Basis, np.ndarray, RidgeSVD | None]:
     """The basis, Z and (ridge) the SVD on all rows, kept in ``work`` for the later steps."""
-    key = (id(X), id(y), X.shape, tuple(terms), penalty)
+    w = row_weights(work)
+    key = (id(X), id(y), id(w), X.shape, tuple(terms), penalty)
     cached = (work or {}).get("penalized_full")
     if cached is not None and cached[0] == key:
         return cached[1]
-    basis = Basis.fit(X, terms)
+    basis = Basis.fit(X, terms, w)
     Z = basis.transform(X)
-    svd = RidgeSVD.of(Z - Z.mean(axis=0), y - y.mean()) if penalty == "ridge" else None
+    svd = RidgeSVD.of(*centered(Z, y, w)[2:]) if penalty == "ridge" else None
     full = (basis, Z, svd)
     if work is not None:
         work["penalized_full"] = (key, full)
     return full
 
 
-def default_grid(penalty: str, Z: np.ndarray, y: np.ndarray, svd: RidgeSVD | None) -> list[float]:
+def default_grid(
+    penalty: str, Z: np.ndarray, y: np.ndarray, svd: RidgeSVD | None, w=None
+) -> list[float]:
     if penalty == "lasso" or svd is None:
-        top = float(np.max(np.abs((Z - Z.mean(axis=0)).T @ (y - y.mean())))) / y.size
+        _, _, Zc, yc = centered(Z, y, w)
+        top = float(np.max(np.abs(Zc.T @ yc))) / (y.size if w is None else float(np.sum(w)))
     else:
         top = RIDGE_TOP * float(svd.d[0]) ** 2 if svd.d.size else 0.0
     if not top > 0:  # constant target or constant features: every alpha gives the mean
@@ -235,9 +268,9 @@ def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
     elif grid is not None:
         values = order([float(v) for v in grid])
     else:
-        values = default_grid(penalty, Z, y, svd)
+        values = default_grid(penalty, Z, y, svd, row_weights(work))
     if work is not None and penalty == "lasso":
-        work["lasso_alpha_max"] = default_grid("lasso", Z, y, None)[0]
+        work["lasso_alpha_max"] = default_grid("lasso", Z, y, None, row_weights(work))[0]
     return values
 
 
@@ -246,44 +279,54 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
     penalty = settings.get("penalty")
     terms = terms_for(X.shape[1], settings)
     _, Z, svd = _full(X, y, terms, penalty, work)
+    w = row_weights(work)
+    # On the rows times sqrt(w): the intercept's column is sqrt(w), its hat matrix
+    # sqrt(w) sqrt(w)' / sum w (1/n without weights).
+    sw = np.ones(n) if w is None else np.sqrt(w)
+    total = float(np.sum(sw**2))
+    ybar = float(np.sum(sw**2 * y) / total)
     if folds.scheme == "window" and svd is not None:
         # Ridge: leave-a-window-out from the hat matrix 1/n + U diag(shrink) U' of all rows.
         S = svd.shrink(values)
-        fitted = y.mean() + (svd.U @ (S * svd.uty[:, None])).T
+        fitted = ybar + (svd.U @ (S * svd.uty[:, None])).T / sw[None, :]
         oof = np.empty((len(values), 1, n))
         for c in range(len(values)):
-            Us = svd.U * np.sqrt(S[:, c])[None, :]
-            oof[c, 0] = windows.window_oof(
-                y,
-                fitted[c],
-                folds,
-                lambda rows, Us=Us: 1.0 / n + np.einsum("bik,bjk->bij", Us[rows], Us[rows]),
+            Us = np.column_stack([sw / np.sqrt(total), svd.U * np.sqrt(S[:, c])[None, :]])
+            oof[c, 0] = (
+                windows.window_oof(
+                    y * sw,
+                    fitted[c] * sw,
+                    folds,
+                    lambda rows, Us=Us: np.einsum("bik,bjk->bij", Us[rows], Us[rows]),
+                )
+                / sw
             )
         return PathResult(oof, 1.0 + S.sum(axis=0))
     if folds.folded:
         oof = np.empty((len(values), folds.repeats, n))
         models = []
         for r, _f, train, test in folds.splits():
-            fold = Basis.fit(X[train], terms)
-            b0, W, _ = solve(fold.transform(X[train]), y[train], penalty, values)
+            wt = None if w is None else w[train]
+            fold = Basis.fit(X[train], terms, wt)
+            b0, W, _ = solve(fold.transform(X[train]), y[train], penalty, values, wt)
             oof[:, r, test] = b0[:, None] + (fold.transform(X[test]) @ W).T
             if r == 0 and folds.keep_models:
                 models.append(FoldPenalized(fold, b0, W))
         if svd is not None:
             df = 1.0 + svd.shrink(values).sum(axis=0)
         else:
-            _, W, converged = solve(Z, y, penalty, values)
+            _, W, converged = solve(Z, y, penalty, values, w)
             if work is not None:
                 work["lasso_full"] = (dict(zip(values, W.T, strict=True)), converged)
             df = 1.0 + np.count_nonzero(W, axis=0)
         return PathResult(oof, df.astype(float), fold_models=tuple(models))
     assert svd is not None  # ridge only: candidates refuse lasso with loo and gcv
     S = svd.shrink(values)
-    fitted = y.mean() + (svd.U @ (S * svd.uty[:, None])).T
+    fitted = ybar + (svd.U @ (S * svd.uty[:, None])).T / sw[None, :]
     df = 1.0 + S.sum(axis=0)
     if folds.scheme == "gcv":
         return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
-    h = (1.0 / n + svd.U**2 @ S).T
+    h = ((sw**2 / total)[:, None] + svd.U**2 @ S).T
     with np.errstate(divide="ignore", invalid="ignore"):
         loo = y[None, :] - (y[None, :] - fitted) / (1 - h)
     loo = np.where(h < 1 - 1e-10, loo, np.nan)
@@ -294,38 +337,39 @@ def fit(X, y, settings, alpha, names, work=None) -> FittedPenalized:
     penalty = settings.get("penalty")
     basis, Z, svd = _full(X, y, terms_for(X.shape[1], settings), penalty, work)
     lasso = (work or {}).get("lasso_full")
-    return fit_with(basis, Z, y, penalty, float(alpha), names, svd, lasso)
+    return fit_with(basis, Z, y, penalty, float(alpha), names, svd, lasso, row_weights(work))
 
 
-def fit_with(basis, Z, y, penalty, alpha, names, svd=None, lasso=None) -> FittedPenalized:
-    """The fit on rows whose basis ``Z`` was computed with ``basis`` (fixed standardization)."""
-    zbar, ybar = Z.mean(axis=0), float(y.mean())
+def fit_with(basis, Z, y, penalty, alpha, names, svd=None, lasso=None, w=None) -> FittedPenalized:
+    """The fit on rows whose basis ``Z`` was computed with ``basis`` (fixed standardization),
+    weighted by ``w`` if given."""
+    zbar, ybar, Zc, yc = centered(Z, y, w)
     if penalty == "ridge":
-        svd = svd or RidgeSVD.of(Z - zbar, y - ybar)
-        w = svd.coefs([alpha])[:, 0]
+        svd = svd or RidgeSVD.of(Zc, yc)
+        coef = svd.coefs([alpha])[:, 0]
         U, d, V, g_hat = svd.U, svd.d, svd.V, svd.gain([alpha])[:, 0]
         g_var = d**2 * g_hat**2
         converged = True
     else:
         if lasso is not None and alpha in lasso[0]:
-            w = lasso[0][alpha]
+            coef = lasso[0][alpha]
             converged = bool(lasso[1][list(lasso[0]).index(alpha)])
         else:
-            W, conv = lasso_coefs(Z - zbar, y - ybar, [alpha])
-            w, converged = W[:, 0], bool(conv[0])
-        active = np.flatnonzero(w)
-        sub = RidgeSVD.of((Z - zbar)[:, active], y - ybar)
+            W, conv = lasso_coefs(Zc, yc, [alpha * lasso_scale(w, y.size)])
+            coef, converged = W[:, 0], bool(conv[0])
+        active = np.flatnonzero(coef)
+        sub = RidgeSVD.of(Zc[:, active], yc)
         U, d = sub.U, sub.d
-        V = np.zeros((w.size, d.size))
+        V = np.zeros((coef.size, d.size))
         V[active] = sub.V
         g_hat = g_var = sub.gain([0.0])[:, 0]  # least squares on the kept terms
-    b0 = ybar - zbar @ w
+    b0 = ybar - zbar @ coef
     return FittedPenalized(
         basis=basis,
         penalty=penalty,
         alpha=alpha,
         b0=float(b0),
-        w=w,
+        w=coef,
         zbar=zbar,
         U=U,
         d=d,
@@ -333,7 +377,8 @@ def fit_with(basis, Z, y, penalty, alpha, names, svd=None, lasso=None) -> Fitted
         g_hat=g_hat,
         g_var=g_var,
         y=y,
-        fitted=b0 + Z @ w,
+        fitted=b0 + Z @ coef,
         names=names,
         converged=converged,
+        row_w=w,
     )

@@ -14,6 +14,10 @@ Cov(w) = sigma^2 V diag(g_var) V'.
 
 sigma^2 = RSS / (n - df), with df = 1 + sum d^2 / (d^2 + alpha) for ridge and 1 + the number
 of nonzero coefficients for the lasso (Zou, Hastie & Tibshirani 2007).
+
+With row weights w_i (``row_w``), Zc and U are the weighted-centered rows times sqrt(w_i):
+1/n becomes 1/sum w, RSS = sum w_i e_i^2 and sigma^2 is the variance of a row of weight 1
+(Var(noise_i) = sigma^2 / w_i); h_ii = w_i / sum w + sum_j U_ij^2 d_j^2 g_hat_j.
 """
 
 from __future__ import annotations
@@ -30,6 +34,7 @@ from nearwise.core.methods.polynomial import (
     raw_transform,
     row_norms,
     term_name,
+    weighted_sums,
 )
 from nearwise.core.results import Notice
 
@@ -57,10 +62,20 @@ class FittedPenalized:
     fitted: np.ndarray
     names: tuple[str, ...]
     converged: bool = True
+    row_w: np.ndarray | None = None  # row weights (None: all 1)
 
     @property
     def n(self) -> int:
         return int(self.y.size)
+
+    @property
+    def _wt(self) -> np.ndarray:
+        return np.ones(self.y.size) if self.row_w is None else self.row_w
+
+    @property
+    def _total(self) -> float:
+        """sum w (n without weights): 1 / sum w is the variance factor of the intercept."""
+        return float(self.n) if self.row_w is None else float(np.sum(self.row_w))
 
     @property
     def df(self) -> float:
@@ -70,7 +85,7 @@ class FittedPenalized:
 
     @property
     def sigma(self) -> float:
-        rss = float(np.sum((self.y - self.fitted) ** 2))
+        rss = float(np.sum(self._wt * (self.y - self.fitted) ** 2))
         dof = self.n - self.df
         return float(np.sqrt(rss / dof)) if dof > 0 else float("nan")
 
@@ -81,8 +96,8 @@ class FittedPenalized:
         return (self.basis.transform(Xq) - self.zbar) @ self.V
 
     def _root(self, P: np.ndarray, g: np.ndarray) -> np.ndarray:
-        """sqrt(1/n + sum_j P_j^2 g_j) per row, without overflow in the squares."""
-        first = np.full((P.shape[0], 1), 1.0 / np.sqrt(self.n))
+        """sqrt(1/n + sum_j P_j^2 g_j) per row (1 / sum w with weights), without overflow."""
+        first = np.full((P.shape[0], 1), 1.0 / np.sqrt(self._total))
         return row_norms(np.hstack([first, P * np.sqrt(g)]))
 
     def std_error(self, Xq: np.ndarray, sigma_cv: float) -> np.ndarray:
@@ -93,9 +108,9 @@ class FittedPenalized:
         return self._root(self._proj(Xq), self.g_hat)
 
     def _leverage_train(self) -> np.ndarray:
-        return 1.0 / self.n + self.U**2 @ (self.d**2 * self.g_hat)
+        return self._wt / self._total + self.U**2 @ (self.d**2 * self.g_hat)
 
-    def model_interval(self, Xq: np.ndarray, level: float):
+    def model_interval(self, Xq: np.ndarray, level: float, w0=None):
         raise NotApplicable(
             f"linear with `penalty: {self.penalty}` has no model interval: the t interval "
             "assumes unbiased least squares. Use `interval.kind: cv_plus`.",
@@ -109,23 +124,27 @@ class FittedPenalized:
     def loo_predictions(self, Xq: np.ndarray):
         """mu_{-i}(x0) = mu(x0) - s_i(x0) e_i / (1 - h_ii), with s_i(x0) = 1/n +
         z0'V diag(g_hat) V'z_i the weight of row i at x0 (penalized least squares with a fixed
-        design; exact for ridge)."""
+        design; exact for ridge). With weights, s_i(x0) = w_i / sum w + sqrt(w_i) z0'V
+        diag(g_hat) d U_i'."""
         base = self.predict(Xq)
         P = self._proj(Xq)
-        right = self.U * (self.d * self.g_hat)[None, :]
+        right = self.U * (self.d * self.g_hat)[None, :] * np.sqrt(self._wt)[:, None]
         step = self.loo_residuals()
+        first = self._wt / self._total
 
         def block(rows: np.ndarray) -> np.ndarray:
-            weight = 1.0 / self.n + P[rows] @ right.T
+            weight = first[None, :] + P[rows] @ right.T
             return base[rows, None] - weight * step[None, :]
 
         return block
 
     def query_notices(self, Xq: np.ndarray) -> list[Notice]:
         """``high_leverage``: h0 = 1/n + z0'V diag(g_hat) V'z0 above the largest training
-        leverage (the fit's own hat matrix)."""
+        leverage (the fit's own hat matrix; with weights, the leverages divided by them)."""
         return high_leverage(
-            self.leverage_root(Xq), self._leverage_train(), f"(the {self.penalty} fit's hat matrix)"
+            self.leverage_root(Xq),
+            self._leverage_train() / self._wt,
+            f"(the {self.penalty} fit's hat matrix)",
         )
 
     def _names(self, idx, names) -> list[str]:
@@ -153,7 +172,7 @@ class FittedPenalized:
         L[1:, 1:] = np.diag(1.0 / b.sd)
         theta = np.concatenate([[self.b0 + self.zbar @ self.w], self.w])
         G = np.zeros((q + 1, self.d.size + 1))
-        G[0, 0] = 1.0 / np.sqrt(self.n)
+        G[0, 0] = 1.0 / np.sqrt(self._total)
         G[1:, 1:] = self.V * np.sqrt(self.g_var)[None, :]
         TL = raw_transform(b.terms, b.scaler.shift, b.scaler.scale) @ L
         est = TL @ theta
@@ -193,6 +212,5 @@ class FittedPenalized:
         return out
 
     def _r2(self) -> float:
-        rss = float(np.sum((self.y - self.fitted) ** 2))
-        tss = float(np.sum((self.y - self.y.mean()) ** 2))
+        rss, tss = weighted_sums(self.y, self.fitted, self.row_w)
         return 1.0 - rss / tss if tss > 0 else 1.0

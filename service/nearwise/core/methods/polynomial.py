@@ -20,6 +20,7 @@ from math import comb
 
 import numpy as np
 
+from nearwise.core.data import Scaler
 from nearwise.core.results import Notice
 
 ALIAS_TOL = 1e-9
@@ -72,6 +73,26 @@ def qr_kept(D: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     if kept.size < D.shape[1]:
         Q, R = np.linalg.qr(D[:, kept])
     return Q, R, kept
+
+
+def weighted_scaler(X: np.ndarray, w: np.ndarray | None) -> Scaler:
+    """Standardization by the weighted mean and the weighted sd (ddof 0), as scikit-learn's
+    ``StandardScaler().fit(X, sample_weight=w)``; ``Scaler.fit(X, "standard")`` when ``w`` is
+    None. A column whose spread is rounding noise is divided by 1, as in :class:`Scaler`."""
+    if w is None:
+        return Scaler.fit(X, "standard")
+    shift = np.average(X, axis=0, weights=w)
+    scale = np.sqrt(np.average((X - shift) ** 2, axis=0, weights=w))
+    noise = 64 * np.finfo(float).eps * np.max(np.abs(X), axis=0) if X.size else 0.0
+    return Scaler(shift, np.where(scale > noise, scale, 1.0))
+
+
+def weighted_sums(y: np.ndarray, fitted: np.ndarray, w: np.ndarray | None) -> tuple[float, float]:
+    """The residual and the total sum of squares about the mean, both weighted by ``w``
+    (R^2 = 1 - RSS / TSS, as statsmodels' WLS reports it)."""
+    wt = np.ones_like(y) if w is None else w
+    ybar = float(np.sum(wt * y) / np.sum(wt))
+    return float(np.sum(wt * (y - fitted) ** 2)), float(np.sum(wt * (y - ybar) ** 2))
 
 
 def raw_transform(terms: list[tuple[int, ...]], shift: np.ndarray, scale: np.ndarray) -> np.ndarray:

@@ -3,6 +3,11 @@
 ``smoothing`` is the lam of ``scipy.interpolate.make_smoothing_spline`` (one feature) or of
 ``scipy.interpolate.RBFInterpolator(kernel="thin_plate_spline")`` (two or three features, after
 ``scale``). Larger smoothing is simpler; 0 interpolates.
+
+With row weights w_i the criterion is sum_i w_i (y_i - f(x_i))^2 + lam J(f): the weights of
+``make_smoothing_spline(x, y, w=w, lam=lam)``, and for thin-plate splines the system of
+``RBFInterpolator(..., smoothing=lam / w)`` (the smoothing term scaled by 1 / w_i). Knot
+placement and feature scaling do not use the weights.
 """
 
 from __future__ import annotations
@@ -14,7 +19,7 @@ from nearwise.core import windows
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import NotApplicable, TooFewRows, UnsupportedDimension, Where
 from nearwise.core.methods import spline1d, thinplate
-from nearwise.core.methods.base import Method, Param, PathResult
+from nearwise.core.methods.base import Method, Param, PathResult, row_weights
 from nearwise.core.methods.spline_fits import (
     FittedSpline1D,
     FittedThinPlate,
@@ -73,7 +78,8 @@ class Spline(Method):
     model_interval_doc = (
         "Bayesian band f +/- z sqrt(sigma^2 (1 + v(x0))) (Wahba 1983). Its coverage holds on "
         "average across the design points, not at every point (Nychka 1988): it can be too "
-        "narrow where the curve bends sharply."
+        "narrow where the curve bends sharply. With `weight_by`, sigma^2 = sum w e^2 / (n - df) "
+        "and the 1 becomes 1 / w0 for a new observation of weight w0."
     )
     references = (
         "Green & Silverman (1994), Nonparametric Regression and Generalized Linear Models",
@@ -178,7 +184,8 @@ class Spline(Method):
 
     def _default_grid(self, X, y, folds, settings, work):
         if X.shape[1] == 1:
-            t, _, w = spline1d.average_ties(self._snap(X[:, 0], work).x, y)
+            xs = self._snap(X[:, 0], work).x
+            t, _, w = spline1d.average_ties(xs, y, row_weights(work))
             top = max(t.size / 2, 4.0)
             targets = 2 + np.geomspace(0.25, top - 2, GRID_SIZE)
             return self.order(spline1d.lam_for_df(t, w, targets).tolist())
@@ -195,7 +202,7 @@ class Spline(Method):
         if "eigen" not in work:
             Xs = Scaler.fit(X, self._scale(settings)).transform(X)
             kind = thinplate.Eigen if folds.scheme == "loo" else thinplate.Tridiagonal
-            work["eigen"] = kind(Xs)
+            work["eigen"] = kind(Xs, row_weights(work))
         return work["eigen"]
 
     # -- one feature ------------------------------------------------------------------
@@ -205,7 +212,7 @@ class Spline(Method):
         if work is None:
             return spline1d.Snap.of(x)
         if "snap" not in work:
-            work["snap"] = spline1d.Snap.of(x)
+            work["snap"] = spline1d.Snap.of(x, row_weights(work))
         return work["snap"]
 
     def _path_1d(self, x, y, folds, lams, work):
@@ -214,7 +221,8 @@ class Spline(Method):
         smoother diagonal of the fit to all rows."""
         n = x.size
         xs = self._snap(x, work).x
-        t, ybar, w = spline1d.average_ties(xs, y)
+        rw = row_weights(work)
+        t, ybar, w = spline1d.average_ties(xs, y, rw)
         full = spline1d.Knots.build(t, w)
         diags = [full.diag_smoother(lam) for lam in lams]
         df = np.array([d.sum() for d in diags])
@@ -224,7 +232,8 @@ class Spline(Method):
             oof = np.empty((lams.size, folds.repeats, n))
             models = []
             for r, _f, train, test in folds.splits():
-                tt, yy, ww = spline1d.average_ties(spline1d.Snap.of(x[train]).x, y[train])
+                wt = None if rw is None else rw[train]
+                tt, yy, ww = spline1d.average_ties(spline1d.Snap.of(x[train], wt).x, y[train], wt)
                 kn = spline1d.Knots.build(tt, ww)
                 fits = [kn.solve(yy, lam) for lam in lams]
                 for c, (g, gam) in enumerate(fits):
@@ -237,21 +246,31 @@ class Spline(Method):
         for c, lam in enumerate(lams):
             g, _ = full.solve(ybar, lam)
             fitted[c] = g[inv]
+        # A row's weight (1 without weights) over its knot's: its share of the knot's mean.
+        share = (np.ones(n) if rw is None else rw) / w[inv]
         if folds.scheme == "window":
-            # Leave-a-window-out from the hat matrix of the fit to all rows (at their knots).
+            # Leave-a-window-out from the hat matrix of the fit to all rows (at their knots),
+            # on the rows times sqrt(w), where it is the symmetric sqrt(w_i) Hk sqrt(w_j).
+            sw = np.ones(n) if rw is None else np.sqrt(rw)
             oof = np.empty((lams.size, 1, n))
             for c, lam in enumerate(lams):
                 Hk = full.hat(float(lam))
-                oof[c, 0] = windows.window_oof(
-                    y,
-                    fitted[c],
-                    folds,
-                    lambda rows, Hk=Hk: Hk[inv[rows][:, :, None], inv[rows][:, None, :]],
+                oof[c, 0] = (
+                    windows.window_oof(
+                        y * sw,
+                        fitted[c] * sw,
+                        folds,
+                        lambda rows, Hk=Hk: (
+                            Hk[inv[rows][:, :, None], inv[rows][:, None, :]]
+                            * (sw[rows][:, :, None] * sw[rows][:, None, :])
+                        ),
+                    )
+                    / sw
                 )
             return PathResult(oof, df)
         if folds.scheme == "gcv":
             return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
-        h = np.array([d[inv] / w[inv] for d in diags])
+        h = np.array([d[inv] * share for d in diags])
         with np.errstate(divide="ignore", invalid="ignore"):
             loo = y[None, :] - (y[None, :] - fitted) / (1 - h)
         loo = np.where(h < 1 - 1e-10, loo, np.nan)
@@ -261,6 +280,7 @@ class Spline(Method):
     def _path_tps(self, X, y, folds, lams, scale, work):
         n = X.shape[0]
         full = self._full_eigen(X, folds, {"scale": scale}, work)
+        rw = row_weights(work)
         df = full.df(lams)
         if work is not None:
             work["df"] = dict(zip(lams.tolist(), df.tolist(), strict=True))
@@ -269,7 +289,9 @@ class Spline(Method):
             models = []
             for r, _f, train, test in folds.splits():
                 sc = Scaler.fit(X[train], scale)
-                eig = thinplate.Tridiagonal(sc.transform(X[train]))
+                eig = thinplate.Tridiagonal(
+                    sc.transform(X[train]), None if rw is None else rw[train]
+                )
                 C, B = eig.coefficients(y[train], lams)
                 oof[:, r, test] = eig.predict(C, B, sc.transform(X[test])).T
                 if r == 0 and folds.keep_models:
@@ -278,7 +300,7 @@ class Spline(Method):
         eig = full
         C, _ = eig.coefficients(y, lams)
         if folds.scheme == "gcv":
-            fitted = (y[:, None] - lams[None, :] * C).T
+            fitted = (y[:, None] - lams[None, :] * C / eig.w[:, None]).T
             return PathResult(fitted[:, None, :], df, gcv_scale=1 - df / n)
         loo = (y[:, None] - eig.loo_residuals(C, lams)).T
         return PathResult(loo[:, None, :], df)
@@ -295,9 +317,10 @@ class Spline(Method):
 
     def fit(self, X, y, settings, value, work=None):
         lam = float(value)
+        rw = row_weights(work)
         if X.shape[1] == 1:
             snap = self._snap(X[:, 0], work)
-            t, ybar, w = spline1d.average_ties(snap.x, y)
+            t, ybar, w = spline1d.average_ties(snap.x, y, rw)
             kn = spline1d.Knots.build(t, w)
             g, gam = kn.solve(ybar, lam)
             df = self._df(work, lam)
@@ -306,11 +329,11 @@ class Spline(Method):
             fitted = kn.evaluate(g, gam, X[:, 0])
             df = df if np.isfinite(df) else None
             column = np.searchsorted(t, snap.x)
-            return FittedSpline1D(kn, g, gam, lam, fitted, df, snap, y, column)
+            return FittedSpline1D(kn, g, gam, lam, fitted, df, snap, y, column, rw)
         sc = Scaler.fit(X, self._scale(settings))
         Xs = sc.transform(X)
         try:
-            c, b = thinplate.solve_direct(Xs, y, lam)
+            c, b = thinplate.solve_direct(Xs, y, lam, rw)
         except linalg.LinAlgError:
             raise TooFewRows(
                 "smoothing 0 interpolates every row and needs distinct feature rows; some "
@@ -319,6 +342,6 @@ class Spline(Method):
             ) from None
         df = self._df(work, lam)
         if df is None:
-            df = float(thinplate.Tridiagonal(Xs).df(np.array([lam]))[0])
+            df = float(thinplate.Tridiagonal(Xs, rw).df(np.array([lam]))[0])
         fitted = thinplate.kernel(Xs, Xs) @ c + thinplate.poly(Xs) @ b
-        return FittedThinPlate(sc, Xs, c, b, lam, fitted, df, y)
+        return FittedThinPlate(sc, Xs, c, b, lam, fitted, df, y, rw)

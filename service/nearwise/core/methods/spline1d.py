@@ -3,7 +3,8 @@
 Minimises sum_i w_i (y_i - g(t_i))^2 + lam * integral g''(t)^2 dt over natural cubic splines
 with knots at the distinct x values t_1 < ... < t_n, the same criterion as
 ``scipy.interpolate.make_smoothing_spline(x, y, w, lam)``. Repeated x values are averaged first
-with weights equal to their counts, which leaves the minimiser unchanged.
+with weights equal to their counts, which leaves the minimiser unchanged; with row weights, the
+average at a knot is weighted by them and the knot's weight is their sum.
 
 The kernels here trust their inputs: sorted distinct knots (at least 3), positive weights.
 
@@ -37,7 +38,9 @@ class Snap:
     (at their mean, weighted by counts) when there are at most MAX_KNOTS distinct values and
     no merged run is wider than half a grid cell; otherwise every x is rounded to the nearest
     of MAX_KNOTS evenly spaced points spanning the data. Either way no x moves by more than
-    range / (2 (MAX_KNOTS - 1)). ``shift`` is the largest distance any x moved.
+    range / (2 (MAX_KNOTS - 1)). ``shift`` is the largest distance any x moved. With row
+    weights ``w`` the merged runs sit at their weighted mean (a row of weight m counts as m
+    rows).
     """
 
     x: np.ndarray
@@ -46,8 +49,10 @@ class Snap:
     how: str  # "exact", "merged" or "grid"
 
     @classmethod
-    def of(cls, x: np.ndarray) -> Snap:
+    def of(cls, x: np.ndarray, w: np.ndarray | None = None) -> Snap:
         t, inv, counts = np.unique(x, return_inverse=True, return_counts=True)
+        if w is not None:
+            counts = np.bincount(inv.reshape(-1), weights=w, minlength=t.size)
         span = t[-1] - t[0]
         close = np.diff(t) < span / (10 * MAX_KNOTS)
         if t.size <= MAX_KNOTS and not close.any():
@@ -64,11 +69,19 @@ class Snap:
         return cls(snapped, int(np.unique(snapped).size), float(np.abs(snapped - x).max()), "grid")
 
 
-def average_ties(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Distinct sorted x, the mean y at each, and the counts as weights."""
+def average_ties(
+    x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Distinct sorted x, the mean y at each, and the counts as weights; with row weights
+    ``w``, the weighted mean sum w y / sum w at each and the sums of weights. Since
+    sum_i w_i (y_i - g)^2 = W (ybar - g)^2 + const over the rows at one x, the smoothing spline
+    of the means with weights W is the one of the rows."""
     t, inv, counts = np.unique(x, return_inverse=True, return_counts=True)
-    ybar = np.bincount(inv, weights=y, minlength=t.size) / counts
-    return t, ybar, counts.astype(float)
+    if w is None:
+        ybar = np.bincount(inv, weights=y, minlength=t.size) / counts
+        return t, ybar, counts.astype(float)
+    total = np.bincount(inv, weights=w, minlength=t.size)
+    return t, np.bincount(inv, weights=w * y, minlength=t.size) / total, total
 
 
 @dataclass(frozen=True)

@@ -61,11 +61,20 @@ class _Bayes(BayesianBand):
     """Error figures shared by both spline fits, from their posterior (Wahba 1983).
 
     Subclasses set ``y`` (rows), ``fit_rows`` (the smoother's fit at the rows), ``column``
-    (each row's column in the smoother: its knot, or itself), ``count`` (rows per column),
+    (each row's column in the smoother: its knot, or itself), ``count`` (the weight of each
+    column: rows per knot, or the sum of their weights), ``row_w`` (row weights, None for 1),
     ``df`` and ``smoothing``, and provide ``_posterior()``, ``_cross(Xq)`` and ``_diag()``.
+
+    A row of weight w_i enters its column's weighted mean with the share w_i / count, so its
+    smoother weight at x0 is omega_column(x0) w_i / count and its leverage A_column w_i /
+    count. sigma^2 = sum w_i e_i^2 / (n - df) is the noise variance of a row of weight 1.
     """
 
     _post: Posterior | None = None
+
+    @property
+    def _row_w(self) -> np.ndarray:
+        return np.ones(self.y.size) if self.row_w is None else self.row_w
 
     def posterior(self) -> Posterior:
         if self._post is None:
@@ -77,15 +86,19 @@ class _Bayes(BayesianBand):
         n = self.y.size
         if self.df is None or n - self.df <= 1e-9:
             return float("nan")
-        return float(np.sum((self.y - self.fit_rows) ** 2) / (n - self.df))
+        return float(np.sum(self._row_w * (self.y - self.fit_rows) ** 2) / (n - self.df))
 
     def variance(self, Xq: np.ndarray) -> np.ndarray:
-        """Posterior variance of f(x0) in units of sigma^2."""
-        Phi0, P0 = self._cross(Xq)
-        return self.posterior().variance(Phi0, P0, np.zeros(Xq.shape[0]))
+        """Posterior variance of f(x0) in units of sigma^2 (in blocks of CROSS_CELLS)."""
+        out = np.empty(Xq.shape[0])
+        step = max(1, CROSS_CELLS // max(self.y.size, 1))
+        for start in range(0, Xq.shape[0], step):
+            Phi0, P0 = self._cross(Xq[start : start + step])
+            out[start : start + step] = self.posterior().variance(Phi0, P0, np.zeros(len(P0)))
+        return out
 
     def loo_residuals(self) -> np.ndarray:
-        h = self._diag()[self.column] / self.count[self.column]
+        h = self._diag()[self.column] * self._row_w / self.count[self.column]
         with np.errstate(divide="ignore", invalid="ignore"):
             return (self.y - self.fit_rows) / (1.0 - h)
 
@@ -93,12 +106,11 @@ class _Bayes(BayesianBand):
         """mu_{-i}(x0) = mu(x0) - s_i(x0) r_i with s_i the smoother weight of row i at x0 and
         r_i the leave-one-out residual (the leave-one-out lemma of penalized least squares,
         Green & Silverman 1994, section 3.2)."""
-        Phi0, P0 = self._cross(Xq)
         base = self.predict(Xq)
-        step = self.loo_residuals() / self.count[self.column]
+        step = self.loo_residuals() * self._row_w / self.count[self.column]
 
         def block(rows: np.ndarray) -> np.ndarray:
-            omega, _ = self.posterior().weights(Phi0[rows], P0[rows])
+            omega, _ = self.posterior().weights(*self._cross(Xq[rows]))
             return base[rows, None] - omega[:, self.column] * step[None, :]
 
         return block
@@ -115,6 +127,7 @@ class FittedSpline1D(_Bayes):
     snap: spline1d.Snap
     y: np.ndarray
     column: np.ndarray
+    row_w: np.ndarray | None = None
 
     @property
     def fit_rows(self) -> np.ndarray:
@@ -234,6 +247,7 @@ class FittedThinPlate(_Bayes):
     fitted: np.ndarray
     df: float | None
     y: np.ndarray
+    row_w: np.ndarray | None = None
 
     @property
     def fit_rows(self) -> np.ndarray:
@@ -245,13 +259,12 @@ class FittedThinPlate(_Bayes):
 
     @property
     def count(self) -> np.ndarray:
-        return np.ones(self.y.size)
+        return self._row_w
 
     def _posterior(self) -> Posterior:
-        n = self.y.size
         K = thinplate.kernel(self.Xs, self.Xs)
         lam = self.smoothing
-        return Posterior(K, thinplate.poly(self.Xs), np.full(n, lam), lam)
+        return Posterior(K, thinplate.poly(self.Xs), lam / self._row_w, lam)
 
     def _cross(self, Xq):
         Z = self.scaler.transform(Xq)

@@ -11,7 +11,13 @@ product, the effective degrees of freedom df(lam) = (p + 1) + sum ev / (ev + lam
 leave-one-out residuals c_i / sum_j G_ij^2 / (ev_j + lam) with G = Q2 U. Where eigenvectors
 are not needed, a reduction of M to tridiagonal form serves every lam at one O(n) solve each.
 
-Kernels trust their inputs: P has full column rank.
+With row weights w_i the criterion is sum_i w_i (y_i - f(x_i))^2 + lam J(f), whose system is
+[[K + lam W^-1, P], [P', 0]] [c; b] = [y; 0] (RBFInterpolator with ``smoothing = lam / w``).
+With D = W^(1/2) and c = D c~ it is the unweighted system of K~ = D K D, P~ = D P, y~ = D y:
+the decompositions below are built on those, and report c and fits in the original units.
+The leave-one-out residual of row i is the scaled one divided by sqrt(w_i).
+
+Kernels trust their inputs: P has full column rank, weights are positive.
 
 References
 ----------
@@ -51,11 +57,17 @@ class Decomposition:
     only to tridiagonal form (enough for K-fold predictions and GCV, at a third of the cost).
     """
 
-    def __init__(self, X: np.ndarray) -> None:
+    def __init__(self, X: np.ndarray, w: np.ndarray | None = None) -> None:
         k = X.shape[1] + 1
         self.X = X
+        self.w = np.ones(X.shape[0]) if w is None else w
+        self.sw = np.sqrt(self.w)
         self.K = kernel(X, X)
-        (qr, tau), R = linalg.qr(poly(X), mode="raw")
+        P = poly(X)
+        if w is not None:  # the scaled system K~ = D K D, P~ = D P
+            self.K *= self.sw[:, None] * self.sw[None, :]
+            P *= self.sw[:, None]
+        (qr, tau), R = linalg.qr(P, mode="raw")
         V = np.tril(qr[:, :k], -1)
         V[np.arange(k), np.arange(k)] = 1.0
         T = np.zeros((k, k))
@@ -97,10 +109,11 @@ class Decomposition:
 
     def coefficients(self, y: np.ndarray, lams: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Kernel weights C (n, L) and polynomial coefficients B (p + 1, L) for each lam."""
-        C = self.q2(self.solve(self.q2t(y), lams))
+        yw = y * self.sw
+        C = self.q2(self.solve(self.q2t(yw), lams))
         # A failed solve leaves NaN in C; it propagates, and the candidate is left unscored.
-        B = linalg.solve_triangular(self.R, self.q1t(y[:, None] - self.K @ C), check_finite=False)
-        return C, B
+        B = linalg.solve_triangular(self.R, self.q1t(yw[:, None] - self.K @ C), check_finite=False)
+        return C * self.sw[:, None], B
 
     def predict(self, C: np.ndarray, B: np.ndarray, Xq: np.ndarray) -> np.ndarray:
         return kernel(Xq, self.X) @ C + poly(Xq) @ B
@@ -109,8 +122,8 @@ class Decomposition:
 class Eigen(Decomposition):
     """M = U diag(ev) U'; also gives the smoother diagonal, hence leave-one-out residuals."""
 
-    def __init__(self, X: np.ndarray) -> None:
-        super().__init__(X)
+    def __init__(self, X: np.ndarray, w: np.ndarray | None = None) -> None:
+        super().__init__(X, w)
         self.ev, self.U = linalg.eigh(self.M, driver="evd", check_finite=False)
         self.G = self.q2(self.U)
 
@@ -119,16 +132,19 @@ class Eigen(Decomposition):
             return self.U @ ((self.U.T @ z)[:, None] / (self.ev[:, None] + lams[None, :]))
 
     def loo_residuals(self, C: np.ndarray, lams: np.ndarray) -> np.ndarray:
-        """Leave-one-out residuals (n, L): c_i / sum_j G_ij^2 / (ev_j + lam)."""
+        """Leave-one-out residuals (n, L): c_i / sum_j G_ij^2 / (ev_j + lam); with weights,
+        c~_i / sqrt(w_i) over the same sum, c~ = c / sqrt(w) the scaled system's weights."""
         with np.errstate(divide="ignore", invalid="ignore"):
-            return C / ((self.G**2) @ (1.0 / (self.ev[:, None] + lams[None, :])))
+            return C / (
+                self.w[:, None] * ((self.G**2) @ (1.0 / (self.ev[:, None] + lams[None, :])))
+            )
 
 
 class Tridiagonal(Decomposition):
     """M = H S H' with S tridiagonal (LAPACK dsytrd): one O(n) solve per smoothing value."""
 
-    def __init__(self, X: np.ndarray) -> None:
-        super().__init__(X)
+    def __init__(self, X: np.ndarray, w: np.ndarray | None = None) -> None:
+        super().__init__(X, w)
         lwork = int(lapack.dsytrd_lwork(self.M.shape[0], lower=1)[0])
         refl, self.d, self.e, self.tau, info = lapack.dsytrd(self.M, lower=1, lwork=lwork)
         if info != 0:  # pragma: no cover - LAPACK argument errors only
@@ -179,11 +195,15 @@ def lam_for_df(ev: np.ndarray, n_poly: int, targets: np.ndarray) -> np.ndarray:
     return np.exp((lo + hi) / 2)
 
 
-def solve_direct(X: np.ndarray, y: np.ndarray, lam: float) -> tuple[np.ndarray, np.ndarray]:
-    """Kernel weights c and polynomial coefficients b from the augmented system."""
+def solve_direct(
+    X: np.ndarray, y: np.ndarray, lam: float, w: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Kernel weights c and polynomial coefficients b from the augmented system (with row
+    weights w: the smoothing term lam / w_i on the diagonal)."""
     n, m = X.shape[0], X.shape[1] + 1
     A = np.zeros((n + m, n + m))
-    A[:n, :n] = kernel(X, X) + lam * np.eye(n)
+    A[:n, :n] = kernel(X, X)
+    A[np.arange(n), np.arange(n)] += lam if w is None else lam / w
     P = poly(X)
     A[:n, n:] = P
     A[n:, :n] = P.T

@@ -6,6 +6,11 @@ data come as lists in the query string and the answer is the bare number, or one
 (:func:`nearwise.core.pipeline.run`) and the same defaults, so the numbers equal the JSON
 answer for the same data. Errors stay ``application/problem+json``; a spreadsheet shows the
 status as an error value.
+
+Items are counted one way: a list's separators (``,`` or ``;``, chosen once per list) are
+counted before any item is read, and that count is checked against the same row and cell
+limits as the tables of ``/v1/predict`` (``x``, ``y`` and ``t`` form the train table, ``at``
+the query table; :func:`nearwise.web.tables.most_rows`), then the items are split on it.
 """
 
 from __future__ import annotations
@@ -18,7 +23,7 @@ from flask import Blueprint, Response, current_app, request
 
 from nearwise.core import pipeline
 from nearwise.core.data import Table
-from nearwise.core.errors import NearwiseError, OverBudget, Where
+from nearwise.core.errors import NearwiseError, OverBudget, Where, shown
 from nearwise.core.spec import SCHEMES, IntervalSpec, Job, TuningSpec
 from nearwise.web import metrics
 from nearwise.web.body import negotiate
@@ -29,6 +34,7 @@ from nearwise.web.routes import operation
 from nearwise.web.routes.predict import caps
 from nearwise.web.serialize import prediction_rows
 from nearwise.web.slots import fit_slot
+from nearwise.web.tables import Limits, most_rows, row_limit
 
 bp = Blueprint("cell", __name__, url_prefix="/v1")
 
@@ -47,6 +53,7 @@ PARAMETERS = (
     "scheme",
     "t",
     "gap",
+    "w",
 )
 TEXT = "text/plain; charset=utf-8"
 _NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
@@ -136,6 +143,13 @@ _PARAMETERS = [
         type="integer",
         minimum=0,
     ),
+    _parameter(
+        "w",
+        "Optional: row weights, one per `x` value (`weight_by`): numbers 0 or more, read as "
+        "precision weights (a row of weight w has noise variance sigma^2 / w); a row of weight "
+        "0 is left out. The intervals at `at` are for a new observation of weight 1. " + _LIST,
+        "1,1,2,2,1,1,3,1",
+    ),
 ]
 
 
@@ -163,7 +177,7 @@ _PARAMETERS = [
             },
             "content": {"text/plain": {"schema": {"type": "string"}, "example": "4.48"}},
         },
-        **problems(400, 401, 406, 413, 414, 422, 503),
+        **problems(400, 401, 406, 408, 413, 414, 422, 431, 503),
     },
 )
 def cell() -> Response:
@@ -178,27 +192,20 @@ def cell() -> Response:
     settings = current_app.extensions["nearwise"]
     args = _arguments()
     comma = args.get("decimal", "point") == "comma"
-    x = _numbers("x", args, comma)
-    y = _numbers("y", args, comma)
-    at = _numbers("at", args, comma)
+    limits = Limits(
+        settings.max_rows, settings.max_columns, settings.max_cells, settings.max_query_rows
+    )
+    train = [c for c in ("x", "y", "t", "w") if c in ("x", "y") or c in args]
+    x = _numbers("x", args, comma, limits, train)
+    y = _numbers("y", args, comma, limits, train)
+    at = _numbers("at", args, comma, limits, ["x"])
     if len(x) != len(y):
         raise _bad(
             f"`x` has {len(x)} values and `y` has {len(y)}; give one y per x.",
             "y",
             f"{len(y)} values for {len(x)} x values",
         )
-    for name, values, most, var in (
-        ("x", x, settings.max_rows, "NEARWISE_MAX_ROWS"),
-        ("at", at, settings.max_query_rows, "NEARWISE_MAX_QUERY_ROWS"),
-    ):
-        if len(values) > most:
-            raise Problem(
-                413,
-                f"`{name}` has {len(values)} values; at most {most} are allowed ({var}).",
-                [{"parameter": name, "message": "too long"}],
-                code="table_too_large",
-            )
-    t = _numbers("t", args, comma) if "t" in args else None
+    t = _numbers("t", args, comma, limits, train) if "t" in args else None
     if t is not None and len(t) != len(x):
         raise _bad(
             f"`x` has {len(x)} values and `t` has {len(t)}; give one t per x.",
@@ -207,13 +214,26 @@ def cell() -> Response:
         )
     part = args.get("part", "value")
     if part not in PARTS:
-        raise _bad(f"`part` is one of {', '.join(PARTS)}; got {part!r}.", "part", "unknown part")
+        raise _bad(
+            f"`part` is one of {', '.join(PARTS)}; got {shown(part, quoted=True)}.",
+            "part",
+            "unknown part",
+        )
+    w = _numbers("w", args, comma, limits, train) if "w" in args else None
+    if w is not None and len(w) != len(x):
+        raise _bad(
+            f"`x` has {len(x)} values and `w` has {len(w)}; give one weight per x.",
+            "w",
+            f"{len(w)} values for {len(x)} x values",
+        )
     method = args.get("method") or _default_method(x, y)
     columns, cells = ("x", "y"), [x, y]
     tuning = _tuning(args)
     if t is not None:
         columns, cells = ("x", "y", "t"), [x, y, t]
         tuning["order_by"] = "t"
+    if w is not None:
+        columns, cells = (*columns, "w"), [*cells, w]
     job = Job(
         method=method,
         methods=None,
@@ -227,12 +247,13 @@ def cell() -> Response:
         interval=IntervalSpec(**_interval(args)),
         time_budget_s=settings.time_budget_s,
         caps=caps(settings),
+        weight_by=None if w is None else "w",
     )
     try:  # the slot is taken only now: the arguments are read and checked
         with fit_slot(), metrics.fitting(method, len(x)):
             result = pipeline.run(job)
     except NearwiseError as exc:
-        raise _cell_problem(exc) from None
+        raise _cell_problem(exc, columns) from None
     rows = prediction_rows(result.predictions)
     lines = [_line(row, part, comma) for row in rows]
     resp = Response("\n".join(lines), content_type=TEXT)
@@ -248,8 +269,8 @@ def _arguments() -> dict[str, str]:
     if unknown:
         raise Problem(
             422,
-            f"Unknown parameter `{unknown[0]}`; /v1/cell reads {', '.join(PARAMETERS)}.",
-            [{"parameter": k, "message": "unknown parameter"} for k in unknown],
+            f"Unknown parameter `{shown(unknown[0])}`; /v1/cell reads {', '.join(PARAMETERS)}.",
+            [{"parameter": shown(k), "message": "unknown parameter"} for k in unknown],
             code="unknown_name",
         )
     for name in request.args:
@@ -271,31 +292,49 @@ def _arguments() -> dict[str, str]:
     return args
 
 
-def _numbers(name: str, args: dict[str, str], comma: bool) -> np.ndarray:
-    """A list parameter -> floats (NaN for an empty item). Never guesses a decimal comma."""
+def _numbers(
+    name: str, args: dict[str, str], comma: bool, limits: Limits, columns: list[str]
+) -> np.ndarray:
+    """A list parameter -> floats (NaN for an empty item). Never guesses a decimal comma.
+
+    ``columns`` are those of the table the list is a column of (``at``: the query table), for
+    the row and cell limits its item count is checked against before any item is read."""
     text = args[name]
     if comma:
-        items = text.split(";")
+        sep = ";"
     elif ";" in text:
         if "," in text:
             raise Problem(
                 400,
-                f"`{name}` holds both semicolons and commas ({_short(text)}): if the commas are "
-                "decimal marks (1,5;2,5), set `decimal=comma`; otherwise separate the values "
-                "with commas or semicolons alone.",
+                f"`{name}` holds both semicolons and commas ({shown(text, quoted=True)}): if the "
+                "commas are decimal marks (1,5;2,5), set `decimal=comma`; otherwise separate "
+                "the values with commas or semicolons alone.",
                 [{"parameter": name, "message": "commas and semicolons; set decimal"}],
                 code="csv_format_undeclared",
             )
-        items = text.split(";")
+        sep = ";"
     else:
-        items = text.split(",")
+        sep = ","
+    table = "query" if name == "at" else "train"
+    count, most = text.count(sep) + 1, most_rows(table, columns, limits)
+    if count > most:
+        var = "NEARWISE_MAX_QUERY_ROWS" if table == "query" else "NEARWISE_MAX_ROWS"
+        if most < row_limit(table, limits):
+            var += ", NEARWISE_MAX_CELLS"
+        raise Problem(
+            413,
+            f"`{name}` has {count} values; at most {most} are allowed ({var}).",
+            [{"parameter": name, "message": "too long"}],
+            code="table_too_large",
+        )
+    items = text.split(sep)
     out = np.empty(len(items))
     for i, item in enumerate(items):
         item = item.strip()
         if comma and "." in item and _NUMBER.fullmatch(item.replace(",", "")):
             raise Problem(
                 400,
-                f"`{name}` item {i + 1} is {item!r}, a number with a point while "
+                f"`{name}` item {i + 1} is {shown(item, quoted=True)}, a number with a point while "
                 "`decimal=comma` is set: remove thousands separators, or drop `decimal=comma`.",
                 [{"parameter": name, "message": f"item {i + 1}: point with decimal=comma"}],
                 code="csv_format_undeclared",
@@ -309,15 +348,11 @@ def _numbers(name: str, args: dict[str, str], comma: bool) -> np.ndarray:
                 raise _bad(f"`{name}` item {i + 1} is too large for a double.", name, "too large")
         else:
             raise _bad(
-                f"`{name}` item {i + 1} is {item!r}, not a number. {_LIST}",
+                f"`{name}` item {i + 1} is {shown(item, quoted=True)}, not a number. {_LIST}",
                 name,
                 f"item {i + 1}: not a number",
             )
     return out
-
-
-def _short(text: str) -> str:
-    return repr(text if len(text) <= 40 else text[:37] + "...")
 
 
 def _default_method(x: np.ndarray, y: np.ndarray) -> str:
@@ -376,15 +411,17 @@ def _line(row: dict[str, Any], part: str, comma: bool) -> str:
 
 
 _RENAMES = {"train": {0: "x", 1: "y", 2: "t"}, "query": {0: "at"}}
-_TUNING_NAMES = {"order_by": "t"}
+_TUNING_NAMES = {"order_by": "t", "weight_by": "w"}
 
 
-def _rename(where: Where) -> Where:
-    """A core error's place, named by the cell parameter at fault (lists count from 1)."""
+def _rename(where: Where, train: tuple[str, ...] | None = None) -> Where:
+    """A core error's place, named by the cell parameter at fault (lists count from 1);
+    ``train`` names the train table's columns in order (default: x, y, t)."""
     path = where.path
     if path and path[0] in _RENAMES:
         if len(path) >= 4 and path[1] == "rows":
-            name = _RENAMES[str(path[0])].get(int(path[3]), str(path[0]))
+            names = dict(enumerate(train)) if train and path[0] == "train" else None
+            name = (names or _RENAMES[str(path[0])]).get(int(path[3]), str(path[0]))
             return Where((name,), f"item {int(path[2]) + 1}: {where.message}")
         if len(path) >= 3 and path[1] == "rows":
             names = "x, y" if path[0] == "train" else "at"
@@ -392,15 +429,17 @@ def _rename(where: Where) -> Where:
         return Where(("x, y" if path[0] == "train" else "at",), where.message)
     if len(path) >= 2 and path[0] in ("tuning", "interval"):
         return Where((_TUNING_NAMES.get(str(path[1]), str(path[1])),), where.message)
+    if path and path[0] == "weight_by":
+        return Where(("w",), where.message)
     return where
 
 
-def _cell_problem(exc: NearwiseError) -> Problem:
+def _cell_problem(exc: NearwiseError, train: tuple[str, ...] | None = None) -> Problem:
     """A core error with its places named by the cell parameters (``tuning.folds`` is
     ``folds``), as the same status and code predict would answer."""
     entries = []
     for w in exc.where:
-        renamed = _rename(w)
+        renamed = _rename(w, train)
         entries.append({"parameter": str(renamed.path[0]), "message": renamed.message})
     detail = exc.detail
     if "`tuning." in detail or "`interval." in detail:

@@ -65,7 +65,7 @@ bp = Blueprint("compare", __name__, url_prefix="/v1")
                 },
             },
         },
-        **problems(400, 401, 406, 413, 414, 415, 422, 503),
+        **problems(400, 401, 406, 408, 413, 414, 415, 422, 431, 503),
     },
 )
 def compare() -> Response:
@@ -84,7 +84,7 @@ def _answer(answer: str, job: Job, intake: Intake) -> Response:
     if answer == figures.SVG:
         with metrics.fitting("compare", job.train.n_rows):
             fitted = core_compare.compare(figures.with_curve(job))
-        return figures.compare_answer(fitted, intake)
+        return figures.compare_answer(fitted, intake, job.deadline.check)
     with metrics.fitting("compare", job.train.n_rows):
         result = core_compare.compare(job)
     tuning = {k: v for k, v in asdict(job.tuning).items()}
@@ -93,7 +93,7 @@ def _answer(answer: str, job: Job, intake: Intake) -> Response:
     if result.paths:  # the gap in force, the same for every method (chosen from the data)
         tuning["gap"] = next(iter(result.paths.values())).gap
     if answer != "text/csv":
-        return json_response(serialize.compare_document(result, tuning))
+        return json_response(serialize.compare_document(result, tuning, job.deadline.check))
     resp = Response(serialize.compare_csv(result, intake.dialect), content_type=CSV_ANSWER)
     resp.headers["Nearwise-Recommended"] = result.recommended
     codes = serialize.compare_codes(result)

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, Response, current_app
+from flask import Blueprint, Response, current_app, request
 
 from nearwise.core import columns
+from nearwise.core.budget import Deadline
 from nearwise.core.errors import InvalidValue, Where
 from nearwise.core.locality import summary
-from nearwise.web import metrics, serialize
+from nearwise.web import abandon, metrics, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import read_request
 from nearwise.web.jsonio import jsonable
@@ -20,7 +21,7 @@ from nearwise.web.locality_doc import (
 )
 from nearwise.web.openapi_parts import problems
 from nearwise.web.routes import json_response, operation
-from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER
+from nearwise.web.routes.predict import ANSWERS, CSV_ANSWER, caps
 from nearwise.web.slots import fit_slot
 
 bp = Blueprint("locality", __name__, url_prefix="/v1")
@@ -31,7 +32,7 @@ bp = Blueprint("locality", __name__, url_prefix="/v1")
     tags=["locality"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 408, 413, 414, 415, 422, 431, 503)},
 )
 def locality() -> Response:
     """Measure how well the training rows cover their space and where query rows fall."""
@@ -49,6 +50,10 @@ def locality() -> Response:
     names, X, Xq = columns.feature_arrays(
         intake.tables["train"].table, f.get("features"), query.table if query else None
     )
+    settings = current_app.extensions["nearwise"]
+    # The time budget starts now; it also stops the work once the client has gone. summary
+    # measures the work and refuses it above NEARWISE_MAX_COST_S (422 over_limit) first.
+    deadline = Deadline(settings.time_budget_s, abandon.watcher(request.environ))
     with fit_slot():  # taken only now: the body is read, parsed and checked
         doc = summary(
             X,
@@ -57,10 +62,12 @@ def locality() -> Response:
             fraction=f.get("fraction"),
             Xq=Xq,
             scale=f.get("scale", "standard"),
+            caps=caps(settings),
+            deadline=deadline,
         )
     doc = jsonable(doc)
     if answer == "text/csv" and query is not None:
-        text = serialize.locality_csv(doc, query, intake.dialect)
+        text = serialize.locality_csv(doc, query, intake.dialect, check=deadline.check)
         resp = Response(text, content_type=CSV_ANSWER)
         resp.headers.update(serialize.locality_headers(doc))
     else:

@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, Response, current_app
+from flask import Blueprint, Response, current_app, has_request_context, request
 
 from nearwise.core import pipeline
+from nearwise.core.budget import Deadline
 from nearwise.core.spec import Caps, IntervalSpec, Job, TuningSpec
-from nearwise.web import figures, metrics, serialize
+from nearwise.web import abandon, figures, metrics, serialize
 from nearwise.web.body import negotiate
 from nearwise.web.intake import Intake, read_request
 from nearwise.web.openapi_parts import problems
@@ -27,7 +28,7 @@ CSV_ANSWER = "text/csv; charset=utf-8; header=present"
     tags=["predict"],
     parameters=query_parameters(),
     requestBody=REQUEST_BODY,
-    responses={"200": RESPONSE_200, **problems(400, 401, 406, 413, 414, 415, 422, 503)},
+    responses={"200": RESPONSE_200, **problems(400, 401, 406, 408, 413, 414, 415, 422, 431, 503)},
 )
 def predict() -> Response:
     """Fit one method to train, tune it by cross-validation and predict at query."""
@@ -44,13 +45,15 @@ def _answer(answer: str, job: Job, intake: Intake) -> Response:
     if answer == figures.SVG:
         with metrics.fitting(job.method, job.train.n_rows):
             fitted = pipeline.run(figures.with_curve(job))
-        return figures.predict_answer(fitted, intake)
+        return figures.predict_answer(fitted, intake, job.deadline.check)
     with metrics.fitting(job.method, job.train.n_rows):
         result = pipeline.run(job)
+    check = job.deadline.check  # writing a large answer is work within the budget too
     if answer != "text/csv":
-        return json_response(serialize.predict_document(result))
+        return json_response(serialize.predict_document(result, check))
     rows = intake.tables.get("query") or intake.tables["train"]
-    resp = Response(serialize.predict_csv(result, rows, intake.dialect), content_type=CSV_ANSWER)
+    text = serialize.predict_csv(result, rows, intake.dialect, check)
+    resp = Response(text, content_type=CSV_ANSWER)
     codes = serialize.dataset_codes(result)
     if codes:
         resp.headers["Nearwise-Warnings"] = ", ".join(codes)
@@ -67,9 +70,17 @@ def caps(settings: Settings) -> Caps:
 
 
 def build_job(intake: Intake, settings: Settings | None = None, method: str | None = None) -> Job:
-    """The core's job from the checked fields and parsed tables, within ``settings``' limits."""
+    """The core's job from the checked fields and parsed tables, within ``settings``' limits.
+
+    Its ``deadline`` starts now (the body is parsed) and stops the work once the client has
+    gone (:mod:`nearwise.web.abandon`); pass ``job.deadline.check`` on to the pictures and
+    the CSV writers, so that the same budget bounds them."""
     f = intake.fields
     query = intake.tables.get("query")
+    deadline = None
+    if settings is not None:
+        environ = request.environ if has_request_context() else {}
+        deadline = Deadline(settings.time_budget_s, abandon.watcher(environ))
     return Job(
         method=method or f["method"],
         methods=f.get("methods"),
@@ -83,4 +94,6 @@ def build_job(intake: Intake, settings: Settings | None = None, method: str | No
         interval=IntervalSpec(**f.get("interval", {})),
         time_budget_s=settings.time_budget_s if settings else None,
         caps=caps(settings) if settings else Caps(),
+        weight_by=f.get("weight_by"),
+        deadline=deadline,
     )
