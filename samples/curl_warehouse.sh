@@ -1,5 +1,6 @@
 #!/usr/bin/env bash
-# POST the warehouse sample (daily energy use against nine inputs) and print the answer.
+# POST the warehouse sample (daily energy use against nine numeric inputs and the dock in use)
+# and print the answer.
 #
 #   samples/curl_warehouse.sh              # /v1/compare: knn, linear and additive ranked
 #   samples/curl_warehouse.sh predict      # /v1/predict with the additive method

@@ -2,7 +2,7 @@
 
 The scenario is invented for the demo (it is not measured data). A frozen-food warehouse logs,
 for each of two years of days (`day`, an ISO 8601 date, from Monday 1 January 2024), its
-electricity use in kWh and nine inputs:
+electricity use in kWh, nine numeric inputs and one categorical input:
 
 | column           | meaning                                   | effect on energy_kwh             |
 |------------------|-------------------------------------------|----------------------------------|
@@ -15,9 +15,13 @@ electricity use in kWh and nine inputs:
 | solar_kwh_m2     | solar irradiation on the roof, kWh/m^2    | linear, 90 kWh per unit          |
 | weekday          | 0 = Monday ... 6 = Sunday                 | none (only through doors)        |
 | staff_hours      | hours worked on the floor                 | none                             |
+| dock             | loading dock in use: A, B or C (text)     | B +90 kWh, C +240 kWh against A  |
 
 Energy is built additively from those effects over a base load of 2,400 kWh, plus noise with a
-standard deviation of 120 kWh.
+standard deviation of 120 kWh. Dock A has an air curtain; dock B is older and leaks more cold
+air, and dock C faces south without a curtain. The dock of each day is drawn from its own
+seeded generator (DOCK_SEED), so the nine numeric inputs and the noise are those the
+scenario had before the dock was added.
 
 Weather lasts over days, and so do the other departures from the usual: the departures of
 temperature, humidity and sunshine from their seasonal course follow AR(1) series from day to
@@ -25,7 +29,7 @@ day (lag-1 correlations WEATHER_PERSISTENCE, HUMIDITY_PERSISTENCE and SUN_PERSIS
 does the noise on energy (NOISE_PERSISTENCE: a compressor running hot, ice building up on a
 coil, a shift that leaves doors open, each lasts a few days).
 
-With nine inputs a neighborhood of even a few days spans most of every input's range, so kNN
+With ten inputs a neighborhood of even a few days spans most of every input's range, so kNN
 stops being local, while the additive and linear fits, which estimate one effect per input,
 do well.
 
@@ -54,6 +58,10 @@ WEATHER_PERSISTENCE = 0.75  # lag-1 correlation of the temperature's departure, 
 HUMIDITY_PERSISTENCE = 0.6
 SUN_PERSISTENCE = 0.6
 NOISE_PERSISTENCE = 0.7  # lag-1 correlation of the noise on energy, day to day
+DOCK_SEED = [SEED, 1]  # the docks' own generator: the other columns stay as they were
+DOCKS = ("A", "B", "C")
+DOCK_SHARE = (0.5, 0.3, 0.2)  # how often each dock is in use
+DOCK_KWH = {"A": 0.0, "B": 90.0, "C": 240.0}  # extra energy on a day at that dock
 
 FEATURES = [
     "outdoor_temp_c",
@@ -67,6 +75,8 @@ FEATURES = [
     "staff_hours",
 ]
 TARGET = "energy_kwh"
+CATEGORICAL = ["dock"]
+INPUTS = [*FEATURES, *CATEGORICAL]  # the features of the requests: nine numbers and the dock
 DECIMALS = [1, 0, 0, 1, 0, 0, 2, 0, 1]
 
 
@@ -112,9 +122,15 @@ def make_inputs(rng: np.random.Generator, day: np.ndarray) -> dict[str, np.ndarr
     }
 
 
-def make_train(rng: np.random.Generator) -> np.ndarray:
+def make_docks(dock_rng: np.random.Generator, n: int) -> np.ndarray:
+    """The loading dock in use on each of ``n`` days."""
+    return dock_rng.choice(np.array(DOCKS), size=n, p=DOCK_SHARE)
+
+
+def make_train(rng: np.random.Generator, docks: np.ndarray) -> np.ndarray:
     x = make_inputs(rng, np.arange(N_DAYS))
-    y = np.round(energy(x) + 120.0 * ar1(rng, N_DAYS, NOISE_PERSISTENCE), 1)
+    extra = np.array([DOCK_KWH[d] for d in docks])
+    y = np.round(energy(x) + extra + 120.0 * ar1(rng, N_DAYS, NOISE_PERSISTENCE), 1)
     return np.column_stack([*(x[name] for name in FEATURES), y])
 
 
@@ -128,21 +144,23 @@ def make_query(rng: np.random.Generator) -> np.ndarray:
     return rows
 
 
-# Both bodies name their nine features: `day` is in the train table to place the days, and is
-# not a feature.
+# Both bodies name their ten features: `day` is in the train table to place the days, and is
+# not a feature; `dock` holds text and is declared in `categorical`.
 REQUESTS = {
-    # Every method that applies to nine features, on the same folds: POST it to /v1/compare.
-    # The spline is left out (with the warning method_skipped): it takes at most three inputs.
+    # Every method that applies to ten features, on the same folds: POST it to /v1/compare.
+    # The spline is not tried: it takes at most three inputs, and no categorical one.
     "compare_warehouse.json": {
         "target": TARGET,
-        "features": FEATURES,
+        "features": INPUTS,
+        "categorical": CATEGORICAL,
         "tuning": {"folds": 5, "seed": 0},
     },
-    # One smooth effect per input: POST it to /v1/predict.
+    # One smooth effect per numeric input and one effect per dock: POST it to /v1/predict.
     "predict_warehouse.json": {
         "method": "additive",
         "target": TARGET,
-        "features": FEATURES,
+        "features": INPUTS,
+        "categorical": CATEGORICAL,
         "tuning": {"folds": 5, "seed": 0},
     },
 }
@@ -150,16 +168,23 @@ REQUESTS = {
 
 def main() -> None:
     rng = np.random.default_rng(SEED)
-    train = make_train(rng)
+    dock_rng = np.random.default_rng(DOCK_SEED)
+    docks = make_docks(dock_rng, N_DAYS)
+    train = make_train(rng, docks)
     query = make_query(rng)
-    columns = ["day", *FEATURES, TARGET]
+    # The forecast week's docks; the heat-wave Monday is at dock A.
+    query_docks = [*make_docks(dock_rng, len(query) - 1), "A"]
+    columns = ["day", *INPUTS, TARGET]
     days = time_stamps(FIRST_DAY, timedelta(days=1), N_DAYS, date_only=True)
-    train_rows = with_labels(days, train)
-    query_rows = query.tolist()
+    train_rows = [
+        [*row[:-1], str(dock), row[-1]]
+        for row, dock in zip(with_labels(days, train), docks, strict=True)
+    ]
+    query_rows = [[*row, str(dock)] for row, dock in zip(query.tolist(), query_docks, strict=True)]
     write_csv(HERE / "warehouse_train.csv", columns, train_rows)
-    write_csv(HERE / "warehouse_query.csv", FEATURES, query_rows)
+    write_csv(HERE / "warehouse_query.csv", INPUTS, query_rows)
     for name, fields in REQUESTS.items():
-        write_request(HERE / name, fields, (columns, train_rows), (FEATURES, query_rows))
+        write_request(HERE / name, fields, (columns, train_rows), (INPUTS, query_rows))
     print(f"wrote {len(train)} training rows and {len(query)} query rows to {HERE}")
 
 

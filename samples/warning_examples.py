@@ -398,6 +398,40 @@ def serial_dependence() -> Body:
     return _building("knn", temp, kwh, [10.0, 15.0, 20.0])
 
 
+def index_like_feature() -> Body:
+    """Building, 60 hours saved from a data frame after `reset_index()`: the first column,
+    `index`, holds 0, 1, ..., 59 in row order. Without `features` it is used as a feature
+    beside the temperature; the warning names it."""
+    rng = _rng(16)
+    temp = _temps(rng, 60)
+    kwh = energy_kwh(temp, np.full(60, 150.0), rng)
+    return {
+        "method": "linear",
+        "target": "kwh",
+        "train": table(["index", "temp_c", "kwh"], np.arange(60.0), temp, kwh),
+    }
+
+
+def unseen_level() -> Body:
+    """Campus, 90 hourly readings from three buildings (`building`: `A`, `B`, `C`, a
+    categorical feature; each has its own base load, 40 kWh apart). The second query row is an
+    hour in building `D`, which has no readings: no effect can be estimated for it, so its
+    value and bounds are null and it is flagged; the other rows are answered as usual."""
+    rng = _rng(17)
+    temp = _temps(rng, 90)
+    building = np.array(["A", "B", "C"])[np.arange(90) % 3]
+    base = np.array([0.0, 40.0, 80.0])[np.arange(90) % 3]
+    kwh = np.round(energy_kwh(temp, np.full(90, 150.0), rng) + base, 1)
+    rows = [[_cell(t), b, _cell(k)] for t, b, k in zip(temp, building, kwh, strict=True)]
+    return {
+        "method": "linear",
+        "target": "kwh",
+        "categorical": ["building"],
+        "train": {"columns": ["temp_c", "building", "kwh"], "rows": rows},
+        "query": {"columns": ["temp_c", "building"], "rows": [[20.0, "B"], [20.0, "D"]]},
+    }
+
+
 # -- the registry -------------------------------------------------------------------------
 @dataclass(frozen=True)
 class Example:
@@ -431,6 +465,8 @@ EXAMPLES: dict[str, Example] = {
         Example("x_rounded", x_rounded),
         Example("hull_not_tested", hull_not_tested),
         Example("serial_dependence", serial_dependence),
+        Example("index_like_feature", index_like_feature),
+        Example("unseen_level", unseen_level, (1,)),
     )
 }
 

@@ -52,10 +52,29 @@ def _table(
     )
 
 
+def _columns_of(table: Any) -> list[Any] | None:
+    """The column names of a drawn table in any of its shapes (web/table_shapes.py)."""
+    if isinstance(table, dict) and isinstance(table.get("columns"), list):
+        return table["columns"]
+    if isinstance(table, list) and table and isinstance(table[0], dict):
+        return list(table[0])
+    return None
+
+
+def _in_shape(table: dict[str, Any], like: Any) -> Any:
+    """A repaired ``{columns, rows}`` table in the shape of the drawn table ``like``."""
+    if isinstance(like, list):
+        return [dict(zip(table["columns"], row, strict=True)) for row in table["rows"]]
+    if isinstance(like, dict) and ("data" in like or "index" in like):
+        return {"columns": table["columns"], "data": table["rows"]}
+    return table
+
+
 @st.composite
 def _repaired(draw: st.DrawFn, body: dict[str, Any]) -> dict[str, Any]:
-    train = body["train"]
-    names = list(dict.fromkeys(str(c) for c in train["columns"]))[:MAX_REPAIRED_COLUMNS]
+    sent = dict.fromkeys(str(c) for c in _columns_of(body["train"]) or [])
+    # names a table may hold: not empty, no control characters
+    names = [n for n in sent if n.isprintable() and n.strip()][:MAX_REPAIRED_COLUMNS]
     if len(names) < 2:
         names = [*names, *(n for n in ("x", "y") if n not in names)][:2]
     out = dict(body)
@@ -89,10 +108,11 @@ def _repaired(draw: st.DrawFn, body: dict[str, Any]) -> dict[str, Any]:
         out.pop(draw(st.sampled_from(["k", "fraction"])))
     if "k" in out:  # at most the training rows
         out["k"] = draw(st.integers(1, max(1, len(out["train"]["rows"]))))
+    out["train"] = _in_shape(out["train"], body["train"])
     if draw(st.booleans()):
         out.pop("query", None)
     else:
-        out["query"] = draw(_table(others, 0, 5))
+        out["query"] = _in_shape(draw(_table(others, 0, 5)), body.get("query"))
     return out
 
 
@@ -122,9 +142,7 @@ def repair_case(context: Any, case: Any) -> st.SearchStrategy[Any]:
     repairable = (
         case.media_type == "application/json"
         and isinstance(body, dict)
-        and isinstance(body.get("train"), dict)
-        and isinstance(body["train"].get("columns"), list)
-        and "rows" in body["train"]
+        and _columns_of(body.get("train")) is not None
     )
     if not repairable:
         return st.just(case)

@@ -79,8 +79,12 @@ def test_table_bounds_come_from_the_default_settings(doc) -> None:
     query = _schema(doc, "QueryTable")
     assert query["rows"]["maxItems"] == DEFAULTS.max_query_rows
     request = _schema(doc, "PredictRequest")
-    assert request["query"]["$ref"].endswith("/QueryTable")
-    assert request["train"]["$ref"].endswith("/Table")
+    refs = {k: [s.get("$ref", "") for s in request[k]["oneOf"]] for k in ("train", "query")}
+    assert refs["train"][0].endswith("/Table") and refs["train"][2].endswith("/SplitTable")
+    assert refs["query"][0].endswith("/QueryTable")
+    assert refs["query"][2].endswith("/QuerySplitTable")
+    assert request["query"]["oneOf"][1]["maxItems"] == DEFAULTS.max_query_rows  # row objects
+    assert _schema(doc, "QuerySplitTable")["data"]["maxItems"] == DEFAULTS.max_query_rows
 
 
 def test_grid_methods_and_tuning_bounds(doc) -> None:

@@ -133,9 +133,42 @@ def weighted(weights: list[Any]) -> Send:
     return post_json(weighted_body(weights))
 
 
+SITES = ["east", "north", "south"]
+SITE_ROWS = [[x, SITES[i % 3], y] for i, (x, y) in enumerate(curve(12))]
+
+
+def sited(**more: Any) -> Send:
+    """A predict body whose train table has a text column ``site`` (declared categorical
+    unless ``more`` says otherwise)."""
+    doc = {
+        "method": "linear",
+        "target": "y",
+        "categorical": ["site"],
+        "train": table(["x", "site", "y"], SITE_ROWS),
+        **more,
+    }
+    return post_json({k: v for k, v in doc.items() if v is not None})
+
+
+def many_levels(levels: int, n: int) -> list[list[Any]]:
+    return [[float(i), f"L{i % levels}", float(i % 5)] for i in range(n)]
+
+
 CONSTANT_X = [[2.0, float(i % 3)] for i in range(12)]
 CONSTANT_B = [[float(i), 2.0, float(i % 3)] for i in range(15)]
 FOUR = [[i, i % 3, i % 5, i % 7, float(i % 4)] for i in range(20)]
+RECORDS = [{"x": x, "y": y} for x, y in curve(12)]  # the curve as row objects
+
+
+def records(row: int, replaced: Any) -> Send:
+    """A predict body whose train table is row objects, with ``row`` replaced."""
+    return post_json(body(train=[*RECORDS[:row], replaced, *RECORDS[row + 1 :]]))
+
+
+def split(**parts: Any) -> Send:
+    """A predict body whose train table is in pandas' split shape, with ``parts`` added."""
+    return post_json(body(train={"columns": ["x", "y"], "data": curve(12), **parts}))
+
 
 CASES: dict[str, Case] = {
     # malformed JSON
@@ -229,6 +262,38 @@ CASES: dict[str, Case] = {
     "duplicate-column": Case(
         raw_train(ROWS, columns='"columns":["y","y"]'), 422, at("/train/columns/1")
     ),
+    # row objects and pandas' split shape
+    "records-missing-key": Case(records(5, {"x": 1.0}), 422, at("/train/5/y")),
+    "records-extra-key": Case(records(5, {"x": 1.0, "y": 2.0, "z": 3.0}), 422, at("/train/5/z")),
+    "records-other-key": Case(records(3, {"x": 1.0, "Y": 2.0}), 422, at("/train/3/Y")),
+    "records-row-not-an-object": Case(records(7, [1.0, 2.0]), 422, at("/train/7")),
+    "records-first-row-not-an-object": Case(records(0, 4), 422, at("/train/0")),
+    "records-boolean-cell": Case(records(4, {"x": True, "y": 1.0}), 422, at("/train/4/x")),
+    "records-text-in-target": Case(records(2, {"x": 1.0, "y": "a"}), 422, at("/train/2/y")),
+    "records-empty-list": Case(post_json(body(train=[])), 422, at("/train")),
+    "records-duplicate-key": Case(
+        post_raw('{"method":"knn","target":"y","train":[{"x":1,"y":2,"x":3}]}'),
+        422,
+        at("/train/0/x"),
+    ),
+    "records-over-the-row-limit": Case(
+        on_small(post_json(body(train=[{"x": 1.0, "y": 2.0}] * 101)), **SMALL),
+        413,
+        at("/train"),
+        ("NEARWISE_MAX_ROWS",),
+    ),
+    "split-index-wrong-length": Case(split(index=list(range(11))), 422, at("/train/index")),
+    "split-index-not-a-list": Case(split(index=7), 422, at("/train/index")),
+    "split-rows-and-data": Case(split(rows=curve(12)), 422, at("/train/data")),
+    "split-data-missing": Case(
+        post_json(body(train={"columns": ["x", "y"], "index": [0]})), 422, at("/train/data")
+    ),
+    "split-boolean-cell": Case(
+        post_json(body(train={"columns": ["x", "y"], "data": [[1, 2], [False, 3]]})),
+        422,
+        at("/train/data/1/0"),
+    ),
+    "table-a-number": Case(post_json(body(train=5)), 422, at("/train")),
     # empty tables and a single row
     "empty-rows": Case(post_json(body(train=table(["x", "y"], []))), 422, at("/train/rows")),
     "empty-columns": Case(post_json(body(train=table([], []))), 422, at("/train/columns")),
@@ -434,6 +499,85 @@ CASES: dict[str, Case] = {
         lambda c: c.get("/v1/cell?x=1,2,3,4,5,6&y=1,2,3,4,5,7&w=1,1,a,1,1,1&at=2"),
         422,
         {"parameter": "w"},
+    ),
+    # categorical features (issue 13): undeclared text names both ways out; declarations are
+    # checked; a missing level is named at its cell (an unseen level is answered 200 with the
+    # flag unseen_level: tests/web/test_categorical_route.py)
+    "categorical-undeclared-text": Case(
+        sited(categorical=None), 422, at("/train/rows/0/1"), ("`categorical`", "`features`")
+    ),
+    "categorical-unknown-column": Case(sited(categorical=["sites"]), 422, at("/categorical/0")),
+    "categorical-is-the-target": Case(sited(categorical=["site", "y"]), 422, at("/categorical/1")),
+    "categorical-not-a-feature": Case(sited(features=["x"]), 422, at("/categorical/0")),
+    "categorical-missing-level": Case(
+        sited(train=table(["x", "site", "y"], [*SITE_ROWS[:4], [9.0, None, 1.0]])),
+        422,
+        at("/train/rows/4/1"),
+    ),
+    "categorical-csv-missing-level": Case(
+        post_csv(
+            b"x,site,y\n"
+            + b"".join(b"%d,s%d,%d\n" % (i, i % 3, i % 4) for i in range(11))
+            + b"11,,2\n",
+            CSV_HEAD + "&categorical=site",
+        ),
+        422,
+        csv_at(13, "site"),
+    ),
+    "categorical-too-many-levels": Case(
+        sited(train=table(["x", "site", "y"], many_levels(201, 402))), 422, at("/categorical/0")
+    ),
+    "categorical-over-cells": Case(
+        on_small(sited(train=table(["x", "site", "y"], many_levels(10, 100))), **SMALL),
+        422,
+        at("/categorical"),
+        ("NEARWISE_MAX_CELLS",),
+    ),
+    "categorical-query-missing-column": Case(
+        sited(query=table(["x"], [[1.0]])), 422, at("/query/columns")
+    ),
+    "categorical-reference-not-a-level": Case(
+        sited(categorical_reference={"site": "west"}), 422, at("/categorical_reference/site")
+    ),
+    "categorical-reference-undeclared": Case(
+        sited(categorical_reference={"x": 1}), 422, at("/categorical_reference/x")
+    ),
+    "categorical-with-spline": Case(sited(method="spline"), 422, at("/categorical")),
+    "categorical-with-adaptive": Case(
+        sited(interval={"adaptive": True}), 422, at("/interval/adaptive")
+    ),
+    "mismatch-without-categorical": Case(
+        post_json(body(params={"mismatch": 2.0})), 422, at("/params/mismatch")
+    ),
+    "categorical-at-locality": Case(
+        post_json(
+            {"categorical": ["site"], "train": table(["x", "site"], [[1, "a"]])}, "/v1/locality"
+        ),
+        422,
+        at("/categorical"),
+    ),
+    # missing-value tokens (issue 13): a token in a feature is a missing feature; `na` is for
+    # CSV tables only; with `na` given, the default tokens are text again
+    "csv-na-token-in-feature": Case(post_csv(b"x,y\n1,2\nNA,3\n3,4\n"), 422, csv_at(3, "x")),
+    "na-in-json-body": Case(post_json(body(na=["NA"])), 422, at("/na")),
+    "na-token-too-long": Case(
+        post_csv(b"x,y\n1,2\n", CSV_HEAD + "&na=" + "n" * 300), 422, at("/na/0")
+    ),
+    "csv-default-token-outside-na": Case(
+        post_csv(b"x,y\n1,2\n2,NA\n3,4\n", CSV_HEAD + "&na=-999"), 422, csv_at(3, "y")
+    ),
+    # a saved index (issue 13): an unnamed column used by default as a feature
+    "csv-unnamed-index-column": Case(
+        post_csv(b",x,y\n" + b"".join(b"%d,%d,%d\n" % (i, i, i % 3) for i in range(12))),
+        422,
+        csv_at(1, ""),
+        ("index=False",),
+    ),
+    "json-unnamed-column": Case(
+        post_json(body(train=table(["", "x", "y"], [[i, *r] for i, r in enumerate(curve(12))]))),
+        422,
+        at("/train/columns/0"),
+        ("index=False",),
     ),
 }
 

@@ -37,6 +37,15 @@ def _warnings() -> list[dict[str, Any]]:
             f"request's {hull.MAX_LP_SOLVES} linear programs were used up",
         },
         {
+            "code": "unseen_level",
+            "concerns": rows,
+            "rule": "a categorical feature of the row holds a level that no usable training "
+            "row holds: value, std_error, lower and upper are null and the row gets no other "
+            "flag (with categorical features the other locality flags are computed among the "
+            "training rows holding the row's levels; a combination of levels no training row "
+            "holds is outside_hull)",
+        },
+        {
             "code": "far_from_data",
             "concerns": rows,
             "rule": f"distance to the nearest training row over the typical spacing (median "
@@ -110,6 +119,12 @@ def _warnings() -> list[dict[str, Any]]:
             "code": "target_missing",
             "concerns": "rows or data set",
             "rule": "training rows without a target were left out of the fit",
+        },
+        {
+            "code": "index_like_feature",
+            "concerns": data,
+            "rule": "a feature used by default (`features` not given) holds exactly 0, 1, ..., "
+            "n - 1 or 1, 2, ..., n in row order: a saved index or row number",
         },
         {
             "code": "x_rounded",

@@ -10,6 +10,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from nearwise.core import index_like
 from nearwise.core.data import Table, _check_finite, listed
 from nearwise.core.errors import BadCell, BadTable, InvalidValue, UnknownName, Where, shown
 
@@ -28,6 +29,7 @@ def feature_arrays(
     if features is not None and len(set(features)) != len(features):
         raise InvalidValue("`features` names a column twice.", [Where(("features",), "twice")])
     names = tuple(train.columns) if features is None else tuple(features)
+    index_like.refuse_unnamed(train, names, features)
     if not names:
         raise InvalidValue(
             "`features` must name at least one column.", [Where(("features",), "empty")]
@@ -56,7 +58,10 @@ def _numbers(table: Table, idx: list[int]) -> np.ndarray:
             i = next(r for r, c in enumerate(table.labels[j]) if isinstance(c, str))
             raise BadCell(
                 f"{table.name} column `{shown(table.columns[j])}` must hold numbers; row {i} "
-                f"holds text {shown(table.labels[j][i], quoted=True)}.",
+                f"holds text {shown(table.labels[j][i], quoted=True)}. The locality "
+                "diagnostics measure distances on numeric features and take no `categorical` "
+                "columns (with /v1/predict their flags are computed within each level); list "
+                "the numeric columns in `features`.",
                 [Where((table.name, "rows", i, j), "expected a number, found text")],
             )
     block = table.values[:, idx]

@@ -190,8 +190,8 @@ def rank(ctx: pipeline.Context, tuned: dict[str, pipeline.Tuned]) -> list[RankRo
         c = t.chosen
         df = t.path.df[c]
         params = {**{k: v for k, v in t.settings.items() if v is not None}, t.tuned: t.values[c]}
-        p = ctx.X.shape[1]
-        params.update(pipeline.method_extra_params(t.method, t.settings, t.values[c], p))
+        p, coded = ctx.X.shape[1], ctx.data.categories is not None
+        params.update(pipeline.method_extra_params(t.method, t.settings, t.values[c], p, coded))
         rows.append(
             RankRow(
                 method=name,
@@ -240,7 +240,7 @@ def compare(job: Job) -> CompareResult:
     if ctx.data.X_query is not None:
         prediction = _predict(ctx, tuned[name], job)
     curves = None
-    if job.curve_points and ctx.X.shape[1] == 1:
+    if job.curve_points and ctx.X.shape[1] == 1 and ctx.data.categories is None:
         grid = pipeline.curve_grid(ctx.X, job.curve_points)
         curves = {}
         for m, t in tuned.items():

@@ -8,9 +8,11 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
+from nearwise.core import categories
 from nearwise.core.errors import (
     BadCell,
     BadTable,
@@ -52,7 +54,7 @@ class Table:
         Cell values; NaN marks a missing cell (JSON ``null`` or an empty CSV cell).
     labels : mapping of column index to object ndarray
         For columns holding any text cell: the raw cells. Their ``values`` entries are NaN.
-        Text is only allowed in the grouping column.
+        Text is only allowed in the ``categorical``, grouping and ``order_by`` columns.
     """
 
     name: str
@@ -90,6 +92,10 @@ class Prepared:
     weights: np.ndarray | None = None
     rows_zero_weight: int = 0
     query_weights: np.ndarray | None = None
+    # With ``categorical``: which feature columns are categories and their levels. Their
+    # columns of ``X``, ``X_all`` and ``X_query`` hold level codes (-1: a level the usable
+    # training rows do not hold; see :mod:`nearwise.core.categories`).
+    categories: categories.Categories | None = None
 
 
 def listed(names: Sequence[str], most: int = 20) -> str:
@@ -111,12 +117,17 @@ def _column_index(table: Table, name: str, path: tuple) -> int:
 
 def _first_text_cell(table: Table, j: int) -> None:
     if j in table.labels:
+        raise categories.undeclared_text(table, j)
+
+
+def _text_target(table: Table, j: int) -> None:
+    if j in table.labels:
         cells = table.labels[j]
         i = int(np.flatnonzero([isinstance(c, str) for c in cells])[0])
         raise BadCell(
-            f"{table.name} column `{shown(table.columns[j])}` must hold numbers; row {i} holds "
-            f"text {shown(cells[i], quoted=True)}. Only the `tuning.group_by` and "
-            "`tuning.order_by` columns may hold text.",
+            f"the target `{shown(table.columns[j])}` must hold numbers; {table.name} row {i} "
+            f"holds text {shown(cells[i], quoted=True)}. The methods predict numbers: a "
+            "categorical target (classification) is not offered.",
             [Where((table.name, "rows", i, j), "expected a number, found text")],
         )
 
@@ -182,12 +193,16 @@ def prepare(
     group_by: str | None,
     order_by: str | None = None,
     weight_by: str | None = None,
+    categorical: Sequence[str] = (),
+    reference: Mapping[str, Any] | None = None,
 ) -> Prepared:
     """Resolve columns and check every cell the fit will use.
 
     Rows whose target is missing are dropped and counted; any other missing or non-finite cell
     in a used column is an error naming its row and column. With ``weight_by``, rows of weight
-    0 are dropped too and counted apart (see :func:`_weights`).
+    0 are dropped too and counted apart (see :func:`_weights`). The ``categorical`` columns
+    are features holding levels (``reference``: column -> reference level); see
+    :mod:`nearwise.core.categories`.
     """
     if len(set(train.columns)) != len(train.columns):
         dup = next(c for c in train.columns if train.columns.count(c) > 1)
@@ -205,6 +220,12 @@ def prepare(
             "places rows in time.",
             [Where(("tuning", "order_by"), "the target")],
         )
+    roles = {t: "the target"}
+    for j, role in ((g, "`tuning.group_by`"), (o, "`tuning.order_by`"), (wc, "`weight_by`")):
+        if j is not None:
+            roles.setdefault(j, f"the {role} column")
+    cat_cols = categories.declared(train, categorical, roles) if categorical else []
+    refs = categories.reference_names(reference or {}, categorical)
     if features is None:
         f_idx = [j for j in range(len(train.columns)) if j not in (t, g, o, wc)]
         if not f_idx:
@@ -231,6 +252,14 @@ def prepare(
                     f"feature `{shown(train.columns[j])}` is also the {role}.",
                     [Where(("features", k), f"`{shown(train.columns[j])}` is the {role}")],
                 )
+    for k, j in enumerate(cat_cols):
+        if j not in f_idx:
+            raise InvalidValue(
+                f"`categorical` names `{shown(train.columns[j])}`, which is not in `features`; "
+                "a categorical column is a feature: add it to `features`, or leave it out of "
+                "`categorical`.",
+                [Where(("categorical", k), "not among the features")],
+            )
     if o is not None and o in f_idx and o in train.labels:
         k = f_idx.index(o)
         raise BadCell(
@@ -239,12 +268,14 @@ def prepare(
             "use it as a feature, or leave it out of `features`.",
             [Where(("features", k), "dates cannot be a feature")],
         )
-    for j in [*f_idx, t]:
+    num_idx = [j for j in f_idx if j not in cat_cols]
+    for j in num_idx:
         _first_text_cell(train, j)
+    _text_target(train, t)
     names = tuple(train.columns[j] for j in f_idx)
     X_all = train.values[:, f_idx]
     y_all = train.values[:, t]
-    _check_finite(train, f_idx, X_all, "feature")
+    _check_finite(train, num_idx, train.values[:, num_idx], "feature")
     if np.isinf(y_all).any():
         i = int(np.flatnonzero(np.isinf(y_all))[0])
         raise BadCell(
@@ -271,6 +302,13 @@ def prepare(
             )
         zero = int(kept.size - positive.size)
         kept, weights = positive, weights[positive]
+    cats = None
+    if cat_cols:
+        ordered = sorted(cat_cols, key=f_idx.index)  # in the order of the features
+        at = [cat_cols.index(j) for j in ordered]  # each one's place in `categorical`
+        cats, codes = categories.encode(train, ordered, kept, f_idx, refs, at)
+        X_all = X_all.copy()
+        X_all[:, list(cats.positions)] = codes
     groups = None
     if g is not None:
         # Codes of the usable rows only, so that a group whose targets are all missing does
@@ -279,10 +317,15 @@ def prepare(
     X_query = query_weights = None
     if query is not None:
         q_idx = [_column_index(query, f, ("query", "columns")) for f in names]
-        for j in q_idx:
+        q_num = [j for k, j in enumerate(q_idx) if cats is None or k not in cats.positions]
+        for j in q_num:
             _first_text_cell(query, j)
         X_query = query.values[:, q_idx]
-        _check_finite(query, q_idx, X_query, "feature")
+        _check_finite(query, q_num, query.values[:, q_num], "feature")
+        if cats is not None:
+            X_query = X_query.copy()
+            q_cat = [q_idx[k] for k in cats.positions]
+            X_query[:, list(cats.positions)] = categories.query_codes(query, q_cat, cats)
         if weight_by is not None and weight_by in query.columns:
             query_weights = _weights(query, query.columns.index(weight_by), positive=True)
     return Prepared(
@@ -299,6 +342,7 @@ def prepare(
         weights=weights,
         rows_zero_weight=zero,
         query_weights=query_weights,
+        categories=cats,
     )
 
 

@@ -7,7 +7,18 @@ from typing import Any
 
 import numpy as np
 
-from nearwise.core import cost, locality, locality_cost, sequence, serial, tuning, uncertainty
+from nearwise.core import (
+    categories,
+    cost,
+    index_like,
+    level_locality,
+    locality,
+    locality_cost,
+    sequence,
+    serial,
+    tuning,
+    uncertainty,
+)
 from nearwise.core.budget import Deadline, blocks
 from nearwise.core.data import Prepared, prepare
 from nearwise.core.errors import BadCell, NotApplicable, OverLimit, UnknownName, Where
@@ -89,9 +100,22 @@ def _setup(job: Job, deadline: Deadline) -> Context:
     tuning.check_spec(job.tuning)
     check_fold_fits(job)
     spec = job.tuning
+    check_categorical(job)
     data = prepare(
-        job.train, job.target, job.features, job.query, spec.group_by, spec.order_by, job.weight_by
+        job.train,
+        job.target,
+        job.features,
+        job.query,
+        spec.group_by,
+        spec.order_by,
+        job.weight_by,
+        job.categorical,
+        job.categorical_reference,
     )
+    categories.check_cells(
+        data.categories, data.X_all.shape[0], job.caps.cells, job.caps.label("cells")
+    )
+    index_like.refuse_unnamed(job.train, data.features, job.features)
     line = None
     if spec.order_by is not None:
         line = sequence.timeline(job.train, spec.order_by).take(data.kept)
@@ -106,7 +130,8 @@ def _setup(job: Job, deadline: Deadline) -> Context:
     if line is not None:
         line = line.take(canon)
     # The pilot's noise estimate, along order_by or in the order the rows arrived.
-    noise = serial.noise_lag1(X, y, canon if line is None else line.step, deadline.check)
+    flat = X if data.categories is None else data.categories.flat(X)
+    noise = serial.noise_lag1(flat, y, canon if line is None else line.step, deadline.check)
     gap = None
     if spec.scheme in ORDERED_SCHEMES:
         assert line is not None  # check_spec asks for order_by
@@ -115,6 +140,18 @@ def _setup(job: Job, deadline: Deadline) -> Context:
         folds = tuning.make_folds(X.shape[0], spec, groups, deadline.check)
     w = None if data.weights is None else data.weights[canon]
     return Context(job, data, canon, X, y, folds, deadline, line, gap, noise, w)
+
+
+def check_categorical(job: Job) -> None:
+    """Refuse the options that do not take categorical features yet: adaptive intervals (their
+    local spread is measured by distances on numeric features)."""
+    if job.categorical and job.interval.adaptive:
+        raise NotApplicable(
+            "`interval.adaptive` is not offered with `categorical` features: the local spread "
+            "of the residuals is measured by distances on numeric features. Leave out "
+            "`adaptive`, or the categorical columns.",
+            [Where(("interval", "adaptive"), "not offered with categorical features")],
+        )
 
 
 def check_model_interval(method: Method, job: Job) -> None:
@@ -161,11 +198,15 @@ def check_grid_size(job: Job, grid) -> None:
 def shape(ctx: Context) -> cost.Shape:
     """The size of the request's work, for the cost estimate."""
     q = 0 if ctx.data.X_query is None else int(ctx.data.X_query.shape[0])
-    n, folds = ctx.X.shape[0], ctx.folds
-    s = cost.Shape.of(n, ctx.X.shape[1], q, ctx.job.tuning, folds.n_folds, n - folds.min_train)
-    if q and ctx.job.caps.cost_s is not None:  # measured on the data (locality_cost)
+    n, folds, cats = ctx.X.shape[0], ctx.folds, ctx.data.categories
+    # With categorical features their dummy columns count as features.
+    p = ctx.X.shape[1] if cats is None else cats.width
+    s = cost.Shape.of(n, p, q, ctx.job.tuning, folds.n_folds, n - folds.min_train)
+    num = list(range(ctx.X.shape[1])) if cats is None else list(cats.numeric)
+    if q and num and ctx.job.caps.cost_s is not None:  # measured on the data (locality_cost)
         with ctx.deadline.scope():
-            measured = locality_cost.measure(ctx.X, ctx.data.X_query)
+            # Within level combinations the flags search subsets: all rows bound the work.
+            measured = locality_cost.measure(ctx.X[:, num], ctx.data.X_query[:, num])
         s = replace(s, locality=measured.seconds())
     return s
 
@@ -175,6 +216,11 @@ def check_method(
 ) -> tuple[dict[str, Any], Any]:
     """The method's settings and grid from the caller's values, and the options it supports."""
     check_grid_size(job, grid)
+    if job.categorical and not method.categorical:
+        raise NotApplicable(
+            f"{method.name} does not take categorical features ({method.categorical_doc}).",
+            [Where(("categorical",), f"not offered by {method.name}")],
+        )
     settings = method.settings(params)
     if intervals:
         uncertainty.check(job.interval, method, method.interval_kinds_for(settings))
@@ -199,7 +245,13 @@ def _tune(ctx: Context, method: Method, settings: dict[str, Any], grid) -> Tuned
     # ``line``: where the working rows lie along order_by (None without it), for fits whose
     # error figures account for serial dependence (linear: HAC standard errors).
     # ``weights``: the rows' precision weights (None: all 1), read by every method.
-    work: dict[str, Any] = {"features": ctx.data.features, "line": ctx.line, "weights": ctx.w}
+    # ``categories``: which columns of X hold level codes (None: all numeric).
+    work: dict[str, Any] = {
+        "features": ctx.data.features,
+        "line": ctx.line,
+        "weights": ctx.w,
+        "categories": ctx.data.categories,
+    }
     values = method.candidates(ctx.X, ctx.y, ctx.folds, settings, grid, work)
     ctx.deadline.check()
     path = method.path(ctx.X, ctx.y, ctx.folds, settings, values, work)
@@ -245,6 +297,12 @@ def _answer(ctx: Context, t: Tuned) -> PredictResult:
 
     at_query = data.X_query is not None
     where = data.X_query if at_query else data.X_all
+    cats = data.categories
+    unseen = None if cats is None else cats.unseen(where)
+    if unseen is not None and unseen.any():
+        # Rows holding a level not in training are answered with null: every figure is
+        # computed at the reference level in its place and then blanked.
+        where = cats.placeholder(where)
     with np.errstate(over="ignore", invalid="ignore"):
         value_at = predict_rows(model, where, X.shape[0])
         summary = model.summary(data.features)
@@ -273,13 +331,17 @@ def _answer(ctx: Context, t: Tuned) -> PredictResult:
     )
     notices = [
         *_fit_notices(data, t, folds, model, at_query),
+        *index_like.notices(job.train, data.features, job.features),
         *work.get("notices", ()),
         *bars.notices,
         *model.query_notices(where),
     ]
     if at_query:
         scale = settings.get("scale") or "standard"
-        notices.extend(locality.query_flags(X, where, scale).notices)
+        if cats is None:
+            notices.extend(locality.query_flags(X, where, scale).notices)
+        else:
+            notices.extend(level_locality.query_flags(X, data.X_query, scale, cats).notices)
     notices.extend(serial.notice(dep, job.tuning))
     cv_residual = None
     if not at_query:
@@ -290,7 +352,7 @@ def _answer(ctx: Context, t: Tuned) -> PredictResult:
         **{k: v for k, v in settings.items() if v is not None},
         t.tuned: value,
     }
-    params.update(method_extra_params(method, settings, value, X.shape[1]))
+    params.update(method_extra_params(method, settings, value, X.shape[1], cats is not None))
     fit = FitReport(
         n_train=int(X.shape[0]),
         rows_dropped=data.rows_dropped,
@@ -302,8 +364,15 @@ def _answer(ctx: Context, t: Tuned) -> PredictResult:
         rows_zero_weight=data.rows_zero_weight,
         weight_by=job.weight_by,
     )
+    if unseen is not None and unseen.any():
+        value_at[unseen] = np.nan  # no level effect: value, std_error and bounds are null
+        for arr in (bars.std_error, bars.lower, bars.upper):
+            arr[unseen] = np.nan
+        notices = categories.unseen_notices(notices, unseen, cats, at_query)
+    if cats is not None:
+        summary = {**summary, "categorical": cats.describe()}
     curve = None
-    if job.curve_points and X.shape[1] == 1:
+    if job.curve_points and X.shape[1] == 1 and cats is None:
         grid = curve_grid(X, job.curve_points)
         with np.errstate(over="ignore", invalid="ignore"):
             at = model.predict(grid)
@@ -536,8 +605,12 @@ def _check_predictions(value: np.ndarray, table: str) -> None:
         )
 
 
-def method_extra_params(method: Method, settings, value, n_features: int) -> dict[str, Any]:
+def method_extra_params(
+    method: Method, settings, value, n_features: int, categorical: bool = False
+) -> dict[str, Any]:
     """Parameters whose default depends on the chosen value or the data, made explicit."""
+    if method.name == "knn" and categorical:
+        return {"mismatch": settings.get("mismatch", categories.MISMATCH)}
     if method.name == "linear":
         inter = settings.get("interactions")
         return {"interactions": (int(value) > 1) if inter is None else inter}

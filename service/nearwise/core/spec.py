@@ -57,6 +57,7 @@ class Caps:
     fold_fits: int | None = None  # folds x repeats of kfold tuning
     methods: int | None = None  # methods in one compare (or auto)
     cost_s: float | None = None  # estimated seconds of fitting on one core
+    cells: int | None = None  # rows x columns of a design with categorical columns coded
     names: Mapping[str, str] = field(default_factory=dict)
 
     def label(self, limit: str) -> str:
@@ -91,6 +92,9 @@ class Job:
     curve_points: int = 0  # one feature: also evaluate the fit on this many points (pictures)
     caps: Caps = field(default_factory=Caps)
     weight_by: str | None = None  # a train column of row weights (precision; 0 drops a row)
+    # Feature columns holding categories, and reference levels by column (see categories.py).
+    categorical: Sequence[str] = ()
+    categorical_reference: Mapping[str, Any] = field(default_factory=dict)
     deadline: Deadline | None = field(default=None, compare=False, repr=False)
 
     def clock(self) -> Deadline:

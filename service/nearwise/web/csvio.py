@@ -1,9 +1,10 @@
-"""CSV parts in (header line, then one row per line; empty cell = missing) and CSV answers out.
+"""CSV parts in (header line, then one row per line) and CSV answers out.
 
 Spreadsheet habits are met, never guessed at: a UTF-8 byte-order mark and CRLF line ends are
 accepted, quoted numbers are numbers, and a cell holding only spaces is empty (as JSON
-``null``). ``delimiter`` and ``decimal`` (:class:`Dialect`) read semicolon lists with decimal
-commas. Undeclared, a file that only makes sense in another dialect (a header split by
+``null``); so is a missing-value token such as ``NA`` (:mod:`.csv_cells`, field ``na``).
+``delimiter`` and ``decimal`` (:class:`Dialect`) read semicolon lists with decimal commas.
+Undeclared, a file that only makes sense in another dialect (a header split by
 semicolons or tabs, or a cell such as ``1,500`` that is a number only if the comma is a decimal
 or thousands separator) is refused with a message naming the parameters to set.
 
@@ -35,13 +36,12 @@ from numpy.dtypes import StringDType
 from nearwise.core.data import Table
 from nearwise.core.errors import BadTable, Where, shown
 from nearwise.web import prescan
+from nearwise.web.csv_cells import PANDAS, Missing, convert
 from nearwise.web.problems import Problem
 from nearwise.web.tables import Limits, Parsed, check_finite, check_shape, most_rows, too_large
 
-_NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
 #: Digits with commas or points in a way that would be a number under another reading.
 _SEPARATED = re.compile(r"\s*[+-]?[\d.,]*\d[\d.,]*(?:[eE][+-]?\d+)?\s*", re.ASCII)
-_SPECIAL = ("nan", "inf", "-inf", "+inf", "infinity", "-infinity", "+infinity")
 
 DELIMITERS = {",": ",", "comma": ",", ";": ";", "semicolon": ";", "tab": "\t", "\t": "\t"}
 DELIMITERS |= {"|": "|", "pipe": "|"}
@@ -214,8 +214,10 @@ def read_csv(
     limits: Limits,
     parts: dict[str, CsvPart],
     dialect: Dialect = PLAIN,
+    missing: Missing = PANDAS,
 ) -> Parsed:
-    """Parse one CSV part (UTF-8, a header line first) in the given dialect.
+    """Parse one CSV part (UTF-8, a header line first) in the given dialect, with the
+    ``missing`` tokens read as missing cells.
 
     The part is recorded in ``parts`` first, so errors inside it can name its lines. Limits
     are checked while reading (see the module's notes).
@@ -265,24 +267,25 @@ def read_csv(
         ) from None
     numbers = cells
     if dialect.decimal == ",":
-        _refuse_points(name, cells, dialect)
+        _refuse_points(name, cells, dialect, missing)
         numbers = np.strings.replace(cells, ",", ".") if cells.size else cells
     plain = data.isascii() and b"_" not in data
-    values, labels, is_num = _convert(numbers, cells, plain)
+    values, labels, is_num = convert(numbers, cells, plain, missing)
     if dialect.decimal == "." and labels:
         _refuse_commas(name, labels, dialect)
     check_finite(name, values, is_num)
     return Parsed(Table(name, tuple(header), values, labels), rows)
 
 
-def _refuse_points(name: str, cells: np.ndarray, dialect: Dialect) -> None:
-    """With decimal commas, a number-like cell holding a point is ambiguous (1.500)."""
+def _refuse_points(name: str, cells: np.ndarray, dialect: Dialect, missing: Missing) -> None:
+    """With decimal commas, a number-like cell holding a point is ambiguous (1.500), unless
+    it is a missing-value token."""
     if not cells.size:
         return
     dotted = np.nonzero(np.strings.find(cells, ".") >= 0)
     for i, j in zip(*dotted, strict=True):
         cell = str(cells[i, j])
-        if _SEPARATED.fullmatch(cell):
+        if _SEPARATED.fullmatch(cell) and cell not in missing:
             raise Problem(
                 400,
                 f"{name} row {i}, column {j} holds {shown(cell, True)}, a number with a point "
@@ -308,50 +311,6 @@ def _refuse_commas(name: str, labels: dict[int, np.ndarray], dialect: Dialect) -
                     [Where((name, "rows", i, j), "comma in a number; set decimal")],
                     code=UNDECLARED,
                 )
-
-
-def _convert(
-    numbers: np.ndarray, cells: np.ndarray, plain: bool
-) -> tuple[np.ndarray, dict[int, np.ndarray], np.ndarray]:
-    """Numbers to floats (empty -> NaN) and text to labels; also the mask of number cells.
-
-    ``numbers`` is parsed; ``cells`` (the text as sent) is kept for labels.
-    """
-    is_num = np.ones(numbers.shape, dtype=bool)
-    values = np.empty(numbers.shape)
-    labels: dict[int, np.ndarray] = {}
-    for j in range(numbers.shape[1]):
-        col = numbers[:, j]
-        if plain:
-            try:
-                values[:, j] = col.astype(np.float64)  # every cell a number: the common case
-                continue
-            except ValueError:
-                is_num[:, j] = filled = col != ""
-            try:
-                values[:, j] = np.nan
-                values[filled, j] = col[filled].astype(np.float64)  # numbers and empty cells
-                continue
-            except ValueError:
-                pass
-        else:
-            is_num[:, j] = col != ""
-        objs = np.frompyfunc(_cell, 1, 1)(col.astype(object))
-        is_text = np.frompyfunc(lambda c: isinstance(c, str), 1, 1)(objs).astype(bool)
-        is_none = np.frompyfunc(lambda c: c is None, 1, 1)(objs).astype(bool)
-        values[:, j] = np.where(is_text | is_none, np.nan, objs).astype(np.float64)
-        is_num[:, j] &= ~(is_text | is_none)
-        if is_text.any():
-            labels[j] = np.where(is_text, cells[:, j].astype(object), objs)
-    return values, labels, is_num
-
-
-def _cell(text: str) -> Any:
-    if not text.strip():
-        return None  # empty, or only spaces: missing, as JSON null
-    if _NUMBER.fullmatch(text) or text.strip().lower() in _SPECIAL:
-        return float(text)
-    return text
 
 
 #: A text cell starting with one of these is read as a formula by spreadsheets; the CSV

@@ -28,13 +28,13 @@ from werkzeug.datastructures import FileStorage, MultiDict
 from werkzeug.formparser import FormDataParser
 
 from nearwise.core.errors import InvalidValue, Where, shown
-from nearwise.web import forms, prescan
+from nearwise.web import csv_cells, forms, prescan, table_shapes
 from nearwise.web.body import read_body, unsupported_media_type
 from nearwise.web.csvio import PLAIN, CsvPart, Dialect, dialect_from, read_csv
 from nearwise.web.jsonio import DuplicateKey, TooDeep, loads_strict
 from nearwise.web.problems import Problem
 from nearwise.web.settings import Settings
-from nearwise.web.tables import Limits, Parsed, from_json
+from nearwise.web.tables import Limits, Parsed
 from nearwise.web.validation import load
 
 JSON, MULTIPART, CSV, TEXT = "application/json", "multipart/form-data", "text/csv", "text/plain"
@@ -97,11 +97,13 @@ def most_items(settings: Settings) -> int:
 def json_bounds(settings: Settings) -> tuple[int, int]:
     """The most values and the most arrays and objects a JSON request within the limits
     holds: both tables at their cell and row limits, their column names, and room for the
-    other fields (every grid at its limit for a dozen parameters, and more)."""
+    other fields (every grid at its limit for a dozen parameters, and more). A row counts
+    twice: its array or object, and its entry in a split shape's `index` (row objects' keys
+    are not values)."""
     query_rows = settings.max_rows if settings.max_query_rows is None else settings.max_query_rows
     containers = settings.max_rows + query_rows + 1_000
     other = 2 * settings.max_columns + 12 * settings.max_grid + 1_000
-    return 2 * settings.max_cells + containers + other, containers
+    return 2 * settings.max_cells + 2 * containers + other, containers
 
 
 def _check_json_size(body: bytes, settings: Settings) -> None:
@@ -143,11 +145,13 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
             code="invalid_request",
         )
     dialect = _dialect(request.args, MultiDict())
+    if isinstance(parsed.doc, dict) and "na" in parsed.doc:
+        raise csv_cells.na_in_json()
     data = load(schema, parsed.doc)
+    shapes: dict[str, table_shapes.Shape] = {}
+    g.json_tables = shapes  # how each table was sent, for the pointers of later errors
     tables = {
-        name: from_json(
-            name, data[name]["columns"], data[name]["rows"], limits, parsed.saw_constant
-        )
+        name: table_shapes.read(name, data[name], limits, parsed.saw_constant, shapes)
         for name in TABLES
         if name in data
     }
@@ -227,6 +231,7 @@ def _csv(
         merged.setlist(name, request.args.getlist(name))
     doc = forms.collect(((k, merged.getlist(k)) for k in merged), schema, items)
     data = load(schema, doc)
+    missing = csv_cells.missing_from(data.pop("na", None))
     csv_parts: dict[str, CsvPart] = {}
     g.csv_parts = csv_parts
     tables: dict[str, Parsed] = {}
@@ -235,7 +240,7 @@ def _csv(
         if len(sent) > 1:
             raise forms.twice(name)
         if sent:
-            tables[name] = read_csv(name, sent[0], limits, csv_parts, dialect)
+            tables[name] = read_csv(name, sent[0], limits, csv_parts, dialect, missing)
     if "train" not in tables:
         raise InvalidValue(
             "The `train` table is missing: send it as a CSV part named train.",

@@ -12,10 +12,21 @@ from nearwise.web.fields import Number, StrictInteger
 from nearwise.web.openapi_parts import FORM_RULES, form_fields
 from nearwise.web.predict_doc import DIALECT_PARAMETERS
 from nearwise.web.responses import WarningSchema
-from nearwise.web.schemas import DEFAULTS, QueryTableSchema, Strict, TableSchema, _doc, _name
+from nearwise.web.schemas import (
+    DEFAULTS,
+    CsvFields,
+    QuerySplitTableSchema,
+    QueryTableSchema,
+    SplitTableSchema,
+    Strict,
+    TableSchema,
+    _doc,
+    _name,
+    _table,
+)
 
 
-class LocalityFields(Strict):
+class LocalityFields(CsvFields):
     """Every request field except the tables (the form-field view of a request)."""
 
     features = fields.List(
@@ -54,9 +65,21 @@ class LocalityFields(Strict):
 
 
 class LocalityRequest(LocalityFields):
-    train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
-    query = fields.Nested(
-        QueryTableSchema, metadata=_doc("Rows to judge; holds the feature columns.")
+    class Meta(Strict.Meta):
+        exclude = ("na",)  # CSV tables only
+
+    train = _table(
+        TableSchema,
+        SplitTableSchema,
+        DEFAULTS.max_rows,
+        required=True,
+        metadata=_doc("The training table."),
+    )
+    query = _table(
+        QueryTableSchema,
+        QuerySplitTableSchema,
+        DEFAULTS.max_query_rows,
+        metadata=_doc("Rows to judge; holds the feature columns."),
     )
 
 

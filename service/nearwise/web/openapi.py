@@ -18,6 +18,9 @@ from nearwise.web.settings import OPEN_ENDPOINT_CHOICES
 _METHODS = ("get", "post", "put", "patch", "delete")
 _SCHEMAS = {  # nested schemas before the schemas that hold them
     "Table": schemas.TableSchema,
+    "QueryTable": schemas.QueryTableSchema,
+    "SplitTable": schemas.SplitTableSchema,  # the tables' other shapes: web/table_shapes.py
+    "QuerySplitTable": schemas.QuerySplitTableSchema,
     "Tuning": schemas.TuningSchema,
     "Interval": schemas.IntervalSchema,
     "PredictRequest": schemas.PredictRequest,

@@ -75,6 +75,13 @@ class CsvSource(Protocol):
     def line_of(self, row: int) -> int: ...
 
 
+class JsonShape(Protocol):
+    """How a JSON table was sent: turns a path in the rows shape into one in its own shape
+    (:class:`nearwise.web.table_shapes.Shape`)."""
+
+    def path(self, path: tuple[str | int, ...]) -> tuple[str | int, ...]: ...
+
+
 def pointer(path: Sequence[str | int]) -> str:
     """RFC 6901 JSON Pointer for a path: ``("train", "rows", 3, 1)`` -> ``/train/rows/3/1``.
 
@@ -82,9 +89,15 @@ def pointer(path: Sequence[str | int]) -> str:
     return "".join("/" + shown(p).replace("~", "~0").replace("/", "~1") for p in path)
 
 
-def error_entry(where: Where, csv_parts: Mapping[str, CsvSource]) -> dict[str, Any]:
-    """One ``errors`` entry; a place inside a CSV part is named by part, line and column."""
+def error_entry(
+    where: Where, csv_parts: Mapping[str, CsvSource], json_tables: Mapping[str, JsonShape] = {}
+) -> dict[str, Any]:
+    """One ``errors`` entry; a place inside a CSV part is named by part, line and column, a
+    place in a JSON table by its pointer in the shape the table was sent in."""
     path = where.path
+    shape = json_tables.get(str(path[0])) if path else None
+    if shape is not None:
+        return {"pointer": pointer(shape.path(path)), "message": where.message}
     part = csv_parts.get(str(path[0])) if path else None
     if part is None:
         return {"pointer": pointer(path), "message": where.message}
@@ -134,15 +147,22 @@ def _csv_parts() -> Mapping[str, CsvSource]:
     return g.get("csv_parts", {})
 
 
+def _json_tables() -> Mapping[str, JsonShape]:
+    return g.get("json_tables", {})
+
+
 def handle(exc: Exception) -> Response:
     """Turn any exception into a problem response; unexpected ones are logged as 500."""
     if isinstance(exc, Problem):
-        errors = [w if isinstance(w, dict) else error_entry(w, _csv_parts()) for w in exc.where]
+        errors = [
+            w if isinstance(w, dict) else error_entry(w, _csv_parts(), _json_tables())
+            for w in exc.where
+        ]
         title = exc.title or _phrase(exc.status)
         code = exc.code or HTTP_CODES.get(exc.status, "error")
         return problem_response(exc.status, title, exc.detail, code, errors, exc.headers)
     if isinstance(exc, NearwiseError):
-        errors = [error_entry(w, _csv_parts()) for w in exc.where]
+        errors = [error_entry(w, _csv_parts(), _json_tables()) for w in exc.where]
         if isinstance(exc, OverBudget):
             headers = {"Retry-After": str(RETRY_AFTER_S)}
             return problem_response(503, exc.title, exc.detail, exc.code, errors, headers)

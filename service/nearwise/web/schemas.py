@@ -14,8 +14,10 @@ from marshmallow import RAISE, Schema, fields, validate
 
 from nearwise.core.methods import METHODS
 from nearwise.core.spec import INTERVAL_KINDS, METRICS, RULES, SCHEMES
+from nearwise.web.csv_cells import MAX_TOKEN_CHARS, MAX_TOKENS
 from nearwise.web.fields import Number, Rows, Scalar, StrictInteger
 from nearwise.web.settings import Settings
+from nearwise.web.table_shapes import Index, TableField
 
 #: The limits the document states: those of the default settings.
 DEFAULTS = Settings()
@@ -43,7 +45,8 @@ class Strict(Schema):
 def _rows_doc(limit: int, setting: str) -> dict[str, object]:
     return _doc(
         "One array per row, one cell per column: a number, null (missing) or text (only in "
-        f"the `tuning.group_by` column). At most {limit} rows ({setting}), at most "
+        "the `categorical`, `tuning.group_by` and `tuning.order_by` columns). "
+        f"At most {limit} rows ({setting}), at most "
         f"{DEFAULTS.max_columns} cells per row and {DEFAULTS.max_cells} cells in all "
         "(NEARWISE_MAX_CELLS); a larger table is a 413.",
         example=[[7.1, 812.0], [7.4, None]],
@@ -77,6 +80,46 @@ class QueryTableSchema(TableSchema):
         required=True,
         metadata=_rows_doc(DEFAULTS.max_query_rows, "NEARWISE_MAX_QUERY_ROWS"),
     )
+
+
+def _index_doc(limit: int) -> dict[str, object]:
+    return _doc(
+        "Row labels (any values), one per row of `data`; not read. May be left out.",
+        type="array",
+        maxItems=limit,
+    )
+
+
+class SplitTableSchema(TableSchema):
+    """pandas' `split` shape (`to_json(orient="split")`): `data` holds the rows."""
+
+    class Meta(Strict.Meta):
+        title = "split"
+        exclude = ("rows",)  # `data` holds them
+
+    index = Index(metadata=_index_doc(DEFAULTS.max_rows))
+    data = Rows(
+        DEFAULTS.max_columns,
+        required=True,
+        metadata=_rows_doc(DEFAULTS.max_rows, "NEARWISE_MAX_ROWS"),
+    )
+
+
+class QuerySplitTableSchema(SplitTableSchema):
+    """A query table in the split shape, with the query's row limit."""
+
+    index = Index(metadata=_index_doc(DEFAULTS.max_query_rows))
+    data = Rows(
+        DEFAULTS.max_columns,
+        required=True,
+        metadata=_rows_doc(DEFAULTS.max_query_rows, "NEARWISE_MAX_QUERY_ROWS"),
+    )
+
+
+def _table(rows: type[Schema], split: type[Schema], limit: int, **kwargs: object) -> TableField:
+    """A table field: `{columns, rows}`, a list of row objects or the split shape."""
+    bounds = {"max_rows": limit, "max_columns": DEFAULTS.max_columns, "max_name": MAX_NAME}
+    return TableField(rows, split, **bounds, **kwargs)  # type: ignore[arg-type]
 
 
 class TuningSchema(Strict):
@@ -162,7 +205,28 @@ class IntervalSchema(Strict):
     )
 
 
-class _JobFields(Strict):
+class CsvFields(Strict):
+    """Fields on how CSV tables are read: form fields and query-string parameters only (a
+    JSON body holding one is a 422: JSON tables mark a missing cell with null)."""
+
+    na = fields.List(
+        fields.String(validate=validate.Length(max=MAX_TOKEN_CHARS)),
+        validate=validate.Length(max=MAX_TOKENS),
+        metadata=_doc(
+            "CSV tables only: the texts read as a missing value (like an empty cell or JSON "
+            "null), replacing the default set, which is pandas read_csv's: `NA`, `N/A`, `n/a`, "
+            "`#N/A`, `#N/A N/A`, `#NA`, `NULL`, `null`, `None`, `<NA>`, `NaN`, `-NaN`, `nan`, "
+            "`-nan`, `1.#IND`, `-1.#IND`, `1.#QNAN`, `-1.#QNAN`. A token matches a whole cell "
+            "exactly (case and spaces count); an empty cell is always missing, so `na=` (one "
+            "empty item) leaves only empty cells missing. Comma-separated, repeated, or a "
+            f"JSON array (for tokens holding commas); at most {MAX_TOKENS}.",
+            example=["NA", "-999"],
+            maxItems=MAX_TOKENS,
+        ),
+    )
+
+
+class _JobFields(CsvFields):
     """The fields predict and compare share, except the tables."""
 
     target = _name(required=True, metadata=_doc("Column of `train` to predict."))
@@ -204,6 +268,33 @@ class _JobFields(Strict):
             example="n_readings",
         )
     )
+    categorical = fields.List(
+        _name(),
+        validate=validate.Length(min=1),
+        metadata=_doc(
+            "Feature columns holding categories (text, or numbers read as names: 1, 1.0 and "
+            '"1" are the level `1`). Levels come from the usable training rows, sorted as '
+            "numbers when all are numbers, else as text; at most 200 per column, and rows x "
+            "(numeric features + levels) within NEARWISE_MAX_CELLS. linear and additive use "
+            "treatment coding (a 0/1 term `column[level]` per level but the reference); knn "
+            "adds gamma^2 (`params.mismatch`, default 1) to the squared distance per column "
+            "that differs; spline refuses them. A query row with a level not in training is "
+            "answered with the flag `unseen_level` and null value and bounds. A missing level "
+            "is refused. Form fields: comma-separated or repeated.",
+            example=["dock"],
+            maxItems=DEFAULTS.max_columns,
+        ),
+    )
+    categorical_reference = fields.Dict(
+        keys=_name(),
+        values=Scalar(MAX_NAME),
+        metadata=_doc(
+            "Reference level per categorical column (the level the others are compared "
+            "with); default: the first level in sorted order. Form fields: "
+            "`categorical_reference.dock=B`.",
+            example={"dock": "B"},
+        ),
+    )
 
 
 class PredictFields(_JobFields):
@@ -238,9 +329,17 @@ class CompareFields(_JobFields):
 
 
 class _Tables(Strict):
-    train = fields.Nested(TableSchema, required=True, metadata=_doc("The training table."))
-    query = fields.Nested(
+    train = _table(
+        TableSchema,
+        SplitTableSchema,
+        DEFAULTS.max_rows,
+        required=True,
+        metadata=_doc("The training table."),
+    )
+    query = _table(
         QueryTableSchema,
+        QuerySplitTableSchema,
+        DEFAULTS.max_query_rows,
         metadata=_doc(
             "Rows to predict at; it holds at least the feature columns. Absent: predict at the "
             "training rows (fitted values, with `residual`)."
@@ -251,6 +350,12 @@ class _Tables(Strict):
 class CompareRequest(CompareFields, _Tables):
     """The compare request as JSON."""
 
+    class Meta(Strict.Meta):
+        exclude = ("na",)  # CSV tables only
+
 
 class PredictRequest(PredictFields, _Tables):
     """The predict request as JSON."""
+
+    class Meta(Strict.Meta):
+        exclude = ("na",)  # CSV tables only

@@ -3,7 +3,8 @@
 Cells are numbers, ``null`` (JSON) or an empty cell (CSV) for a missing value, or text (kept in
 ``Table.labels``; the core allows text only in the grouping column). Booleans, nested values,
 ``NaN``/``Infinity`` literals and numbers too large for a double are refused with the row and
-column at fault; nothing is coerced.
+column at fault; nothing is coerced. Row objects and pandas' split shape are read into rows
+by :mod:`nearwise.web.table_shapes` first.
 """
 
 from __future__ import annotations
@@ -199,7 +200,7 @@ def not_finite(name: str, i: int, j: int) -> None:
 def _raise_first_problem(name: str, rows: list[Any], p: int) -> Any:
     """Walk the rows cell by cell (only on the error path) and raise at the first fault."""
     for i, row in enumerate(rows):
-        if not isinstance(row, list):
+        if not isinstance(row, list | tuple):  # tuples: rows made from row objects
             raise BadTable(
                 f"{name} row {i} must be an array of {p} cells; got {type(row).__name__}.",
                 [Where((name, "rows", i), "expected an array")],

@@ -27,7 +27,7 @@ from __future__ import annotations
 import numpy as np
 
 from nearwise.core import windows
-from nearwise.core.errors import InvalidValue, TooFewRows, Where
+from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
 from nearwise.core.methods.additive_basis import (
     BLOCK,
     Basis,
@@ -39,6 +39,7 @@ from nearwise.core.methods.additive_basis import (
 from nearwise.core.methods.additive_model import FittedAdditive, FoldAdditive
 from nearwise.core.methods.additive_solve import Reduced, Smoother
 from nearwise.core.methods.base import Method, Param, PathResult, row_weights
+from nearwise.core.methods.coding import categories_of
 
 GRID_SIZE = 20
 MAX_WIGGLY = 600  # penalized columns in all: each REML step factors a square system this size
@@ -52,7 +53,8 @@ class Additive(Method):
     summary = (
         "Additive model y = alpha + sum of f_j(x_j), each f_j a penalized cubic regression "
         "spline in one feature with its own smoothing chosen by REML; `smoothing` multiplies "
-        "them all. Larger smoothing is simpler; very large smoothing gives a linear model."
+        "them all. Larger smoothing is simpler; very large smoothing gives a linear model. "
+        "Categorical features add an unpenalized effect per level (treatment coding)."
     )
     min_features = 1
     max_features = None
@@ -118,8 +120,9 @@ class Additive(Method):
     def _basis(self, X, settings, work) -> Basis:
         if work is not None and "basis" in work:
             return work["basis"]
-        knots = settings.get("knots") or default_knots(X.shape[1])
-        basis = Basis.build(X, knots)
+        cats = categories_of(work)
+        knots = settings.get("knots") or default_knots(_numeric(X, cats))
+        basis = Basis.build(X, knots, cats)
         if work is not None:
             work["basis"] = basis
         return basis
@@ -151,15 +154,22 @@ class Additive(Method):
         return smoother
 
     # -- the Method interface -----------------------------------------------------------
-    def _check(self, X, folds, settings):
-        p = X.shape[1]
-        if np.all(X == X[:1]):
+    def _check(self, X, folds, settings, cats=None):
+        p = _numeric(X, cats)
+        if p == 0:
+            raise NotApplicable(
+                "additive needs at least one numeric feature to smooth; with categorical "
+                "features only, use linear (one effect per level) or knn.",
+                [Where(("features",), "no numeric feature")],
+            )
+        if cats is None and np.all(X == X[:1]):
             raise TooFewRows(
                 "every feature is constant over the training rows, so an additive model has "
                 "nothing to fit; give features that vary.",
                 [Where(("features",), "constant features")],
             )
-        need = p + 2
+        levels = 0 if cats is None else cats.n_dummies
+        need = p + levels + 2
         if folds.min_train < need:
             if folds.folded:
                 held, fix = "each training fold", "Use fewer folds or fewer features."
@@ -167,10 +177,11 @@ class Additive(Method):
             else:
                 held, fix = "each fit", "Use fewer features or more rows."
                 where = Where(("train", "rows"), f"{folds.n} usable rows")
+            also = f" and {levels} level effect(s)" if levels else ""
             raise TooFewRows(
-                f"an additive model in {p} feature(s) needs at least {need} rows in {held} "
-                f"(an intercept, a slope per feature and a residual); there are "
-                f"{folds.min_train}. {fix}",
+                f"an additive model in {p} numeric feature(s){also} needs at least {need} rows "
+                f"in {held} (an intercept, a slope per feature, an effect per level but the "
+                f"reference and a residual); there are {folds.min_train}. {fix}",
                 [where],
             )
         knots = settings.get("knots") or default_knots(p)
@@ -195,7 +206,7 @@ class Additive(Method):
                 )
 
     def candidates(self, X, y, folds, settings, grid, work=None):
-        self._check(X, folds, settings)
+        self._check(X, folds, settings, categories_of(work))
         if "smoothing" in settings:
             values = [settings["smoothing"]]
             self._positive(values, ("params", "smoothing"))
@@ -319,3 +330,8 @@ class Additive(Method):
         smoother = self._full(X, y, None, basis, work)
         names = tuple((work or {}).get("features") or (f"x{j}" for j in range(X.shape[1])))
         return FittedAdditive(basis, smoother, float(value), X, y, names, row_weights(work))
+
+
+def _numeric(X: np.ndarray, cats) -> int:
+    """The number of numeric features (columns of X that are not categorical)."""
+    return X.shape[1] if cats is None else len(cats.numeric)

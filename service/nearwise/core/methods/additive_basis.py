@@ -37,6 +37,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg
 
+from nearwise.core.categories import Categories
+
 DEFAULT_KNOTS = 20
 WIGGLY_BUDGET = 240  # default: about this many penalized columns over all features
 MIN_KNOTS_MANY = 4  # default knots per feature however many features there are
@@ -153,13 +155,23 @@ class FeatureBasis:
 
 @dataclass(frozen=True)
 class Basis:
-    """The columns of every feature: [1, lines of the non-constant features, wiggly blocks]."""
+    """The columns of every feature: [1, lines of the non-constant features, dummies of the
+    categorical features, wiggly blocks].
+
+    ``features`` holds one spline basis per numeric feature, ``columns`` the column of ``X``
+    each is built on; ``cats`` (None without categorical features) gives the treatment-coded
+    0/1 columns, unpenalized and not centered (the intercept is then the reference levels'
+    mean, as in ``y ~ C(site) + s(x)``), appended to the straight lines.
+    """
 
     features: tuple[FeatureBasis, ...]
+    columns: tuple[int, ...] = ()
+    cats: Categories | None = None
 
     @classmethod
-    def build(cls, X: np.ndarray, knots: int) -> Basis:
-        return cls(tuple(FeatureBasis.build(X[:, j], knots) for j in range(X.shape[1])))
+    def build(cls, X: np.ndarray, knots: int, cats: Categories | None = None) -> Basis:
+        cols = tuple(range(X.shape[1])) if cats is None else cats.numeric
+        return cls(tuple(FeatureBasis.build(X[:, j], knots) for j in cols), cols, cats)
 
     @property
     def lines(self) -> list[int]:
@@ -167,8 +179,16 @@ class Basis:
         return [j for j, f in enumerate(self.features) if f.linear]
 
     @property
+    def dummies(self) -> int:
+        return 0 if self.cats is None else self.cats.n_dummies
+
+    @property
     def k(self) -> int:
-        return 1 + len(self.lines)
+        return 1 + len(self.lines) + self.dummies
+
+    def column(self, j: int) -> int:
+        """The column of ``X`` of numeric feature j."""
+        return self.columns[j] if self.columns else j
 
     @property
     def q(self) -> int:
@@ -185,8 +205,9 @@ class Basis:
         return out
 
     def design(self, X: np.ndarray, only: int | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """N (rows, k): intercept and lines; W (rows, q): wiggly columns. With ``only``, the
-        columns of that one feature (the others and the intercept zero): its component."""
+        """N (rows, k): intercept, lines and dummies; W (rows, q): wiggly columns. With
+        ``only``, the columns of that one numeric feature (the others, the dummies and the
+        intercept zero): its component."""
         m = X.shape[0]
         N = np.zeros((m, self.k))
         N[:, 0] = 1.0 if only is None else 0.0
@@ -194,12 +215,14 @@ class Basis:
         c, start = 1, 0
         for j, f in enumerate(self.features):
             if only is None or only == j:
-                lin, Wj = f.columns(X[:, j])
+                lin, Wj = f.columns(X[:, self.column(j)])
                 if f.linear:
                     N[:, c] = lin
                 W[:, start : start + f.q] = Wj
             c += f.linear
             start += f.q
+        if self.cats is not None and only is None:
+            N[:, c:] = self.cats.dummies(X)
         return N, W
 
 

@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from scipy import stats
 
 from nearwise.core.methods.additive_basis import BLOCK, Basis, evaluate
 from nearwise.core.methods.additive_solve import Smoother
@@ -17,6 +18,12 @@ CURVE_POINTS = 50
 NEAR_LINEAR_DF = 1.5  # a feature whose df is below this is reported as near_linear
 INTERPOLATING_SHARE = 0.9  # total df at least this share of the distinct rows: noise is fitted
 BAND_Z = 1.96
+LEVEL_RULE = (
+    "categorical features: treatment coding against the reference level (`categorical` gives "
+    "each feature's levels and reference); each term is the unpenalized difference of its "
+    "level from the reference, with its posterior standard deviation, t = estimate / "
+    "std_error and p from t(n - df)"
+)
 
 
 @dataclass(frozen=True)
@@ -128,7 +135,7 @@ class FittedAdditive(BayesianBand):
         """Per feature: 1 for its straight line (if kept) plus its wiggly df."""
         red = self.smoother.red
         lines = self.basis.lines
-        kept_lines = {lines[c - 1] for c in red.kept if c > 0}
+        kept_lines = {lines[c - 1] for c in red.kept if 0 < c <= len(lines)}
         blocks = self.basis.blocks
         wig = dict(
             zip(
@@ -151,7 +158,7 @@ class FittedAdditive(BayesianBand):
     def component(self, j: int, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """f_j at x (centered over the training rows) and its posterior standard deviation."""
         Xq = np.tile(self.X[:1], (x.size, 1))
-        Xq[:, j] = x
+        Xq[:, self.basis.column(j)] = x
         N, W = self.basis.design(Xq, only=j)
         kept = self.smoother.red.kept
         f = N[:, kept] @ self.coef[: kept.size] + W @ self.coef[kept.size :]
@@ -167,7 +174,7 @@ class FittedAdditive(BayesianBand):
             f, sd = self.component(j, x)
             features.append(
                 {
-                    "name": names[j],
+                    "name": names[self.basis.column(j)],
                     "df": dfs[j],
                     "near_linear": dfs[j] < NEAR_LINEAR_DF,
                     "lambda": lams[j],
@@ -180,7 +187,7 @@ class FittedAdditive(BayesianBand):
                     },
                 }
             )
-        return {
+        out = {
             "kind": "additive model of penalized cubic regression splines",
             "smoothing": self.smoothing,
             "df": self.df,
@@ -191,13 +198,70 @@ class FittedAdditive(BayesianBand):
             "rows, so the intercept's uncertainty is not included)",
             "features": features,
         }
+        if self.basis.cats is not None:
+            out["terms"] = self.level_terms()
+            out["terms_rule"] = LEVEL_RULE
+        return out
+
+    def level_terms(self) -> list[dict[str, Any]]:
+        """The level effects of the categorical features (treatment coding): per dummy
+        ``column[level]`` its estimate, posterior standard deviation sigma sqrt(e'(X'X +
+        S)^-1 e) (the coefficient's entry of the posterior covariance; Wood 2017, section
+        6.10), t = estimate / std_error and its two-sided p-value from t(n - df). A level
+        the data cannot tell apart from the others (aliased) has null figures."""
+        cats, red = self.basis.cats, self.smoother.red
+        assert cats is not None
+        first = 1 + len(self.basis.lines)
+        kept = red.kept.tolist()
+        sigma2 = self.sigma2()
+        dof = self.n - self.df
+        rows = []
+        for d, name in enumerate(cats.dummy_names()):
+            col = first + d
+            if col not in kept:
+                rows.append(
+                    {"name": name, "estimate": None, "std_error": None, "t": None, "p_value": None}
+                )
+                continue
+            est = float(self.coef[kept.index(col)])
+            N = np.zeros((1, self.basis.k))
+            N[0, col] = 1.0
+            v = self.smoother.quad(
+                *self.smoother.pieces(N, np.zeros((1, self.basis.q))), self.smoothing
+            )
+            se = float(np.sqrt(sigma2 * v[0])) if np.isfinite(sigma2) else float("nan")
+            t = est / se if se > 0 else float("nan")
+            p = float(2 * stats.t.sf(abs(t), dof)) if np.isfinite(t) and dof > 0 else None
+            rows.append(
+                {
+                    "name": name,
+                    "estimate": est,
+                    "std_error": se if np.isfinite(se) else None,
+                    "t": t if np.isfinite(t) else None,
+                    "p_value": p,
+                }
+            )
+        return rows
 
     def aliased(self) -> list[str]:
-        """Features whose straight line the data cannot tell apart from the others."""
+        """Features whose straight line (or levels whose effect) the data cannot tell apart
+        from the others."""
         red = self.smoother.red
         lines = self.basis.lines
-        kept = {lines[c - 1] for c in red.kept if c > 0}
-        return [self.names[j] for j in range(len(self.names)) if j not in kept]
+        kept = {lines[c - 1] for c in red.kept if 0 < c <= len(lines)}
+        out = [
+            self.names[self.basis.column(j)]
+            for j in range(len(self.basis.features))
+            if j not in kept
+        ]
+        if self.basis.cats is not None:
+            first = 1 + len(lines)
+            out += [
+                name
+                for d, name in enumerate(self.basis.cats.dummy_names())
+                if first + d not in red.kept
+            ]
+        return out
 
     def notices(self) -> list[Notice]:
         out = []

@@ -162,6 +162,9 @@ class Method:
     std_error_doc: str = ""
     model_interval_doc: str = ""
     references: tuple[str, ...] = ()
+    #: Whether the method takes categorical features (``categorical``), and how.
+    categorical: bool = True
+    categorical_doc: str = ""
 
     def param(self, name: str) -> Param:
         return next(p for p in self.params if p.name == name)

@@ -29,10 +29,16 @@ from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
 from nearwise.core.locality import not_local_notice
 from nearwise.core.methods.base import Method, Param, PathResult, row_weights
+from nearwise.core.methods.coding import categories_of, knn_scaler
 from nearwise.core.results import Notice
 from nearwise.core.tuning import Folds
 
 MAX_DEFAULT_K = 50
+MIXED_DISTANCE = (
+    "squared distance = sum of squared differences of the scaled numeric features + "
+    "mismatch^2 per categorical feature whose levels differ (Gower 1971, squared Euclidean "
+    "form)"
+)
 WIDE_FRACTION = 0.5  # wide_neighborhood: neighbors spanning more than this share of a range
 FIT_BLOCK_CELLS = 1_000_000  # neighbor-window entries per block of the final fit (8 MB each)
 
@@ -313,6 +319,10 @@ class FittedKNN:
     typical_radius: float
     Xs: np.ndarray  # the scaled training rows
     w: np.ndarray | None = None  # row weights (None: all 1)
+    # With categorical features: the numeric features (the first columns of ``Xs``) and the
+    # mismatch weight gamma; None without them.
+    p_numeric: int | None = None
+    mismatch: float | None = None
 
     def predict(self, Xq: np.ndarray) -> np.ndarray:
         Xs = self.scaler.transform(Xq)
@@ -321,6 +331,8 @@ class FittedKNN:
 
     def notices(self) -> list:
         n, p = self.index.n_samples_fit_, self.index.n_features_in_
+        if self.p_numeric is not None:  # e_p over the numeric features (none: no notice)
+            p = self.p_numeric
         out = []
         if self.k == 1 or self.weights == "distance":
             out.append(
@@ -334,7 +346,7 @@ class FittedKNN:
                     "`train_error` is 0; judge the fit by `cv_error`.",
                 )
             )
-        local = not_local_notice(self.k, n, p)
+        local = not_local_notice(self.k, n, p) if p else None
         if local is not None:
             out.append(local)
         return out
@@ -342,16 +354,18 @@ class FittedKNN:
     def query_notices(self, Xq: np.ndarray) -> list:
         """``wide_neighborhood``: the k neighbors of a query spread over more than half of a
         feature's training range."""
-        if Xq.shape[0] == 0:
+        if Xq.shape[0] == 0 or self.p_numeric == 0:
             return []
         Xs = self.scaler.transform(Xq)
         train = self.Xs
+        if self.p_numeric is not None:  # the spread of the numeric features only
+            train = train[:, : self.p_numeric]
         span = train.max(axis=0) - train.min(axis=0)
         is_wide = np.zeros(Xs.shape[0], dtype=bool)
         # In blocks: the neighbors' rows (m, k, p) of every query row are never all held.
         for at in blocks(Xs.shape[0], most=max(1, FIT_BLOCK_CELLS // (self.k * Xs.shape[1]))):
             _, ind = self.index.kneighbors(Xs[at], n_neighbors=self.k)
-            nb = train[ind]  # (rows, k, p)
+            nb = train[ind]  # (rows, k, p): numeric features only
             spread = nb.max(axis=1) - nb.min(axis=1)
             with np.errstate(invalid="ignore", divide="ignore"):
                 is_wide[at] = (spread > WIDE_FRACTION * span).any(axis=1)
@@ -400,12 +414,16 @@ class FittedKNN:
 
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
         n = self.y.shape[0]
-        return {
+        out = {
             "k": self.k,
             "neighborhood_fraction": self.k / n,
             "typical_radius": self.typical_radius,
             "radius_units": "scaled features (see `scale`)",
         }
+        if self.mismatch is not None:
+            out["mismatch"] = self.mismatch
+            out["distance"] = MIXED_DISTANCE
+        return out
 
 
 class KNN(Method):
@@ -414,7 +432,8 @@ class KNN(Method):
     name = "knn"
     summary = (
         "Average of the targets of the k nearest training rows, with Euclidean distance "
-        "on scaled features. Larger k is simpler."
+        "on scaled features (a categorical feature whose levels differ adds `mismatch`^2 to "
+        "the squared distance). Larger k is simpler."
     )
     min_features = 1
     max_features = None
@@ -446,6 +465,19 @@ class KNN(Method):
             "feature scaling before distances: `standard` (mean 0, sd 1), `range` (0 to 1) "
             "or `none`",
             choices=SCALES,
+        ),
+        Param(
+            "mismatch",
+            "number",
+            None,
+            "with `categorical` features: gamma, the distance a differing level adds "
+            "(squared distance = sum of squared scaled numeric differences + gamma^2 per "
+            "categorical feature that differs; Gower 1971). Default 1: a mismatch counts as "
+            "much as a difference of one unit in a scaled feature (one standard deviation "
+            "with `standard`, the whole range with `range`, as in Gower's coefficient); a large "
+            "value (such as 100) keeps the neighbors within the query's levels while a level "
+            "holds k rows; 0 ignores the levels",
+            low=0.0,
         ),
     )
     std_error_doc = (
@@ -482,6 +514,12 @@ class KNN(Method):
             self._check_k(k, folds, ("grid", "k", i))
 
     def candidates(self, X, y, folds, settings, grid, work=None):
+        if "mismatch" in settings and categories_of(work) is None:
+            raise NotApplicable(
+                "`mismatch` weighs differing levels of categorical features; these data have "
+                "none. Name the categorical columns in `categorical`, or leave out `mismatch`.",
+                [Where(("params", "mismatch"), "no categorical feature")],
+            )
         if folds.scheme == "gcv":
             raise NotApplicable(
                 "knn is not scored by gcv here; use `tuning.scheme` kfold or loo "
@@ -500,10 +538,11 @@ class KNN(Method):
         cols = np.asarray(values) - 1
         weights, scale = settings["weights"], settings["scale"]
         w = row_weights(work)
+        cats, gamma = categories_of(work), settings.get("mismatch")
         if folds.scheme in ("loo", "window"):
             # One neighbor query of all rows, each leaving out its own row (loo) or the rows
             # within the gap of its step (window); features scaled once with all rows.
-            sc = Scaler.fit(X, scale)
+            sc = knn_scaler(X, scale, cats, gamma)
             Xs = sc.transform(X)
             index = _index(Xs)
             drop = (
@@ -527,7 +566,7 @@ class KNN(Method):
             oof = np.empty((len(values), folds.repeats, X.shape[0]))
             models = []
             for r, _f, train, test in folds.splits():
-                sc = Scaler.fit(X[train], scale)
+                sc = knn_scaler(X[train], scale, cats, gamma)
                 index = _index(sc.transform(X[train]))
                 Xt = sc.transform(X[test])
                 for at in blocks(test.size, most=max(1, FIT_BLOCK_CELLS // (kmax + 1))):
@@ -543,7 +582,8 @@ class KNN(Method):
     def fit(self, X, y, settings, value, work=None):
         k = int(value)
         n = X.shape[0]
-        sc = Scaler.fit(X, settings["scale"])
+        cats = categories_of(work)
+        sc = knn_scaler(X, settings["scale"], cats, settings.get("mismatch"))
         Xs = sc.transform(X)
         index = _index(Xs)
         # One query of the training rows serves both the fitted values (k nearest, the row
@@ -572,4 +612,6 @@ class KNN(Method):
             float(np.median(radius)),
             Xs,
             row_weights(work),
+            None if cats is None else len(cats.numeric),
+            None if cats is None else sc.gamma,
         )

@@ -22,10 +22,10 @@ import numpy as np
 from scipy import linalg
 
 from nearwise.core import windows
-from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, TooFewRows, Where
 from nearwise.core.methods import penalized
 from nearwise.core.methods.base import Method, Param, PathResult, row_weights
+from nearwise.core.methods.coding import categories_of, design_scaler, linear_terms, term_names
 from nearwise.core.methods.linear_fit import FittedLinear, FoldLinear
 from nearwise.core.methods.polynomial import design, monomials, qr_kept, weighted_sums
 from nearwise.core.results import Notice
@@ -41,7 +41,9 @@ class Linear(Method):
         "Least squares on a polynomial basis of the features, solved by QR; larger degree is "
         "more flexible. With `penalty` ridge or lasso the degree is fixed (default 1), the "
         "basis columns are standardized and `alpha` is tuned on a path; larger alpha is "
-        "simpler, and the lasso sets some terms to zero. The lasso is tuned by kfold only."
+        "simpler, and the lasso sets some terms to zero. The lasso is tuned by kfold only. "
+        "Categorical features enter as treatment-coded 0/1 terms (one per level but the "
+        "reference), never raised to a power or multiplied by other terms."
     )
     tuned = "degree"
     interval_kinds = ("cv_plus", "model")
@@ -177,27 +179,32 @@ class Linear(Method):
             return value == 0 or (top is not None and value >= top)
         return value in (1, 5)
 
-    def _terms(self, p: int, degree: int, settings) -> list[tuple[int, ...]]:
+    def _terms(self, p: int, degree: int, settings, cats=None) -> list[tuple[int, ...]]:
+        """The terms of ``degree``: with categorical features, the intercept, their dummies
+        and the polynomial of the numeric features (:func:`coding.linear_terms`)."""
         inter = settings.get("interactions")
-        return monomials(p, degree, True if inter is None else inter)
+        return linear_terms(cats, p, degree, True if inter is None else inter)
 
     def candidates(self, X, y, folds, settings, grid, work=None):
         if settings.get("penalty", "none") != "none":
             order = partial(self.order, settings=settings)
             return penalized.candidates(X, y, folds, settings, grid, order, work)
         p = X.shape[1]
+        cats = categories_of(work)
         if "degree" in settings:
             values, source = [settings["degree"]], ("params", "degree")
         elif grid is not None:
             values, source = self.order(grid), ("grid", "degree")
+        elif cats is not None and not cats.numeric:
+            values, source = [1], None  # no numeric feature: every degree is the same fit
         else:
             values, source = [1, 2, 3], None
-        sc = Scaler.fit(X, "standard")
-        top = self._terms(p, max(values), settings)
+        sc = design_scaler(X, cats)
+        top = self._terms(p, max(values), settings, cats)
         _, _, kept = qr_kept(design(sc.transform(X), top))
         ok = []
         for i, d in enumerate(values):
-            determined = int(np.count_nonzero(kept < len(self._terms(p, d, settings))))
+            determined = int(np.count_nonzero(kept < len(self._terms(p, d, settings, cats))))
             if determined < folds.min_train:
                 ok.append(d)
             elif source is not None:
@@ -229,10 +236,11 @@ class Linear(Method):
         if settings.get("penalty", "none") != "none":
             return penalized.path(X, y, folds, settings, values, work)
         n, p = X.shape
-        sc = Scaler.fit(X, "standard")
-        top = self._terms(p, max(values), settings)
+        cats = categories_of(work)
+        sc = design_scaler(X, cats)
+        top = self._terms(p, max(values), settings, cats)
         D = design(sc.transform(X), top)
-        sizes = [len(self._terms(p, d, settings)) for d in values]
+        sizes = [len(self._terms(p, d, settings, cats)) for d in values]
         # Weighted least squares is least squares on the rows times sqrt(w) (Dw, yw); fits
         # are evaluated on the unscaled design.
         w = row_weights(work)
@@ -290,8 +298,9 @@ class Linear(Method):
         if settings.get("penalty", "none") != "none":
             names = tuple((work or {}).get("features") or (f"x{j}" for j in range(p)))
             return penalized.fit(X, y, settings, value, names, work)
-        terms = self._terms(p, int(value), settings)
-        sc = Scaler.fit(X, "standard")
+        cats = categories_of(work)
+        terms = self._terms(p, int(value), settings, cats)
+        sc = design_scaler(X, cats)
         D = design(sc.transform(X), terms)
         w = row_weights(work)
         sw = np.ones(n) if w is None else np.sqrt(w)
@@ -307,7 +316,7 @@ class Linear(Method):
         rss, tss = weighted_sums(y, fitted, w)
         sigma = float(np.sqrt(rss / (n - kept.size)))
         r2 = 1.0 - rss / tss if tss > 0 else 1.0
-        names = tuple((work or {}).get("features") or (f"x{j}" for j in range(p)))
+        names = term_names(sc, tuple((work or {}).get("features") or (f"x{j}" for j in range(p))))
         # With order_by, the term table, std_error and model interval use the Newey-West HAC
         # covariance over the rows in time order (FittedLinear.hac_root).
         line = (work or {}).get("line")

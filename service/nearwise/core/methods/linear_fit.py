@@ -24,6 +24,7 @@ import numpy as np
 from scipy import linalg, stats
 
 from nearwise.core.data import Scaler
+from nearwise.core.methods.coding import term_names
 from nearwise.core.methods.polynomial import (
     deletion_residuals,
     design,
@@ -50,7 +51,7 @@ def newey_west_lags(n: int) -> int:
 class FoldLinear:
     """The coefficients of every degree on one training fold."""
 
-    scaler: Scaler
+    scaler: Scaler  # or coding.Design, with categorical features
     terms: list[tuple[int, ...]]
     betas: tuple[tuple[np.ndarray, np.ndarray], ...]  # (columns used, coefficients)
 
@@ -65,7 +66,7 @@ class FittedLinear:
 
     terms: list[tuple[int, ...]]  # every term of the degree
     kept: np.ndarray  # the determined ones, in order
-    scaler: Scaler
+    scaler: Scaler  # or coding.Design, with categorical features (its columns: ``names``)
     beta: np.ndarray  # on the standardised basis, kept terms only
     Q: np.ndarray
     R: np.ndarray
@@ -235,6 +236,7 @@ class FittedLinear:
         ``hac_rule`` for HAC).
         """
         kept_terms = [self.terms[j] for j in self.kept]
+        names = term_names(self.scaler, names)  # with dummies: `column[level]` too
         T = raw_transform(kept_terms, self.scaler.shift, self.scaler.scale)
         est = T @ self.beta
         Rinv = linalg.solve_triangular(self.R, np.eye(self.R.shape[0]))

@@ -48,8 +48,9 @@ from nearwise.core import windows
 from nearwise.core.data import Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
 from nearwise.core.methods.base import PathResult, row_weights
+from nearwise.core.methods.coding import categories_of, design_scaler, linear_terms
 from nearwise.core.methods.penalized_fit import FittedPenalized
-from nearwise.core.methods.polynomial import design, monomials, weighted_scaler
+from nearwise.core.methods.polynomial import design
 
 PENALTIES = ("ridge", "lasso")
 GRID_SIZE = 30
@@ -73,18 +74,29 @@ GRID_DOC = (
 
 @dataclass(frozen=True)
 class Basis:
-    """Monomials of the standardized features, each column then scaled to unit variance."""
+    """Monomials of the standardized features, each column then scaled to unit variance.
 
-    scaler: Scaler
+    With categorical features the treatment dummies are basis columns too (after the
+    intercept; :mod:`nearwise.core.methods.coding`), and are centered and scaled to unit
+    variance like every other column before the penalty applies, as a scikit-learn
+    ``StandardScaler`` after a ``OneHotEncoder(drop="first")`` would: a level's penalty
+    weighs its coefficient times the dummy's sd, sqrt(f (1 - f)) for a level held by a share
+    f of the rows, so a rare level is shrunk more. Coefficients are reported as plain
+    differences from the reference level.
+    """
+
+    scaler: Scaler  # or coding.Design, with categorical features
     terms: list[tuple[int, ...]]  # terms[0] is the intercept
     mean: np.ndarray
     sd: np.ndarray
     constant: np.ndarray
 
     @classmethod
-    def fit(cls, X: np.ndarray, terms: list[tuple[int, ...]], w: np.ndarray | None = None) -> Basis:
+    def fit(
+        cls, X: np.ndarray, terms: list[tuple[int, ...]], w: np.ndarray | None = None, cats=None
+    ) -> Basis:
         """Standardizations learned from the rows ``X`` (weighted by ``w`` if given)."""
-        scaler = weighted_scaler(X, w)
+        scaler = design_scaler(X, cats, w)
         B = design(scaler.transform(X), terms)[:, 1:]
         if w is None:
             mean, sd = B.mean(axis=0), B.std(axis=0)
@@ -210,10 +222,10 @@ class FoldPenalized:
         return self.b0[c] + self.basis.transform(Xq) @ self.W[:, c]
 
 
-def terms_for(p: int, settings) -> list[tuple[int, ...]]:
+def terms_for(p: int, settings, cats=None) -> list[tuple[int, ...]]:
     degree = settings.get("degree", 1)
     inter = settings.get("interactions")
-    terms = monomials(p, degree, degree > 1 if inter is None else inter)
+    terms = linear_terms(cats, p, degree, degree > 1 if inter is None else inter)
     if len(terms) - 1 > MAX_TERMS:
         raise InvalidValue(
             f"degree {degree} on {p} features makes {len(terms) - 1} terms; a penalized fit "
@@ -230,7 +242,7 @@ def _full(X, y, terms, penalty, work) -> tuple[Basis, np.ndarray, RidgeSVD | Non
     cached = (work or {}).get("penalized_full")
     if cached is not None and cached[0] == key:
         return cached[1]
-    basis = Basis.fit(X, terms, w)
+    basis = Basis.fit(X, terms, w, categories_of(work))
     Z = basis.transform(X)
     svd = RidgeSVD.of(*centered(Z, y, w)[2:]) if penalty == "ridge" else None
     full = (basis, Z, svd)
@@ -261,7 +273,7 @@ def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
             "`penalty: ridge`.",
             [Where(("tuning", "scheme"), "lasso is tuned by kfold only")],
         )
-    terms = terms_for(X.shape[1], settings)
+    terms = terms_for(X.shape[1], settings, categories_of(work))
     _, Z, svd = _full(X, y, terms, penalty, work)
     if "alpha" in settings:
         values = [float(settings["alpha"])]
@@ -277,7 +289,8 @@ def candidates(X, y, folds, settings, grid, order, work) -> list[float]:
 def path(X, y, folds, settings, values, work=None) -> PathResult:
     n = X.shape[0]
     penalty = settings.get("penalty")
-    terms = terms_for(X.shape[1], settings)
+    cats = categories_of(work)
+    terms = terms_for(X.shape[1], settings, cats)
     _, Z, svd = _full(X, y, terms, penalty, work)
     w = row_weights(work)
     # On the rows times sqrt(w): the intercept's column is sqrt(w), its hat matrix
@@ -307,7 +320,7 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
         models = []
         for r, _f, train, test in folds.splits():
             wt = None if w is None else w[train]
-            fold = Basis.fit(X[train], terms, wt)
+            fold = Basis.fit(X[train], terms, wt, cats)
             b0, W, _ = solve(fold.transform(X[train]), y[train], penalty, values, wt)
             oof[:, r, test] = b0[:, None] + (fold.transform(X[test]) @ W).T
             if r == 0 and folds.keep_models:
@@ -335,7 +348,8 @@ def path(X, y, folds, settings, values, work=None) -> PathResult:
 
 def fit(X, y, settings, alpha, names, work=None) -> FittedPenalized:
     penalty = settings.get("penalty")
-    basis, Z, svd = _full(X, y, terms_for(X.shape[1], settings), penalty, work)
+    terms = terms_for(X.shape[1], settings, categories_of(work))
+    basis, Z, svd = _full(X, y, terms, penalty, work)
     lasso = (work or {}).get("lasso_full")
     return fit_with(basis, Z, y, penalty, float(alpha), names, svd, lasso, row_weights(work))
 

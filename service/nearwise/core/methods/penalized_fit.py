@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from nearwise.core.errors import NotApplicable, Where
+from nearwise.core.methods.coding import term_names, term_owners
 from nearwise.core.methods.polynomial import (
     deletion_residuals,
     high_leverage,
@@ -151,7 +152,8 @@ class FittedPenalized:
         return [term_name(self.basis.terms[1 + j], names) for j in idx]
 
     def notices(self) -> list[Notice]:
-        constant = self._names(np.flatnonzero(self.basis.constant), self.names)
+        names = term_names(self.basis.scaler, self.names)
+        constant = self._names(np.flatnonzero(self.basis.constant), names)
         if not constant:
             return []
         return [
@@ -164,6 +166,9 @@ class FittedPenalized:
 
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
         b = self.basis
+        inputs = names
+        owner = term_owners(b.scaler, len(names))
+        names = term_names(b.scaler, names)  # with dummies: `column[level]` too
         q = self.w.size
         # beta (standardized-feature monomials) = L theta, theta = (b0 + zbar'w, w).
         L = np.zeros((q + 1, q + 1))
@@ -202,12 +207,13 @@ class FittedPenalized:
         }
         if lasso:
             kept = np.flatnonzero(self.w)
-            used = np.zeros(len(names), dtype=bool)
+            used = np.zeros(len(inputs), dtype=bool)
             for j in kept:
-                used |= np.asarray(b.terms[1 + j]) > 0
+                for col in np.flatnonzero(np.asarray(b.terms[1 + j]) > 0):
+                    used[owner[col]] = True
             out["dropped_terms"] = self._names(dropped, names)
-            out["kept_inputs"] = [n for n, u in zip(names, used, strict=True) if u]
-            out["dropped_inputs"] = [n for n, u in zip(names, used, strict=True) if not u]
+            out["kept_inputs"] = [n for n, u in zip(inputs, used, strict=True) if u]
+            out["dropped_inputs"] = [n for n, u in zip(inputs, used, strict=True) if not u]
             out["converged"] = self.converged
         return out
 

@@ -81,6 +81,11 @@ class Spline(Method):
         "narrow where the curve bends sharply. With `weight_by`, sigma^2 = sum w e^2 / (n - df) "
         "and the 1 becomes 1 / w0 for a new observation of weight w0."
     )
+    categorical = False
+    categorical_doc = (
+        "a smoothing or thin-plate spline has no terms for levels; use additive, which adds "
+        "one effect per level next to its smooth terms, or knn or linear"
+    )
     references = (
         "Green & Silverman (1994), Nonparametric Regression and Generalized Linear Models",
         "Wahba (1990), Spline Models for Observational Data",

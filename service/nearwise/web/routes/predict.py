@@ -62,7 +62,7 @@ def _answer(answer: str, job: Job, intake: Intake) -> Response:
 
 def caps(settings: Settings) -> Caps:
     """The work limits the core checks before fitting, named by their variables."""
-    limits = ("grid", "fold_fits", "methods", "cost_s")  # Settings.max_<limit>
+    limits = ("grid", "fold_fits", "methods", "cost_s", "cells")  # Settings.max_<limit>
     return Caps(
         **{k: getattr(settings, f"max_{k}") for k in limits},
         names={k: f"NEARWISE_MAX_{k.upper()}" for k in limits},
@@ -95,5 +95,7 @@ def build_job(intake: Intake, settings: Settings | None = None, method: str | No
         time_budget_s=settings.time_budget_s if settings else None,
         caps=caps(settings) if settings else Caps(),
         weight_by=f.get("weight_by"),
+        categorical=f.get("categorical", ()),
+        categorical_reference=f.get("categorical_reference", {}),
         deadline=deadline,
     )
