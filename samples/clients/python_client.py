@@ -1,4 +1,5 @@
-"""Post a request body to nearwise and print the predictions, or the error it explains.
+"""Send a request body to nearwise with its Python client and print the predictions, or the
+error it explains.
 
     python samples/clients/python_client.py                          # the turbine spline sample
     python samples/clients/python_client.py samples/predict_warehouse.json
@@ -6,7 +7,10 @@
     NEARWISE_URL=http://host:9000 python samples/clients/python_client.py
     NEARWISE_API_KEY=your-key python samples/clients/python_client.py  # sent as a bearer token
 
-Needs `requests`. Exits with 1 when the service answers with an error.
+Needs the nearwise package (``pip install nearwise`` or ``pip install -e .``), nothing else.
+The body file's fields become the client's arguments: ``train``, ``target``, ``query``,
+``method`` (or ``methods`` for compare) and any other field as a keyword. Exits with 1 when the
+service refuses the request, 2 when it cannot be reached.
 """
 
 from __future__ import annotations
@@ -14,64 +18,70 @@ from __future__ import annotations
 import json
 import os
 import sys
+import urllib.error
 from pathlib import Path
+from typing import Any
 
-import requests
+from nearwise.client import Client, ProblemError, Result
 
-BASE = os.environ.get("NEARWISE_URL", "http://127.0.0.1:8080").rstrip("/")
-KEY = os.environ.get("NEARWISE_API_KEY", "")
+BASE = os.environ.get("NEARWISE_URL", "http://127.0.0.1:8080")
+KEY = os.environ.get("NEARWISE_API_KEY") or None
 DEFAULT_BODY = Path(__file__).resolve().parents[1] / "predict_spline.json"
 
 
-def show_problem(problem: dict) -> None:
+def show_problem(err: ProblemError) -> None:
     """An RFC 9457 problem: its title and detail, then each place at fault."""
-    print(f"error {problem.get('status')}: {problem.get('title')}")
-    print(problem.get("detail"))
-    for err in problem.get("errors", []):
-        if "pointer" in err:
-            where = err["pointer"]
+    print(f"error {err.status}: {err.title}")
+    print(err.detail)
+    for e in err.errors:
+        if "pointer" in e:
+            where = e["pointer"]
         else:  # a CSV part: part, line and column
-            where = f"{err.get('part')} line {err.get('line')}, column {err.get('column')}"
-        print(f"  {where}: {err.get('message')}")
+            where = f"{e.get('part')} line {e.get('line')}, column {e.get('column')}"
+        print(f"  {where}: {e.get('message')}")
 
 
 def fmt(x: float | None) -> str:
     return "-" if x is None else f"{x:.6g}"
 
 
-def show_answer(answer: dict) -> None:
-    doc = answer.get("prediction", answer)  # compare nests the recommended method's answer
-    if "recommended" in answer:
-        print(f"recommended: {answer['recommended']} ({answer['reason']})")
-    print(f"method {doc['method']}, cross-validated error {fmt(doc['fit']['cv_error'])}")
+def show_result(result: Result) -> None:
+    if result.kind == "compare":
+        print(f"recommended: {result.answer['recommended']} ({result.answer['reason']})")
+    fit = (result.answer.get("prediction") or result.answer)["fit"]
+    print(f"method {result.method}, cross-validated error {fmt(fit['cv_error'])}")
     print("row\tvalue\tlower\tupper\tflags")
-    for i, p in enumerate(doc["predictions"]):
+    for i, p in enumerate(result.records()):
         flags = " ".join(p["flags"])
         print(f"{i}\t{fmt(p['value'])}\t{fmt(p['lower'])}\t{fmt(p['upper'])}\t{flags}")
-    for w in doc["warnings"]:
+    for w in result.warnings:
         print(f"warning {w['code']}: {w['message']}")
+
+
+def send(client: Client, doc: dict[str, Any], endpoint: str) -> Result:
+    """The body's fields as the client's arguments."""
+    train, target, query = doc.pop("train"), doc.pop("target"), doc.pop("query", None)
+    if endpoint == "compare":
+        return client.compare(train, target, query, methods=doc.pop("methods", None), **doc)
+    return client.predict(train, target, query, method=doc.pop("method", "auto"), **doc)
 
 
 def main() -> int:
     body = Path(sys.argv[1]) if len(sys.argv) > 1 else DEFAULT_BODY
     endpoint = sys.argv[2] if len(sys.argv) > 2 else "predict"
-    headers = {"Content-Type": "application/json"}
-    if KEY:
-        headers["Authorization"] = f"Bearer {KEY}"
-    resp = requests.post(
-        f"{BASE}/v1/{endpoint}", data=body.read_bytes(), headers=headers, timeout=120
-    )
-    if resp.headers.get("Content-Type", "").startswith("application/problem+json"):
-        show_problem(resp.json())
+    doc = json.loads(body.read_text(encoding="utf-8"))
+    try:
+        result = send(Client(BASE, key=KEY), doc, endpoint)
+    except ProblemError as err:
+        show_problem(err)
         return 1
-    resp.raise_for_status()  # any other failure, e.g. from a proxy in front of the service
-    show_answer(resp.json())
+    show_result(result)
     return 0
 
 
 if __name__ == "__main__":
     try:
         sys.exit(main())
-    except (requests.RequestException, OSError, json.JSONDecodeError) as exc:
+    except (urllib.error.URLError, OSError, json.JSONDecodeError) as exc:
         print(f"request failed: {exc}", file=sys.stderr)
         sys.exit(2)

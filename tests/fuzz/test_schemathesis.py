@@ -45,7 +45,9 @@ SEEN: Counter[tuple[str, str, int]] = Counter()
     suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much],
 )
 def test_responses_conform_to_the_document(case: schemathesis.Case) -> None:
-    response = case.call_and_validate(checks=CHECKS)
+    # schemathesis asks for gzip but does not decompress in-process: ask for the answer as it
+    # is (compressed answers are checked in tests/web/test_compression.py)
+    response = case.call_and_validate(checks=CHECKS, headers={"Accept-Encoding": "identity"})
     phase = case.meta.phase.name.value if case.meta else ""
     SEEN[(case.operation.label, phase, response.status_code)] += 1
 

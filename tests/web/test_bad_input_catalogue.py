@@ -8,6 +8,7 @@ have no field (method, Accept, Content-Type, body size, JSON syntax), a phrase o
 
 from __future__ import annotations
 
+import gzip
 import io
 import json
 from collections.abc import Callable
@@ -97,6 +98,16 @@ BIG_NAME = "a" * 2**20  # a 1 MiB field name: echoed cut to 80 characters and it
 
 def with_length(c: FlaskClient, data: bytes) -> TestResponse:
     return c.post("/v1/predict", data=data, content_type="application/json")
+
+
+def as_gzip(c: FlaskClient, data: bytes) -> TestResponse:
+    """``data`` gzip-compressed: far under the cap as sent, over it once decompressed."""
+    return c.post(
+        "/v1/predict",
+        data=gzip.compress(data),
+        content_type="application/json",
+        headers={"Content-Encoding": "gzip"},
+    )
 
 
 def as_multipart(c: FlaskClient, data: bytes) -> TestResponse:
@@ -399,13 +410,24 @@ CASES: dict[str, Case] = {
         capped(post_without_length, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)
     ),
     "over-cap-multipart": Case(capped(as_multipart, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
-    # a content coding: none is read (415 naming the header)
+    # content codings: gzip and deflate are read, others refused (415 naming the header)
     **{
         f"content-encoding-{coding}": Case(
             post_json(body(), **{"Content-Encoding": coding}), 415, detail=("Content-Encoding",)
         )
-        for coding in ("gzip", "br", "deflate", "x-unheard-of")
+        for coding in ("br", "x-unheard-of", "gzip, gzip")
     },
+    # a body that is not what its coding says: 400 naming the coding
+    **{
+        f"content-encoding-{coding}-not-compressed": Case(
+            post_json(body(), **{"Content-Encoding": coding}),
+            400,
+            detail=(f"Content-Encoding: {coding}",),
+        )
+        for coding in ("gzip", "deflate")
+    },
+    # a gzip body that inflates past the cap (the cap applies to the decompressed size)
+    "gzip-inflates-over-cap": Case(capped(as_gzip, 1), 413, detail=("NEARWISE_MAX_BODY_BYTES",)),
     # limits met while parsing, before the table is held
     "json-values-over-any-table": Case(
         on_small(post_raw("[" + ",".join(["[]"] * 3000) + "]"), **SMALL),

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from flask import Flask, Response
 
-from nearwise.web import guards, logs, metrics, openapi, problems, slots
+from nearwise.web import coding, guards, logs, metrics, openapi, problems, slots
 from nearwise.web.settings import Settings, log_level_number
 
 
@@ -23,6 +23,7 @@ def create_app(settings: Settings | None = None, fit_pool: Path | None = None) -
     app.config["MAX_CONTENT_LENGTH"] = settings.max_body_bytes
     app.extensions["nearwise"] = settings
     logging.getLogger("nearwise").setLevel(log_level_number(settings))
+    coding.install(app)  # first: its hook runs last, on the answer as the others left it
     problems.install(app)
     metrics.install(app)  # first: its hook notes the URL rule before any check can refuse
     guards.install(app, settings)

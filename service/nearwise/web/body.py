@@ -7,6 +7,7 @@ from collections.abc import Sequence
 from flask import request
 
 from nearwise.core.errors import shown
+from nearwise.web import coding
 from nearwise.web.problems import Problem
 
 _CHUNK = 64 * 1024
@@ -17,10 +18,18 @@ def read_body(limit: int) -> bytes:
 
     A declared ``Content-Length`` over the limit is refused before reading. A body without
     one (chunked transfer) is read up to ``limit + 1`` bytes, so an oversized stream is
-    refused rather than silently cut. A body with a content coding (``Content-Encoding``
-    other than ``identity``) is refused before reading: 415, as RFC 9110 section 8.4 asks.
+    refused rather than silently cut. A body sent with ``Content-Encoding: gzip`` or
+    ``deflate`` is decompressed under the same limit, which then applies to the decompressed
+    size (:mod:`nearwise.web.coding`); another content coding is refused before reading: 415,
+    as RFC 9110 section 8.4 asks.
     """
-    check_encoding()
+    applied = coding.codings()
+    data = _read_raw(limit)
+    return coding.decode(data, applied[0], limit) if applied and data else data
+
+
+def _read_raw(limit: int) -> bytes:
+    """The body as sent, or a 413 once it exceeds ``limit`` bytes."""
     env = request.environ
     stream = env["wsgi.input"]
     length = request.content_length
@@ -48,27 +57,6 @@ def read_body(limit: int) -> bytes:
         size += len(chunk)
         if size > limit:
             raise _too_large(limit, "sent without Content-Length")
-
-
-#: The content codings a body may have (RFC 9110 section 8.4.1); ``identity`` is none at all.
-CODINGS = ("identity",)
-
-
-def check_encoding() -> None:
-    """Refuse (415) a body with a content coding the service does not decode, naming the
-    ``Content-Encoding`` header; the answer's ``Accept-Encoding`` lists the codings read."""
-    sent = request.headers.get("Content-Encoding", "")
-    codings = [c.strip().lower() for c in sent.split(",") if c.strip()]
-    unknown = [c for c in codings if c not in CODINGS]
-    if unknown:
-        raise Problem(
-            415,
-            f"The body has the content coding {shown(unknown[0], quoted=True)} "
-            f"(Content-Encoding: {shown(sent)}); bodies are read without one. Send it "
-            "uncompressed, without a Content-Encoding header.",
-            code="unsupported_content_encoding",
-            headers={"Accept-Encoding": ", ".join(CODINGS)},
-        )
 
 
 def _too_large(limit: int, found: str) -> Problem:

@@ -12,7 +12,7 @@ from apispec.ext.marshmallow import MarshmallowPlugin
 from flask import Flask
 
 from nearwise import __version__
-from nearwise.web import responses, schemas
+from nearwise.web import openapi_parts, responses, schemas
 from nearwise.web.settings import OPEN_ENDPOINT_CHOICES
 
 _METHODS = ("get", "post", "put", "patch", "delete")
@@ -89,7 +89,7 @@ def _operation(view: Any, path: str) -> dict[str, Any]:
         op["description"] = rest.strip()
     if path.startswith("/v1/") or path in OPEN_ENDPOINT_CHOICES:
         op["security"] = [{}, {SCHEME: []}]  # no key needed while NEARWISE_API_KEYS is unset
-    return op
+    return openapi_parts.compression(op)
 
 
 def _name(schema: Any) -> str:

@@ -6,14 +6,17 @@ from typing import Any
 
 from marshmallow import Schema, fields, validate
 
+from nearwise.web.coding import MIN_BYTES
 from nearwise.web.responses import ProblemSchema
 
 PROBLEM_WHEN = {
-    400: "Unreadable body: not JSON, not CSV, not UTF-8, or a malformed multipart body.",
+    400: "Unreadable body: not JSON, not CSV, not UTF-8, a malformed multipart body, or a body "
+    "that is not what its `Content-Encoding` (gzip or deflate) says.",
     401: "An API key is required (NEARWISE_API_KEYS is set) and none or a wrong one was sent: "
     "send `Authorization: Bearer <key>`.",
     406: "The Accept header allows none of the media types this endpoint answers.",
-    413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked), or a table is "
+    413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked, and for a "
+    "compressed body its decompressed size), or a table is "
     "over NEARWISE_MAX_ROWS (NEARWISE_MAX_QUERY_ROWS for a query), NEARWISE_MAX_COLUMNS or "
     "NEARWISE_MAX_CELLS.",
     408: "The request head was not whole within NEARWISE_HEADER_TIMEOUT_S of its first byte, "
@@ -23,7 +26,8 @@ PROBLEM_WHEN = {
     "bytes under `nearwise serve`; code `uri_too_long`, answered by the server before the "
     "service). Send long field lists as form fields or in a JSON body.",
     415: "The body's media type is not one this endpoint reads, or the body has a content "
-    "coding (`Content-Encoding` other than `identity`; code `unsupported_content_encoding`).",
+    "coding other than gzip and deflate, or more than one (code "
+    "`unsupported_content_encoding`, with `Accept-Encoding` listing the codings read).",
     431: "The request head is over the HTTP server's limits (code `header_too_large`): more "
     "than 64 KiB, more than 100 fields, or a field over 8190 bytes under `nearwise serve`.",
     422: "Readable but invalid: unknown field, method or parameter, a bad cell (pointer to "
@@ -62,6 +66,39 @@ def problems(*statuses: int) -> dict[str, Any]:
             entry["headers"] = PROBLEM_HEADERS[s]
         out[str(s)] = entry
     return out
+
+
+#: How request and answer bodies may be compressed (:mod:`nearwise.web.coding`).
+REQUEST_CODING = (
+    " The body may be compressed: `Content-Encoding: gzip` or `deflate` (the zlib format, or "
+    "raw deflate). NEARWISE_MAX_BODY_BYTES applies to the body as sent and to its "
+    "decompressed size, checked as it is decompressed (413 `body_too_large`); another "
+    "coding, or two, is a 415 `unsupported_content_encoding`."
+)
+ANSWER_HEADERS = {
+    "Content-Encoding": {
+        "description": "`gzip` when the request's `Accept-Encoding` allows gzip and the "
+        f"answer holds at least {MIN_BYTES} bytes; absent otherwise.",
+        "schema": {"type": "string", "enum": ["gzip"]},
+    },
+    "Vary": {
+        "description": "Includes `Accept-Encoding` (and `Accept` where the answer's media "
+        "type is negotiated).",
+        "schema": {"type": "string"},
+    },
+}
+
+
+def compression(op: dict[str, Any]) -> dict[str, Any]:
+    """``op`` with the content codings declared: the request body's description says which
+    it may have; every answer lists ``Content-Encoding`` and ``Vary`` among its headers."""
+    body = op.get("requestBody")
+    if body is not None:
+        body["description"] = body.get("description", "").rstrip() + REQUEST_CODING
+        body["description"] = body["description"].strip()
+    for answer in op.get("responses", {}).values():
+        answer["headers"] = {**ANSWER_HEADERS, **answer.get("headers", {})}
+    return op
 
 
 def _kind(field: fields.Field) -> dict[str, Any]:
