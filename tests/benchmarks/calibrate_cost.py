@@ -44,13 +44,23 @@ FULL = [
     ("linear", 100_000, 10, {"penalty": "lasso"}),
     ("spline", 250_000, 1, {}),
     ("spline", 2_000, 2, {}),
+    # Thin-plate past the exact solve: on knots (thinplate_lowrank).
+    ("spline", 50_000, 2, {}),
+    ("spline", 20_000, 3, {}),
+    ("spline", 30_000, 2, {"_scheme": "gcv", "_query": 1_000}),
     ("additive", 100_000, 3, {}),
     ("additive", 50_000, 8, {}),
     # Without a query: the answer and its intervals are at every training row.
     ("spline", 100_000, 1, {"_query": 0}),
+    ("spline", 50_000, 2, {"_query": 0}),
+    ("spline", 6_000, 3, {"_query": 0, "_scheme": "loo"}),
     ("knn", 100_000, 2, {"_query": 0}),
     ("knn", 10_000, 2, {"_query": 0, "_scheme": "loo"}),
+    ("knn", 100_000, 2, {"_query": 0, "_scheme": "loo", "k": 50}),  # jackknife+ by windows
     ("linear", 10_000, 2, {"_query": 0, "_scheme": "loo"}),
+    # The hull test's linear programs (issue 14): 1,000 query rows from 4 to 8 features.
+    ("locality", 20_000, 4, {"_query": 1_000}),
+    ("locality", 100_000, 8, {"_query": 1_000, "_shape": "ball"}),
 ]
 QUICK = [
     ("knn", 5_000, 1, {}),
@@ -59,6 +69,7 @@ QUICK = [
     ("linear", 20_000, 5, {"penalty": "lasso"}),
     ("spline", 20_000, 1, {}),
     ("spline", 800, 2, {}),
+    ("spline", 5_000, 2, {}),
     ("additive", 10_000, 3, {}),
     ("spline", 20_000, 1, {"_query": 0}),
     ("knn", 3_000, 2, {"_query": 0, "_scheme": "loo"}),

@@ -9,6 +9,15 @@ It writes tests/benchmarks/REPORT.md unless told otherwise. Each row gives a fig
 measured in the same run, their ratio and the goal:
 
 - bench_tuning.py: every benchmark, as that script reports it (BLAS limited to one thread).
+- scale: bench_scale_knn_grid.py (issue 14): kNN's default grid at 100,000 rows against the
+  old one, the chosen k's held-out error and the tuning time.
+  bench_scale_hull.py (issue 14): the hull test's milliseconds per query row at 4 and 8
+  features (20,000 x 1,000 rows) against the route before it, measured in the same run, and the
+  rows decided.
+  bench_scale_thinplate.py (issue 14): thin-plate on knots, tuned, at 50,000 x 2 and
+  20,000 x 3, against one exact fit at 3,000 rows, and the cost estimate against it.
+  bench_scale_intervals.py (issue 14): kNN at 100,000 x 2, answers at every training row
+  (CV+ intervals, cv_residual) against tuning + 1,000 query rows, CPU seconds; goal <= 2.
 - load: a real server (``nearwise serve``, 2 workers, default threads) on 127.0.0.1; 8 client
   threads on kept-alive connections send the small tuned request (kNN predict, 200 rows, 5 query
   rows) back to back; the baseline is GET /healthz sent the same way to the same server. Goal:
@@ -44,6 +53,10 @@ HERE = Path(__file__).resolve().parent
 sys.path[:0] = [str(HERE), str(HERE.parent / "load")]
 
 import attack  # noqa: E402
+import bench_scale_hull  # noqa: E402
+import bench_scale_intervals  # noqa: E402
+import bench_scale_knn_grid  # noqa: E402
+import bench_scale_thinplate  # noqa: E402
 import bench_tuning  # noqa: E402
 import calibrate_cost  # noqa: E402
 import run_load  # noqa: E402
@@ -296,7 +309,10 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", type=Path, default=HERE / "REPORT.md")
     ap.add_argument("--memory-bound-gib", type=float, default=2.0)
     ap.add_argument(
-        "--skip", nargs="*", default=[], choices=["tuning", "cost", "load", "memory", "attack"]
+        "--skip",
+        nargs="*",
+        default=[],
+        choices=["tuning", "scale", "cost", "load", "memory", "attack"],
     )
     args = ap.parse_args(argv)
     repeats, seconds = (1, 5.0) if args.quick else (3, 20.0)
@@ -311,6 +327,26 @@ def main(argv: list[str] | None = None) -> int:
                     print(f"[tuning] {name}", flush=True)
                     rows = bench(np.random.default_rng(2026), repeats)
                     figures += [from_bench(r) for r in rows]
+        if "scale" not in args.skip:
+            print("[scale] knn grid", flush=True)
+            with threadpool_limits(limits=1):
+                grid = bench_scale_knn_grid.run(100_000)
+            figures += [Figure("scale", *r) for r in bench_scale_knn_grid.rows_for_report(grid)]
+            print("[scale] hull", flush=True)
+            with threadpool_limits(limits=1):
+                hulls = [bench_scale_hull.run(p) for p in (4, 8)]
+            figures += [Figure("scale", *r) for r in bench_scale_hull.rows_for_report(hulls)]
+            print("[scale] thin-plate on knots", flush=True)
+            with threadpool_limits(limits=1):
+                exact = bench_scale_thinplate.exact_fit_seconds()
+                plates = [
+                    bench_scale_thinplate.run(n, p, exact) for n, p in ((50_000, 2), (20_000, 3))
+                ]
+            figures += [Figure("scale", *r) for r in bench_scale_thinplate.rows_for_report(plates)]
+            print("[scale] answers at every training row", flush=True)
+            with threadpool_limits(limits=1):
+                every = bench_scale_intervals.run(100_000)
+            figures += [Figure("scale", *r) for r in bench_scale_intervals.rows_for_report(every)]
         if "cost" not in args.skip:
             print("[cost]", flush=True)
             figures += cost_figures(args.quick)

@@ -76,6 +76,9 @@ def test_knots_at_quantiles_merged_when_close_and_default_counts():
     knots = place_knots(u, 100)
     assert knots[0] == 0 and knots[-1] == 1 and np.diff(knots).min() >= 1e-3
     assert place_knots(np.array([0.0, 1.0, 0.0]), 20).tolist() == [0.0, 1.0]
+    # The service's own schedule, min(20, max(4, 2 + 240 // p)) knots per feature, kept in
+    # step with the README ("default 20, fewer past 12 features"): a cost choice, not a figure
+    # from outside. 2 + 240 // 12 = 22 and 2 + 240 // 13 = 20 are capped at 20.
     assert [default_knots(p) for p in (1, 12, 13, 24, 49)] == [20, 20, 20, 12, 6]
 
 

@@ -63,6 +63,28 @@ def test_the_facet_test_holds_one_chunk_at_a_time() -> None:
     assert peak < 12e6, f"peak {peak / 1e6:.0f} MB"
 
 
+def _lp_peak(Z: np.ndarray, Zq: np.ndarray) -> float:
+    tracemalloc.start()
+    try:
+        test = hull.hull_test(Z, Zq)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert test.route == "lp" and test.tested.all()
+    return peak
+
+
+def test_the_linear_programs_hold_one_block_and_one_pricing_chunk_at_a_time() -> None:
+    # Rows on a sphere in 6 dimensions, queries near it: several pricing rounds per row. The
+    # query rows are solved in blocks of hull_simplex.QUERY_BLOCK and priced in chunks of
+    # hull.FACET_CELLS entries, so three times the query rows take no more memory; a block
+    # priced against all 20,000 rows at once would take 80 MB.
+    Z = _sphere(20_000, 6)
+    small, large = _lp_peak(Z, 0.97 * _sphere(520, 6)), _lp_peak(Z, 0.97 * _sphere(1560, 6))
+    assert large < small + 2e6, (small, large)
+    assert large < 40e6, f"peak {large / 1e6:.0f} MB"
+
+
 CHILD = """
 import json, os, resource, sys
 for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):

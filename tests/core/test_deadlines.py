@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_array_equal
 
-from nearwise.core import budget, hull, intervals, locality, pipeline, uncertainty
+from nearwise.core import budget, hull, hull_simplex, intervals, locality, pipeline, uncertainty
 from nearwise.core.budget import Deadline, blocks, checkpoint
 from nearwise.core.data import Table
 from nearwise.core.errors import Abandoned, OverBudget
@@ -207,6 +207,22 @@ def test_posterior_variance_checks_between_blocks_of_points() -> None:
 # --------------------------------------------------------------------------- locality and hull
 
 
+def test_thin_plate_on_knots_checks_between_blocks_of_rows(monkeypatch) -> None:
+    from nearwise.core.methods import spline_lowrank
+    from nearwise.core.methods import thinplate_lowrank as lr
+
+    Z = RNG.uniform(size=(400, 2))
+    y = Z[:, 0] + RNG.normal(0, 0.1, 400)
+    basis = lr.Basis(Z[lr.choose_knots(Z, 600)[:300]])  # 300 knots: checks every 256 picks
+    raises_within(0, lambda: lr.choose_knots(Z, 300))
+    monkeypatch.setattr(lr, "BLOCK_CELLS", 300 * 50)  # 50 rows per block
+    raises_within(3, lambda: basis.design(Z))
+    raises_within(3, lambda: basis.predict(np.ones((300, 1)), np.ones((3, 1)), Z))
+    st = spline_lowrank.Setup(None, Z, basis, basis.design(Z), None, None)
+    monkeypatch.setattr(spline_lowrank, "QR_BLOCK_ROWS", 50)
+    raises_within(3, lambda: st.r_of(y))
+
+
 def test_nearest_search_checks_between_blocks() -> None:
     Z = RNG.uniform(size=(2000, 3))
     near = Nearest(Z)
@@ -226,7 +242,22 @@ def test_the_facet_test_checks_between_chunks(monkeypatch) -> None:
     raises_within(5, lambda: hull.hull_test(Z, 0.9 * _sphere(300, 3)))
 
 
-def test_the_linear_programs_check_between_batches(monkeypatch) -> None:
+def test_the_linear_programs_price_in_chunks_and_check_between_them(monkeypatch) -> None:
+    monkeypatch.setattr(hull, "FACET_CELLS", 40 * 64)  # at least 64 training rows per chunk
+    Z = _sphere(3000, 6)  # every row a vertex: several pricing rounds per query row
+    Zq = 0.9 * _sphere(40, 6)  # near the surface: outside the extremes' hull
+    raises_within(30, lambda: hull.hull_test(Z, Zq))
+
+
+def test_the_linear_programs_check_between_blocks_of_query_rows(monkeypatch) -> None:
+    monkeypatch.setattr(hull_simplex, "QUERY_BLOCK", 1)
+    Z = RNG.uniform(size=(3000, 6))
+    Zq = RNG.uniform(0.45, 0.55, size=(40, 6))  # inside the extremes' hull: no pricing
+    raises_within(10, lambda: hull.hull_test(Z, Zq))
+
+
+def test_the_highs_programs_check_between_batches(monkeypatch) -> None:
+    monkeypatch.setattr(hull_simplex, "MAX_PIVOTS", 0)  # every row goes to HiGHS
     monkeypatch.setattr(hull, "BATCH", 5)
     Z = RNG.uniform(size=(300, 5))
     Zq = RNG.uniform(0.2, 0.8, size=(30, 5))
@@ -269,7 +300,7 @@ def test_a_predict_checks_in_every_stage_with_the_jobs_deadline() -> None:
         clock = Recording()
         pipeline.run(Job("knn", train, "y", query=q, deadline=clock))
         seen += clock.where
-    stages = {"tuning.py", "knn.py", "pipeline.py", "uncertainty.py", "intervals.py"}
+    stages = {"tuning.py", "knn.py", "pipeline.py", "uncertainty.py", "order_stats.py"}
     stages |= {"neighbors.py", "hull.py"}  # the query's locality flags
     assert stages <= set(seen), seen
     with pytest.raises(OverBudget):

@@ -16,7 +16,9 @@ def _run(method, n, p, **kw):
     return run(Job(method, Table("train", cols, np.column_stack([X, y])), "y", **kw))
 
 
-def test_knn_grid_runs_from_1_to_the_smaller_of_50_and_the_training_fold_minus_one():
+def test_knn_grid_at_few_rows_runs_from_1_to_the_smaller_of_50_and_the_training_fold_minus_one():
+    # Folds of 160 rows in 2-D: the rate 160^(2/3) = 29.5 is below the floor of 50, so the
+    # grid is every k up to 50; it grows past 50 above 353 rows a fold (test_knn_grid.py).
     big = _run("knn", 200, 2)
     assert [e.params["k"] for e in big.tuning.path] == list(range(50, 0, -1))
     small = _run("knn", 30, 2)  # training folds of 24 rows

@@ -13,6 +13,7 @@ from nearwise.core.data import Table
 from nearwise.core.errors import BadCell, InvalidValue, TooFewRows, UnknownName
 from nearwise.core.locality import CODES, query_flags, summary
 from nearwise.core.neighbors import Nearest
+from nearwise.core.spec import Caps
 
 RNG = np.random.default_rng(0)
 X3 = RNG.uniform(size=(300, 3))
@@ -72,6 +73,9 @@ def test_flags_do_not_depend_on_units_or_row_order() -> None:
 
 
 def test_far_threshold_per_dimension() -> None:
+    # The service's own rule, kept in step with the README "Warnings" table: max(3, 10^(1/p)).
+    # Three typical spacings is common practice; 10^(1/p) keeps a Poisson scatter's chance of
+    # a gap that wide, 2^(-t^p) (Clark & Evans 1954), near 1 in 1,000 in one and two dimensions.
     assert locality.far_threshold(1) == 10
     assert locality.far_threshold(2) == pytest.approx(10**0.5)
     assert locality.far_threshold(3) == locality.far_threshold(7) == 3
@@ -105,18 +109,19 @@ def test_column_generation_equals_the_full_program(p: int) -> None:
     assert 0 < sum(expected) < 30  # both verdicts occur
 
 
-def test_the_budget_leaves_rows_untested_and_says_so() -> None:
+def test_the_cost_cap_leaves_rows_untested_and_says_so() -> None:
+    # (the cap's accounting: tests/core/test_hull.py)
     rng = np.random.default_rng(4)
     X = rng.normal(size=(300, 4))
     Xq = rng.normal(size=(40, 4)) * 0.3  # inside: each needs a program
-    assert not hull.hull_test(X, Xq, max_lp_solves=0).tested.any()
-    some = hull.hull_test(X, Xq, max_lp_solves=10)
-    assert some.tested[:10].all() and not some.tested[10:].any()
-    loc = query_flags(X, np.vstack([Xq] * 7))  # 280 rows, more than MAX_LP_SOLVES
+    assert not hull.hull_test(X, Xq, max_cost_s=0.0).tested.any()
+    assert hull.hull_test(X, Xq).tested.all()
+    caps = Caps(hull_cost_s=0.0)
+    loc = query_flags(X, np.vstack([Xq] * 7), caps=caps)
     untested = [i for i, f in enumerate(loc.flags) if "hull_not_tested" in f]
-    assert len(untested) == 280 - hull.MAX_LP_SOLVES
+    assert len(untested) == 280
     (notice,) = [n for n in loc.notices if n.code == "hull_not_tested"]
-    assert notice.rows == tuple(untested) and str(hull.MAX_LP_SOLVES) in notice.message
+    assert notice.rows == tuple(untested) and "max_hull_cost_s = 0" in notice.message
 
 
 def test_neighborhood_radii_equal_brute_force() -> None:
@@ -138,6 +143,8 @@ def test_summary_shapes_and_the_requested_row() -> None:
     assert doc["n"] == 300 and doc["p"] == 3 and doc["features"] == ["a", "b", "c"]
     assert [r["name"] for r in doc["ranges"]] == ["a", "b", "c"]
     table = doc["neighborhoods"]
+    # The service's own table (README "Locality"): 1 %, 5 %, 10 % and the size asked, k =
+    # ceil(fraction n).
     assert [r["fraction"] for r in table] == [0.01, 0.05, 0.1]  # k/n = 0.1 is the 10 % row
     assert [r["k"] for r in table] == [3, 15, 30]
     assert [r["requested"] for r in table] == [False, False, True]
@@ -152,7 +159,9 @@ def test_summary_shapes_and_the_requested_row() -> None:
 def test_summary_warns_not_local_for_the_size_asked() -> None:
     X = RNG.uniform(size=(100, 6))
     codes = [w["code"] for w in summary(X, list("abcdef"), k=5)["warnings"]]
-    assert codes == ["not_local"]  # e_6(0.05) = 0.61
+    # e_6(0.05) = 0.05^(1/6) = 0.61, above the README's cut-off 0.5 (Hastie, Tibshirani &
+    # Friedman 2009, section 2.5); the cut-off's both sides: tests/core/test_planted_defects.py
+    assert codes == ["not_local"]
     assert summary(X, list("abcdef"))["warnings"] == []
 
 

@@ -73,6 +73,9 @@ def test_a_constant_feature_is_dropped_and_named():
     result = run(_job("linear", X, y, params={"degree": 1}))
     assert result.model["aliased_terms"] == ["x1"]
     est = {t["name"]: t["estimate"] for t in result.model["terms"]}
+    # The true slope is 2; least squares estimates it with standard error sigma / (sd(x)
+    # sqrt(n)) = 0.1 / (0.29 sqrt(40)) = 0.055 (the textbook formula for a straight line), so
+    # 0.2 is about 3.6 standard errors.
     assert set(est) == {"intercept", "x0"} and abs(est["x0"] - 2) < 0.2
 
 

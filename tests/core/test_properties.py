@@ -4,9 +4,17 @@ Each property runs a bounded, derandomized search (the same examples on every ru
 deterministic and fast. A ``NearwiseError`` is an acceptable answer to odd generated data (too
 few distinct values, a degree a fold cannot fit, ...); any other exception, and any numpy
 warning (the suite runs with warnings as errors), is a bug.
+
+A property checked only on refused examples proves nothing, so each property also asserts a
+floor on the share of requests answered (:func:`answering`). The floors sit under the shares
+observed with these derandomized examples, stated beside each test; the examples drawn vary a
+little between a run of one file and a run of the whole suite, hence the ranges.
 """
 
 from __future__ import annotations
+
+from collections import Counter
+from collections.abc import Callable
 
 import numpy as np
 from hypothesis import HealthCheck, assume, event, given, settings
@@ -54,15 +62,39 @@ def job(method, X, y, Xq=None, **kw) -> Job:
     return Job(method, Table("train", cols, np.column_stack([X, y])), "y", query=query, **kw)
 
 
+#: Requests answered and refused by the property being run (see ``answering``).
+TALLY: Counter = Counter()
+
+
 def attempt(j: Job):
     """The result, or the NearwiseError class for a request the core refuses."""
     try:
         result = run(j)
     except NearwiseError as e:
         event(f"refused: {type(e).__name__}")  # shown by pytest --hypothesis-show-statistics
+        TALLY["refused"] += 1
         return type(e)
     event("answered")
+    TALLY["answered"] += 1
     return result
+
+
+def answering(floor: float) -> Callable[[Callable[[], None]], Callable[[], None]]:
+    """Run a hypothesis property and fail unless at least ``floor`` of its requests were
+    answered (not refused with a NearwiseError)."""
+
+    def wrap(prop: Callable[[], None]) -> Callable[[], None]:
+        def test() -> None:
+            TALLY.clear()
+            prop()
+            total = TALLY["answered"] + TALLY["refused"]
+            share = TALLY["answered"] / max(total, 1)
+            assert share >= floor, f"{TALLY['answered']} of {total} answered, under {floor:.0%}"
+
+        test.__name__, test.__doc__ = prop.__name__, prop.__doc__
+        return test
+
+    return wrap
 
 
 def same_outcome(a, b) -> bool:
@@ -80,6 +112,7 @@ def scale_of(y) -> float:
 # -- row order ------------------------------------------------------------------------------
 
 
+@answering(0.65)  # observed: 48 to 54 of 60 requests answered (80 to 90 %)
 @FAST
 @given(data=tables(), method=st.sampled_from(METHODS), seed=st.integers(0, 10**6))
 def test_row_order_does_not_matter(data, method, seed):
@@ -101,6 +134,7 @@ def test_row_order_does_not_matter(data, method, seed):
 # -- scaling promises -----------------------------------------------------------------------
 
 
+@answering(0.90)  # observed: 60 of 60 (100 %)
 @FAST
 @given(
     data=tables(x=whole),
@@ -129,6 +163,7 @@ def test_knn_scaled_features_ignore_units(data, kind, weights, j, power, shift):
     assert_allclose(a.predictions.value, b.predictions.value, rtol=1e-9, atol=tol)
 
 
+@answering(0.85)  # observed: 54 of 60 (90 %)
 @FAST
 @given(data=tables(max_features=1, x=whole), shift=st.integers(-1000, 1000))
 def test_one_feature_spline_ignores_a_shift_of_x(data, shift):
@@ -145,6 +180,7 @@ def test_one_feature_spline_ignores_a_shift_of_x(data, shift):
     assert_allclose(a.predictions.value, b.predictions.value, rtol=1e-7, atol=tol)
 
 
+@answering(0.70)  # observed: 46 of 60 (77 %)
 @FAST
 @given(
     data=tables(x=whole),
@@ -196,6 +232,7 @@ OPTIONS = [
 ]
 
 
+@answering(0.70)  # observed: 30 of 38 (79 %)
 @FAST
 @given(
     data=tables(),
@@ -251,6 +288,7 @@ def grids(draw):
     return method, {}, {"smoothing": values}
 
 
+@answering(0.65)  # observed: 30 of 31 to 38 (79 to 97 %)
 @FAST
 @given(data=tables(), choice=grids(), rule=st.sampled_from(["one_se", "min"]))
 def test_tuning_chooses_from_the_grid(data, choice, rule):
@@ -270,6 +308,7 @@ def test_tuning_chooses_from_the_grid(data, choice, rule):
 # -- determinism ----------------------------------------------------------------------------
 
 
+@answering(0.65)  # observed: 48 to 58 of 60 (80 to 97 %)
 @FAST
 @given(
     data=tables(),

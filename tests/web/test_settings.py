@@ -90,6 +90,7 @@ def test_overrides_name_their_source() -> None:
         ("NEARWISE_MAX_FOLD_FITS", "2.5"),
         ("NEARWISE_MAX_METHODS", ""),
         ("NEARWISE_MAX_COST_S", "-1"),
+        ("NEARWISE_MAX_HULL_COST_S", "0"),
         ("NEARWISE_GRACEFUL_TIMEOUT_S", "10.5"),
         ("NEARWISE_OPEN_ENDPOINTS", "/v1/predict"),
         ("NEARWISE_METRICS_DIR", "relative/dir"),
@@ -98,6 +99,14 @@ def test_overrides_name_their_source() -> None:
 def test_bad_limits_name_the_variable(name: str, value: str) -> None:
     with pytest.raises(SettingsError, match=name):
         Settings.from_env({name: value})
+
+
+def test_the_hull_cost_cap_reaches_the_core_under_its_name() -> None:
+    from nearwise.web.routes.predict import caps
+
+    c = caps(Settings.from_env({"NEARWISE_MAX_HULL_COST_S": "2.5"}))
+    assert c.hull_cost_s == 2.5 and c.label("hull_cost_s") == "NEARWISE_MAX_HULL_COST_S = 2.5"
+    assert caps(Settings()).hull_cost_s == 5.0
 
 
 def test_open_endpoints_may_be_emptied() -> None:

@@ -34,7 +34,8 @@ def _warnings() -> list[dict[str, Any]]:
             "concerns": "rows or data set",
             "rule": f"the hull test was not run: more than {hull.HULL_MAX_DIM} features (where "
             f"nearly every new point is outside the hull; rely on far_from_data), or the "
-            f"request's {hull.MAX_LP_SOLVES} linear programs were used up",
+            "request's hull work reached the service's cost cap NEARWISE_MAX_HULL_COST_S "
+            "before those rows (a cap on the request's size, not a verdict on the rows)",
         },
         {
             "code": "unseen_level",

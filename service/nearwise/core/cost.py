@@ -25,13 +25,15 @@ from nearwise.core.spec import Caps, TuningSpec
 ROW_S = 0.8e-6
 #: Intervals at the answer rows (the query, or every training row without one): K-fold CV+
 #: narrows a bracket per answer row by counting each fold's sorted residuals below a value
-#: (about 14 passes per end): per answer row and fold, times the training rows to the power
-#: CV_PLUS_GROWTH (larger sorted arrays miss the cache more: 0.75 us at 2,000 rows, 3 to 6 us
-#: at 250,000); jackknife+ (loo, gcv) forms every leave-one-out prediction (per answer row and
-#: training row).
+#: (order_stats: 8 to 12 counts per end): per answer row and fold, times the training rows to
+#: the power CV_PLUS_GROWTH (larger sorted arrays miss the cache more: 0.75 us at 2,000 rows,
+#: 2.4 us at 100,000); jackknife+ (loo, gcv) forms every leave-one-out prediction (per answer
+#: row and training row), except kNN's, of which only a window of about k + 10 per answer row
+#: differs from the fit (knn_loo): per answer row and window entry, its search included.
 CV_PLUS_S = 0.1e-6
 CV_PLUS_GROWTH = 0.3
 JACKKNIFE_S = 2e-8
+KNN_JACKKNIFE_S = 0.6e-6
 #: Leave-a-window-out solves from a hat matrix: per step and candidate, and per cubed window.
 WINDOW_STEP_S = 1.5e-6
 WINDOW_CUBE_S = 1.2e-9
@@ -113,6 +115,14 @@ KNN_NEIGHBOR_S = 0.08e-6
 #: how that grows with the indexed points (exponent); measured with k = 50 on uniform data.
 KNN_TREE_S = {1: 2e-6, 2: 5e-6, 3: 12e-6, 4: 20e-6, 6: 50e-6, 10: 380e-6, 15: 3000e-6}
 KNN_TREE_GROWTH = {1: 0.30, 3: 0.25, 6: 0.38, 10: 0.50, 15: 0.60}
+#: Seconds per neighbor beyond the KNN_WIDE_FROM nearest for gathering and running sums (the
+#: tree search is counted apart); with it, 0.1 to 0.25 us per neighbor at 1 to 3 features, as
+#: measured with the default grid's top (1,000 to 2,300 neighbors).
+KNN_WIDE_FROM = 50
+KNN_WIDE_S = 0.08e-6
+#: The final fit's fitted values beyond the KNN_WIDE_FROM nearest, per training row, as a share
+#: of the same neighbors in tuning (at k <= 50 the tuning's constants absorb the fit).
+KNN_FIT_SHARE = 1.0
 #: Above this many features the search compares with every indexed point.
 KNN_BRUTE_P = 15
 KNN_BRUTE_S = 0.4e-9  # seconds per indexed point and feature, per query point
@@ -132,22 +142,34 @@ def _interp(table: Mapping[int, float], p: int) -> float:
 
 def _knn_point(index_rows: float, p: int, kmax: int) -> float:
     """Seconds to find the kmax nearest of index_rows points for one query point."""
+    return _knn_search(index_rows, p, kmax) + _knn_sums(kmax)
+
+
+def _knn_search(index_rows: float, p: int, kmax: int) -> float:
     index_rows = max(index_rows, 2.0)
     if p > KNN_BRUTE_P:
-        search = KNN_BRUTE_S * index_rows * p
-    else:
-        growth = (index_rows / 1e5) ** _interp(KNN_TREE_GROWTH, p)
-        search = _interp(KNN_TREE_S, p) * growth * (kmax + 20) / 70
-    return search + KNN_NEIGHBOR_S * kmax * 2
+        return KNN_BRUTE_S * index_rows * p
+    growth = (index_rows / 1e5) ** _interp(KNN_TREE_GROWTH, p)
+    return _interp(KNN_TREE_S, p) * growth * (kmax + 20) / 70
+
+
+def _knn_sums(kmax: int) -> float:
+    """The neighbors' running sums (and, beyond KNN_WIDE_FROM, their sorting and gathering)."""
+    return KNN_NEIGHBOR_S * 2 * min(kmax, KNN_WIDE_FROM) + KNN_WIDE_S * max(0, kmax - KNN_WIDE_FROM)
 
 
 def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
+    from nearwise.core.methods.knn_grid import top
+
     if settings.get("k") is not None:
         kmax = int(settings["k"])
     elif grid is not None:
         kmax = int(max(grid))
-    else:
-        kmax = min(50, max(1, int(s.n * s.train_share) - 1))
+    else:  # the default grid's top grows with the rows (knn_grid.top)
+        kmax = top(max(2, int(s.n * s.train_share)), s.p)
+    # The final fit's neighbors at every training row: the chosen k, not known before tuning
+    # unless fixed; half the grid's top is counted.
+    k_fit = kmax if settings.get("k") is not None else max(1, kmax // 2)
     width = kmax + 1
     if s.scheme == "window":  # one neighbor query of all rows, as for leave-one-out, whose
         s = replace(s, fits=1)  # window also holds the rows each one leaves out
@@ -155,9 +177,13 @@ def knn(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> fl
     index = s.n * s.train_share
     per_point = _knn_point(index, s.p, width)
     tuning = s.n * (s.fits * (1 - s.train_share) if s.train_share < 1 else 1) * per_point
-    queries = s.answers * s.models * _knn_point(s.n, s.p, kmax)
+    queries = s.answers * s.models * _knn_point(s.n, s.p, k_fit)  # at the chosen k
     build = s.fits * index * log2(index + 2) * s.p * 5e-8
-    return tuning + queries + build
+    # Only the part beyond KNN_WIDE_FROM neighbors: below it the tuning's constants absorb it.
+    beyond = max(0, k_fit + 1 - KNN_WIDE_FROM)
+    per_neighbor = _knn_search(s.n, s.p, KNN_WIDE_FROM + 1) - _knn_search(s.n, s.p, KNN_WIDE_FROM)
+    fit = s.n * beyond * (per_neighbor + KNN_WIDE_S) * KNN_FIT_SHARE
+    return tuning + queries + build + fit
 
 
 # ---------------------------------------------------------------------------------------------
@@ -210,6 +236,14 @@ SPLINE_SOLVE_S = 0.5e-6  # per knot, candidate and fit: the banded solves
 SPLINE_VARIANCE_S = 7e-11  # per point and squared knot count: the augmented system's solves
 THIN_PLATE_S = 1.0e-10  # per cubed row and fit: eigendecomposition, posterior factor
 THIN_PLATE_KERNEL_S = 2.0e-9  # per squared row, feature and fit: the kernel matrix
+# Past thinplate_lowrank.EXACT_ROWS rows, the thin-plate spline on m knots (rank r <= m):
+LOW_RANK_QR_S = 1.5e-10  # per row, squared rank and pass: QR of the design's row blocks
+LOW_RANK_KNOT_S = 5e-8  # per row and knot: choosing the knots, the design's kernel entries
+LOW_RANK_DESIGN_S = 5e-11  # per row, knot and rank: kernel rows times the whitened basis
+LOW_RANK_CUBE_S = 1e-9  # per cubed rank and fit: stacking the folds' R factors, the SVD
+LOW_RANK_ANSWER_S = 1e-8  # per answer row, model and knot: kernel rows at the answer rows
+LOW_RANK_SOLVE_S = 1.5e-10  # per answer row and squared rank: std_error's triangular solves
+LOW_RANK_WEIGHT_S = 5e-11  # per answer row, training row and rank: jackknife+ weights
 
 
 def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> float:
@@ -227,6 +261,10 @@ def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
         variance = min(s.answers, 7 * knots) * knots * knots * SPLINE_VARIANCE_S
         tuning = fits * (s.n * SPLINE_ROW_S + knots * m * SPLINE_SOLVE_S)
         return tuning + variance + s.answers * s.models * 1e-6 + solves
+    from nearwise.core.methods.thinplate_lowrank import EXACT_ROWS
+
+    if s.n > EXACT_ROWS:
+        return _thin_plate_low_rank(s)
     rows = s.n * s.train_share
     kernel = fits * rows * rows * s.p * THIN_PLATE_KERNEL_S
     return (
@@ -235,6 +273,28 @@ def spline(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) ->
         + kernel
         + s.answers * s.n * s.models * 2e-8
     )
+
+
+def _thin_plate_low_rank(s: Shape) -> float:
+    """One design of all rows; QR passes over the rows (K-fold: one per repeat, each fold's R
+    factor made once, plus all rows; otherwise one per training set); per fit, the stacked R
+    factors and an SVD; at the answer rows, kernel rows per model and the std_error solves
+    (leave-one-out: every training row's smoother weight)."""
+    from nearwise.core.methods.thinplate_lowrank import knot_count
+
+    r = m = knot_count(s.n, s.p)
+    if s.scheme == "kfold":
+        passes = s.fits * (1 - s.train_share) + 1
+    elif s.train_share < 1 or s.scheme == "window":
+        passes = s.fits * s.train_share + 1
+    else:  # loo (with the leverages) or gcv
+        passes = 2 if s.scheme == "loo" else 1
+    tuning = passes * s.n * r * r * LOW_RANK_QR_S + (s.fits + 1) * r**3 * LOW_RANK_CUBE_S
+    design = s.n * m * (LOW_RANK_KNOT_S + r * LOW_RANK_DESIGN_S)
+    answers = s.answers * (s.models * m * LOW_RANK_ANSWER_S + r * r * LOW_RANK_SOLVE_S)
+    if s.train_share == 1 and s.scheme != "window":  # jackknife+: smoother weights
+        answers += s.answers * s.n * r * LOW_RANK_WEIGHT_S
+    return tuning + design + answers
 
 
 # ---------------------------------------------------------------------------------------------
@@ -277,9 +337,21 @@ class Item:
     def seconds(self, s: Shape) -> float:
         if s.train_share < 1:
             intervals = s.answers * (s.models - 1) * CV_PLUS_S * s.n**CV_PLUS_GROWTH
+        elif self.name == "knn":
+            intervals = s.answers * (_knn_k(self.settings, self.grid, s) + 10) * KNN_JACKKNIFE_S
         else:
             intervals = s.answers * s.n * JACKKNIFE_S
         return ESTIMATES[self.name](self.settings, self.grid, s) + s.n * ROW_S + intervals
+
+
+def _knn_k(settings: Mapping[str, Any], grid: Sequence[Any] | None, s: Shape) -> int:
+    """kNN's k for its jackknife+ window: fixed, or half the grid's top (as for its fit)."""
+    from nearwise.core.methods.knn_grid import top
+
+    if settings.get("k") is not None:
+        return int(settings["k"])
+    kmax = int(max(grid)) if grid is not None else top(max(2, s.n - 1), s.p)
+    return max(1, kmax // 2)
 
 
 def total(items: Sequence[Item], s: Shape) -> float:

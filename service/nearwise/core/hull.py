@@ -1,4 +1,4 @@
-"""Is a point inside the convex hull of the training rows? Exact where it runs, bounded in cost.
+"""Is a point inside the convex hull of the training rows? Exact, and bounded in cost.
 
 A point x0 lies in the hull of rows x_1..x_n iff some weights lambda >= 0 with sum 1 give
 X'lambda = x0: a linear program. This module answers it for many query rows at once:
@@ -11,20 +11,34 @@ X'lambda = x0: a linear program. This module answers it for many query rows at o
    O(facets) per row. Each facet is a separating hyperplane, the dual certificate of the
    linear program, so this is the same test. In one to three dimensions qhull takes
    O(n log n) time and the hull has O(n) facets.
-3. **4 <= dim <= 8** (:data:`HULL_MAX_DIM`): one linear program per row (scipy ``linprog``,
-   HiGHS), by column generation: the program uses a small set of rows (at first the extremes
-   along 128 fixed directions) and is priced against every row with
-   its dual solution; it stops when a subset holds the query (inside) or when no row can
-   improve it (outside, certified by the dual's separating hyperplane). Rows already shown
-   outside by one of the 128 directions need no program.
+3. **4 <= dim <= 8** (:data:`HULL_MAX_DIM`), in three steps, each exact:
+
+   a. *a separating direction*: the rows' extremes along :data:`N_DIRECTIONS` fixed
+      directions. A query beyond one of them by more than :data:`HULL_TOL` is outside, with
+      no program (that direction is the certificate).
+   b. *a batched simplex* (:mod:`nearwise.core.hull_simplex`): the L1 distance from each
+      query to the hull, min 1's+ + 1's- subject to X'lambda + s+ - s- = x0, 1'lambda = 1, all
+      >= 0, solved for a block of queries at once by column generation, starting from those
+      extremes. A verdict is given only with a certificate checked on the rows: weights
+      within :data:`HULL_TOL` of the query (inside), or a direction along which the query
+      lies beyond every row by more than :data:`HULL_TOL` times the direction's largest
+      component (outside, since then its L1 distance exceeds :data:`HULL_TOL`). By duality
+      one of the two exists for every query; see that module for the argument.
+   c. *HiGHS* (scipy ``linprog``): the rare rows the simplex leaves undecided (degenerate
+      programs, rounding) get the same program from HiGHS, by column generation with at most
+      :data:`MAX_ROUNDS` rounds, the last over every row. Up to :data:`BATCH` programs go to
+      HiGHS together as one block-diagonal program.
+
 4. **dim > 8**: not tested. Nearly every new point is outside the hull there, so the test
    would flag almost everything; the graded distance measures are the guide.
 
-Cost bound: at most :data:`MAX_LP_SOLVES` programs per call, each with at most dim + 1
-equality rows and at most 128 + 2 (dim + 1) :data:`MAX_ROUNDS` columns, plus one
-O(n dim) pricing pass per program; up to :data:`BATCH` programs go to HiGHS together as one
-block-diagonal program. Rows left undecided when that budget is spent are reported as not
-tested, never guessed.
+Cost: step (a) costs (n + m) x 128 x dim multiplications; step (b) about
+:data:`~nearwise.core.hull_simplex.SOLVE_S` x (dim + 1) per query and round, plus n x (dim + 1)
+multiplications per query and pricing round (none for most rows inside the extremes' hull;
+about three on average at dim = 8 with rows spread in a ball or on a sphere). That work is
+counted as it is done, from the data alone; ``max_cost_s`` caps it, and rows still undecided
+when it is reached are reported as not tested, never guessed. The cap is about the size of
+the request, not about those rows.
 
 References
 ----------
@@ -45,6 +59,7 @@ from scipy import sparse
 from scipy.optimize import linprog
 from scipy.spatial import ConvexHull, QhullError
 
+from nearwise.core import hull_simplex
 from nearwise.core.budget import checkpoint
 
 #: Distance from the hull, in units of the largest feature range, still counted as inside.
@@ -53,12 +68,12 @@ HULL_TOL = 1e-7
 FACET_MAX_DIM = 3
 #: Largest affine dimension in which the hull test runs at all.
 HULL_MAX_DIM = 8
-#: Linear programs (one query row, one round) solved per call, at most.
-MAX_LP_SOLVES = 250
-#: Programs solved together in one block-diagonal call to HiGHS.
+#: Programs solved together in one block-diagonal call to HiGHS (step c).
 BATCH = 100
-#: Rounds of column generation per query row, at most.
+#: Rounds of column generation per query row in HiGHS (step c); the last is over every row.
 MAX_ROUNDS = 20
+#: Work counted per HiGHS program (step c), in seconds on the reference machine.
+LP_SOLVE_S = 1e-3
 #: Fixed directions whose extreme rows seed the programs and certify clear outsiders.
 N_DIRECTIONS = 128
 #: Query rows x facets (or directions) computed at once: 8 MB of float64 per chunk, so the
@@ -73,13 +88,15 @@ class HullTest:
 
     ``outside`` and ``tested`` are boolean arrays over the query rows (rows not asked about
     are untested and not outside). ``dim`` is the affine dimension of the training rows;
-    ``route`` is ``"facets"``, ``"lp"`` or ``"skipped"`` (dim above :data:`HULL_MAX_DIM`).
+    ``route`` is ``"facets"``, ``"lp"`` or ``"skipped"`` (dim above :data:`HULL_MAX_DIM`);
+    ``cost_s`` the work counted against ``max_cost_s`` (the linear programs only).
     """
 
     outside: np.ndarray
     tested: np.ndarray
     dim: int
     route: str
+    cost_s: float = 0.0
 
 
 def hull_test(
@@ -88,7 +105,7 @@ def hull_test(
     rows: np.ndarray | None = None,
     *,
     route: str = "auto",
-    max_lp_solves: int = MAX_LP_SOLVES,
+    max_cost_s: float | None = None,
 ) -> HullTest:
     """Which query rows lie outside the convex hull of the training rows.
 
@@ -103,8 +120,9 @@ def hull_test(
     route : {"auto", "lp"}
         ``"lp"`` uses the linear program in every dimension up to :data:`HULL_MAX_DIM`
         (for checks against other implementations).
-    max_lp_solves : int
-        Budget of linear programs.
+    max_cost_s : float, optional
+        Cap on the linear programs' work, in seconds on the reference machine as counted
+        (see the module notes); None: no cap.
 
     Returns
     -------
@@ -132,9 +150,9 @@ def hull_test(
         if out is not None:
             outside[keep], tested[keep] = out, True
             return HullTest(outside, tested, dim, "facets")
-    out, done = _by_lp(W, Wq, max_lp_solves)
+    out, done, spent = _by_lp(W, Wq, max_cost_s)
     outside[keep], tested[keep] = out & done, done
-    return HullTest(outside, tested, dim, "lp")
+    return HullTest(outside, tested, dim, "lp", spent)
 
 
 def subspace(Z: np.ndarray) -> np.ndarray:
@@ -203,29 +221,54 @@ def beyond(Wq: np.ndarray, normals: np.ndarray, offsets: np.ndarray) -> np.ndarr
     return out
 
 
-def _by_lp(W: np.ndarray, Wq: np.ndarray, budget: int) -> tuple[np.ndarray, np.ndarray]:
-    """Outside, and decided, for each query row, by column generation within ``budget``."""
+def _by_lp(
+    W: np.ndarray, Wq: np.ndarray, budget_s: float | None
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Outside, and decided, for each query row, and the work counted: steps a to c."""
     m, dim = Wq.shape
     outside = np.zeros(m, dtype=bool)
     done = np.zeros(m, dtype=bool)
     if m == 0:
-        return outside, done
+        return outside, done, 0.0
     D = np.random.default_rng(0).standard_normal((N_DIRECTIONS, dim))
     D /= np.linalg.norm(D, axis=1)[:, None]
     top, seeds = _extremes(W, D)
     clear = beyond(Wq, D, -top)
     outside[clear] = done[clear] = True
-    width = min(2 * (dim + 1), W.shape[0])
+    ask = np.flatnonzero(~clear)
+    out, ok, spent = hull_simplex.decide(W, Wq[ask], seeds, HULL_TOL, FACET_CELLS, budget_s)
+    outside[ask], done[ask] = out, ok
+    rest = ask[~ok]
+    if budget_s is not None and spent >= budget_s:
+        rest = rest[:0]  # the cap was reached in the simplex: its undecided rows stay so
+    if rest.size:
+        left = None if budget_s is None else budget_s - spent
+        out, ok, more = _by_highs(W, Wq[rest], seeds, left)
+        outside[rest], done[rest] = out, ok
+        spent += more
+    return outside, done, spent
+
+
+def _by_highs(
+    W: np.ndarray, Wq: np.ndarray, seeds: np.ndarray, budget_s: float | None
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Step c: HiGHS column generation for each query row, the last round over every row."""
+    m, dim = Wq.shape
+    n = W.shape[0]
+    outside = np.zeros(m, dtype=bool)
+    done = np.zeros(m, dtype=bool)
+    width = min(2 * (dim + 1), n)
     sets: dict[int, np.ndarray] = {}
     rounds: dict[int, int] = {}
-    queue = list(np.flatnonzero(~clear)[::-1])  # in order of index, the first at the end
-    while (sets or queue) and budget > 0:
+    queue = list(range(m))[::-1]  # in order of index, the first at the end
+    spent = 0.0
+    while (sets or queue) and (budget_s is None or spent < budget_s):
         checkpoint()
-        while queue and len(sets) < min(budget, BATCH):
-            i = int(queue.pop())
+        while queue and len(sets) < BATCH:
+            i = queue.pop()
             sets[i], rounds[i] = seeds, 0
-        batch = sorted(sets)[: min(budget, BATCH)]
-        budget -= len(batch)
+        batch = sorted(sets)
+        spent += len(batch) * (LP_SOLVE_S + n * dim * hull_simplex.PRICE_S)
         values, duals = _solve_block(W, Wq[batch], [sets[i] for i in batch])
         for j, i in enumerate(batch):
             rounds[i] += 1
@@ -233,9 +276,9 @@ def _by_lp(W: np.ndarray, Wq: np.ndarray, budget: int) -> tuple[np.ndarray, np.n
             verdict, grown = _step(values[j], gain, sets.pop(i), width)
             if verdict is not None:
                 outside[i], done[i] = verdict, True
-            elif rounds[i] < MAX_ROUNDS:
-                sets[i] = grown
-    return outside, done
+            else:
+                sets[i] = grown if rounds[i] < MAX_ROUNDS - 1 else np.arange(n)
+    return outside, done, spent
 
 
 def _extremes(W: np.ndarray, D: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

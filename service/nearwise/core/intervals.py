@@ -33,6 +33,7 @@ from collections.abc import Callable
 import numpy as np
 from sklearn.neighbors import NearestNeighbors
 
+from nearwise.core import order_stats
 from nearwise.core.budget import blocks, checkpoint
 
 CHUNK_CELLS = 2_000_000  # elements per block when a query x training matrix is needed
@@ -47,143 +48,38 @@ def ranks(n: int, level: float) -> tuple[int, int]:
     return lo, hi
 
 
-#: Candidates left in a query's bracket when the bisection stops and they are sorted.
-SELECT_AT = 32
-
-
 def _kth_of_folds(
     mu: np.ndarray, parts: list[np.ndarray], spread: np.ndarray, k: int, upper: bool
 ) -> np.ndarray:
     """For each query, the k-th smallest of {mu[f] -/+ spread * s : s in parts[f]} over folds.
 
     ``parts`` are the sorted scaled residuals of each fold. When the n x queries candidates fit
-    in CHUNK_CELLS they are formed and partitioned directly. Otherwise, per query: the answer
-    lies between min_f and max_f of mu[f] -/+ spread * S, S the k-th smallest pooled
-    residual (the (n - k + 1)-th for the lower end), since every fold's values are its
-    residuals shifted by mu[f]; bisection on the value narrows that bracket, counting the
-    candidates below a value with one searchsorted per fold (O(folds x queries x log n) per
-    step), until at most SELECT_AT candidates lie inside it; those are formed and the right
-    one taken. About 12 steps instead of the 60 a bisection to full precision takes; queries
-    whose fold predictions are not finite take that full bisection, and queries without a
-    finite positive spread get an unbounded end.
+    in CHUNK_CELLS they are formed and partitioned directly. Otherwise the search over values
+    of :func:`order_stats.kth_of_shifted` finds the same candidate exactly in
+    O((n + queries) folds log n); the lower end is the upper end of the negated problem
+    (fl(-mu + q s) = -fl(mu - q s)). Queries without a finite positive spread get an
+    unbounded end; those whose fold predictions are not finite take the definition.
     """
     n = sum(p.size for p in parts)
-    direct = 1 <= k <= n and n * mu.shape[1] <= CHUNK_CELLS
-    if direct and np.all(np.isfinite(spread) & (spread > 0)):
-        sign = 1.0 if upper else -1.0
-        with np.errstate(over="ignore", invalid="ignore"):
-            values = np.concatenate(
-                [mu[f][None, :] + sign * spread[None, :] * s[:, None] for f, s in enumerate(parts)]
-            )
-        return np.partition(values, k - 1, axis=0)[k - 1]
-    # No finite positive spread (adaptive intervals where no neighbor has a residual): the
-    # interval is unbounded there.
-    spread_ok = np.isfinite(spread) & (spread > 0)
+    sign = 1.0 if upper else -1.0
+    ok = np.isfinite(spread) & (spread > 0)
+    if 1 <= k <= n and n * mu.shape[1] <= CHUNK_CELLS and ok.all():
+        return order_stats.direct(mu, parts, spread, k, sign)
     out = np.full(mu.shape[1], np.inf if upper else -np.inf)
-    fine = spread_ok & np.isfinite(mu).all(axis=0)
+    fine = ok & np.isfinite(mu).all(axis=0)
     pooled = np.sort(np.concatenate(parts))
-    S = pooled[k - 1] if upper else pooled[n - k]
-    slow = spread_ok & ~fine
-    if fine.any() and np.isfinite(S):
+    kk = k if upper else n - k + 1  # the rank in the negated problem
+    slow = ok & ~fine
+    if fine.any() and np.isfinite(pooled[kk - 1]):
         rows = np.flatnonzero(fine)
-        got, ok = _narrow_and_select(mu[:, rows], parts, spread[rows], k, upper, S)
-        out[rows[ok]] = got[ok]
-        slow[rows[~ok]] = True
+        out[rows] = sign * order_stats.kth_of_shifted(
+            sign * mu[:, rows], parts, spread[rows], kk, float(pooled[kk - 1])
+        )
     else:
         slow |= fine
     if slow.any():
-        finite = [p[np.isfinite(p)] for p in parts]
-        smax = max((p[-1] for p in finite if p.size), default=0.0)
-        m, q = mu[:, slow], spread[slow]
-        with np.errstate(invalid="ignore", over="ignore"):
-            lo = m.min(axis=0) - q * smax - 1.0
-            hi = m.max(axis=0) + q * smax + 1.0
-        out[slow] = _bisect(m, parts, q, k, upper, lo, hi)
+        out[slow] = order_stats.direct(mu[:, slow], parts, spread[slow], k, sign)
     return out
-
-
-def _count(mu: np.ndarray, parts: list[np.ndarray], q: np.ndarray, v: np.ndarray, upper: bool):
-    """For each query, how many candidates mu[f] -/+ q s are <= v."""
-    count = np.zeros(v.shape, dtype=np.int64)
-    for f, s in enumerate(parts):
-        checkpoint()  # one step of one fold: O(queries log n), 15 ms at 200,000 queries
-        with np.errstate(over="ignore", invalid="ignore"):
-            if upper:  # mu + q s <= v  <=>  s <= (v - mu) / q
-                count += np.searchsorted(s, (v - mu[f]) / q, side="right")
-            else:  # mu - q s <= v  <=>  s >= (mu - v) / q
-                count += s.size - np.searchsorted(s, (mu[f] - v) / q, side="left")
-    return count
-
-
-def _bisect(mu, parts, q, k: int, upper: bool, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
-    """The smallest value with at least k candidates at or below it, by bisection from
-    [lo, hi] to full precision (at most 200 steps)."""
-    for _ in range(200):
-        with np.errstate(invalid="ignore", over="ignore"):
-            mid = 0.5 * (lo + hi)
-        enough = _count(mu, parts, q, mid, upper) >= k
-        stuck = (mid <= lo) | (mid >= hi)
-        hi = np.where(enough, mid, hi)
-        lo = np.where(enough, lo, mid)
-        if stuck.all():
-            break
-    return hi
-
-
-def _narrow_and_select(mu, parts, q, k: int, upper: bool, S: float):
-    """The k-th smallest candidate of each query from the bracket around mu -/+ q S (see
-    :func:`_kth_of_folds`); ``ok`` is False where rounding broke the bracket."""
-    sign = 1.0 if upper else -1.0
-    base = mu + sign * q * S
-    # a few units in the last place wider: the counts divide by q, which rounds
-    tol = 8 * np.spacing(np.abs(base).max(axis=0) + q * abs(S))
-    lo = base.min(axis=0) - tol
-    hi = base.max(axis=0) + tol
-    c_lo, c_hi = _count(mu, parts, q, lo, upper), _count(mu, parts, q, hi, upper)
-    ok = (c_lo < k) & (c_hi >= k)
-    todo = np.flatnonzero(ok & (c_hi - c_lo > SELECT_AT))
-    while todo.size:
-        mid = 0.5 * (lo[todo] + hi[todo])
-        stuck = (mid <= lo[todo]) | (mid >= hi[todo])  # adjacent floats: the answer is hi
-        c = _count(mu[:, todo], parts, q[todo], mid, upper)
-        enough = c >= k
-        hi[todo] = np.where(enough, mid, hi[todo])
-        c_hi[todo] = np.where(enough, c, c_hi[todo])
-        lo[todo] = np.where(enough, lo[todo], mid)
-        c_lo[todo] = np.where(enough, c_lo[todo], c)
-        todo = todo[~stuck & (c_hi[todo] - c_lo[todo] > SELECT_AT)]
-    out = hi.copy()
-    pick = np.flatnonzero(ok & (c_hi - c_lo <= SELECT_AT))
-    step = max(1, CHUNK_CELLS // SELECT_AT)  # a block's table of candidates: 16 MB
-    for start in range(0, pick.size, step):
-        checkpoint()
-        at = pick[start : start + step]
-        out[at] = _select(mu[:, at], parts, q[at], lo[at], hi[at], k - c_lo[at], upper)
-    return out, ok
-
-
-def _select(mu, parts, q, lo, hi, kth: np.ndarray, upper: bool) -> np.ndarray:
-    """For each query, the kth-smallest (1-based) of its candidates counted in (lo, hi] (at
-    most SELECT_AT of them): placed in a row of a (queries, SELECT_AT) table, then sorted."""
-    sign = 1.0 if upper else -1.0
-    m = mu.shape[1]
-    table = np.full((m, SELECT_AT), np.inf)
-    filled = np.zeros(m, dtype=np.intp)
-    for f, s in enumerate(parts):
-        with np.errstate(over="ignore", invalid="ignore"):
-            if upper:
-                a = np.searchsorted(s, (lo - mu[f]) / q, side="right")
-                b = np.searchsorted(s, (hi - mu[f]) / q, side="right")
-            else:
-                a = np.searchsorted(s, (mu[f] - hi) / q, side="left")
-                b = np.searchsorted(s, (mu[f] - lo) / q, side="left")
-        size = b - a
-        who = np.repeat(np.arange(m), size)
-        within = np.arange(who.size) - np.repeat(np.cumsum(size) - size, size)
-        table[who, filled[who] + within] = mu[f][who] + sign * q[who] * s[a[who] + within]
-        filled += size
-    table.sort(axis=1)
-    return table[np.arange(m), kth - 1]
 
 
 def cv_plus(
@@ -236,12 +132,21 @@ def jackknife_plus(
     level: float,
     spread_q: np.ndarray | None = None,
     spread_train: np.ndarray | None = None,
+    changes: tuple[np.ndarray, Callable] | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Jackknife+ interval at each query.
 
     ``mu_loo(rows)`` returns, for the query rows ``rows``, the leave-one-out predictions
     mu_{-i}(x0) for every training row i: an array (len(rows), n). Queries are processed in
     blocks of about CHUNK_CELLS elements.
+
+    ``changes`` (a local method's, such as kNN's ``loo_changes``): the fit's predictions at
+    the queries and, for a block of rows, groups ``(rows, ind, value)`` of the few
+    leave-one-out predictions that differ from it; every other mu_{-i}(x0) is the fit's. Then
+    each end is the k-th smallest of n candidates of which all but a window are the fit's
+    prediction plus a score in sorted order: :func:`order_stats.kth_with_changes`,
+    O(queries x window log window) after one sort. Rows it cannot certify, and rows without a
+    finite positive spread, take the dense route.
     """
     n = resid.size
     s = _scores(resid, spread_train)
@@ -249,10 +154,47 @@ def jackknife_plus(
     k_lo, k_hi = ranks(n, level)
     lower = np.full(m, -np.inf)
     upper = np.full(m, np.inf)
+    dense = np.ones(m, dtype=bool)
+    if changes is not None and n > 0:
+        base, groups = changes
+        order = np.argsort(s, kind="stable")
+        ranked = s[order]
+        rank_of = np.empty(n, dtype=np.intp)
+        rank_of[order] = np.arange(n)
+        good = np.flatnonzero(np.isfinite(q) & (q > 0))
+        step = max(1, CHUNK_CELLS // 64)
+        for start in range(0, good.size, step):
+            checkpoint()
+            block = good[start : start + step]
+            for sub, ind, value in groups(block):
+                rows = block[sub]
+                done = np.ones(rows.size, dtype=bool)
+                qr, b = q[rows], base[rows]
+                with np.errstate(invalid="ignore", over="ignore"):
+                    # the upper end: candidates mu + q s (NaN: +inf); the lower end is the
+                    # upper end of the negated problem, rank n - k + 1
+                    hi_c = np.where(np.isnan(value), np.inf, value + qr[:, None] * s[ind])
+                    lo_c = np.where(np.isnan(value), np.inf, -value + qr[:, None] * s[ind])
+                    b_hi = np.where(np.isnan(b), np.inf, b)
+                    b_lo = np.where(np.isnan(b), np.inf, -b)
+                if k_hi <= n:
+                    got, sure = order_stats.kth_with_changes(
+                        b_hi, ranked, rank_of, qr, ind, hi_c, k_hi
+                    )
+                    upper[rows] = got
+                    done &= sure
+                if k_lo >= 1:
+                    got, sure = order_stats.kth_with_changes(
+                        b_lo, ranked, rank_of, qr, ind, lo_c, n - k_lo + 1
+                    )
+                    lower[rows] = -got
+                    done &= sure
+                dense[rows[done]] = False
+    todo = np.flatnonzero(dense)
     step = max(1, CHUNK_CELLS // max(n, 1))
-    for start in range(0, m, step):
+    for start in range(0, todo.size, step):
         checkpoint()
-        rows = np.arange(start, min(m, start + step))
+        rows = todo[start : start + step]
         mu = mu_loo(rows)
         width = q[rows, None] * s[None, :]
         with np.errstate(invalid="ignore"):

@@ -15,9 +15,10 @@ The query rows are grouped by their combination of levels of the categorical fea
 - a row holding a level the training rows do not hold gets none of these flags (the pipeline
   flags it ``unseen_level``).
 
-With categorical features only, the combination rule is all there is. The hull test's budget
-of :data:`nearwise.core.hull.MAX_LP_SOLVES` linear programs is shared out evenly among the
-groups; rows left undecided are flagged ``hull_not_tested``, never guessed.
+With categorical features only, the combination rule is all there is. The hull test's cost
+cap (``caps.hull_cost_s``) holds for the request: the groups spend it in turn, in the order of
+their level codes; rows left undecided when it is spent are flagged ``hull_not_tested``, never
+guessed.
 """
 
 from __future__ import annotations
@@ -30,12 +31,13 @@ from nearwise.core.categories import Categories
 from nearwise.core.data import Scaler
 from nearwise.core.neighbors import Nearest
 from nearwise.core.results import Notice
+from nearwise.core.spec import Caps
 
 CODES = locality.CODES
 
 
 def query_flags(
-    X: np.ndarray, Xq: np.ndarray, scale: str, cats: Categories
+    X: np.ndarray, Xq: np.ndarray, scale: str, cats: Categories, caps: Caps | None = None
 ) -> locality.QueryLocality:
     """The locality flags of the query rows ``Xq`` (level codes in the categorical columns)
     against the training rows ``X``, group by group (see the module notes).
@@ -57,7 +59,8 @@ def query_flags(
         train_id, query_id = ids[: X.shape[0]], ids[X.shape[0] :]
         scaler = Scaler.fit(X[:, num], scale) if num else None
         groups = np.unique(query_id)
-        share = max(1, hull.MAX_LP_SOLVES // max(1, groups.size))
+        caps = Caps() if caps is None else caps
+        left = caps.hull_cost_s
         for g in groups:
             checkpoint()
             q = seen[query_id == g]
@@ -75,7 +78,8 @@ def query_flags(
             nearest[q] = near.distances(Zq, 1)[:, 0]
             ratio[q] = locality._ratio(nearest[q], spacing)
             out_range = ((Xqg < Xg.min(axis=0)) | (Xqg > Xg.max(axis=0))).any(axis=1)
-            test = hull.hull_test(Z, Zq, np.flatnonzero(~out_range), max_lp_solves=share)
+            test = hull.hull_test(Z, Zq, np.flatnonzero(~out_range), max_cost_s=left)
+            left = None if left is None else max(0.0, left - test.cost_s)
             rows["outside_range"][q] = out_range
             rows["outside_hull"][q] = test.outside
             rows["far_from_data"][q] = ratio[q] > locality.far_threshold(len(num))
@@ -94,7 +98,7 @@ def query_flags(
             elif code == "far_from_data":
                 text = _far_message(count, len(num), spacings)
             else:
-                text = locality._message(code, count, len(num), 0.0) + _WITHIN
+                text = locality._message(code, count, len(num), 0.0, caps) + _WITHIN
             notices.append(Notice(code, text, tuple(int(i) for i in np.flatnonzero(rows[code]))))
     if skipped_dim:
         notices.append(Notice("hull_not_tested", locality._skipped_message(skipped_dim)))

@@ -9,7 +9,9 @@ by default), in those scaled units. Query flags, in this fixed order:
   dimensions, where nearly every new point is outside the hull).
 - ``far_from_data``: distance to the nearest training row over the typical spacing above
   :func:`far_threshold` (3 from two dimensions on; a rule of thumb).
-- ``hull_not_tested``: the hull test's cost cap was reached before this row was decided.
+- ``hull_not_tested``: the hull test's cost cap (``Caps.hull_cost_s``, a matter of the
+  request's size) was reached before this row was decided; or, as a notice without rows, the
+  training rows span more than :data:`nearwise.core.hull.HULL_MAX_DIM` dimensions.
 
 References
 ----------
@@ -135,7 +137,9 @@ def not_local_notice(k: int, n: int, p: int, threshold: float = NOT_LOCAL_EDGE) 
     )
 
 
-def query_flags(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> QueryLocality:
+def query_flags(
+    X: np.ndarray, Xq: np.ndarray, scale: str = "standard", caps: Caps | None = None
+) -> QueryLocality:
     """Flag query rows that lie where the training rows cannot support a prediction.
 
     Parameters
@@ -146,6 +150,8 @@ def query_flags(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> Query
         Query features, finite.
     scale : {"standard", "range", "none"}
         Feature scaling learned from ``X``; distances are Euclidean after it.
+    caps : Caps, optional
+        ``caps.hull_cost_s`` caps the hull test's linear programs (None: no cap).
 
     Returns
     -------
@@ -156,8 +162,8 @@ def query_flags(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> Query
     Cost: one nearest-row search per query row (:class:`nearwise.core.neighbors.Nearest`),
     the same for up to :data:`SPACING_SAMPLE` training rows, and the
     hull test of :func:`nearwise.core.hull.hull_test` for rows inside every range (facets
-    up to 3 dimensions; at most :data:`nearwise.core.hull.MAX_LP_SOLVES` linear programs
-    from 4 to 8; none above).
+    up to 3 dimensions; linear programs from 4 to 8, their work capped by
+    ``caps.hull_cost_s``; none above).
 
     References
     ----------
@@ -166,17 +172,24 @@ def query_flags(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> Query
     scaler = Scaler.fit(X, scale)
     Z = scaler.transform(X)
     near = Nearest(Z)
-    return _locality(X, Xq, Z, scaler.transform(Xq), near, typical_spacing(Z, near))
+    return _locality(X, Xq, Z, scaler.transform(Xq), near, typical_spacing(Z, near), caps)
 
 
 def _locality(
-    X: np.ndarray, Xq: np.ndarray, Z: np.ndarray, Zq: np.ndarray, near: Nearest, spacing: float
+    X: np.ndarray,
+    Xq: np.ndarray,
+    Z: np.ndarray,
+    Zq: np.ndarray,
+    near: Nearest,
+    spacing: float,
+    caps: Caps | None = None,
 ) -> QueryLocality:
     m, p = Xq.shape
     nearest = near.distances(Zq, 1)[:, 0]
     ratio = _ratio(nearest, spacing)
     out_range = ((Xq < X.min(axis=0)) | (Xq > X.max(axis=0))).any(axis=1)
-    test = hull.hull_test(Z, Zq, np.flatnonzero(~out_range))
+    caps = Caps() if caps is None else caps
+    test = hull.hull_test(Z, Zq, np.flatnonzero(~out_range), max_cost_s=caps.hull_cost_s)
     rows = {
         "outside_range": out_range,
         "outside_hull": test.outside,
@@ -185,7 +198,7 @@ def _locality(
     }
     flags = tuple(tuple(c for c in CODES if rows[c][i]) for i in range(m))
     notices = [
-        Notice(code, _message(code, int(rows[code].sum()), p, spacing), _rows(rows[code]))
+        Notice(code, _message(code, int(rows[code].sum()), p, spacing, caps), _rows(rows[code]))
         for code in CODES
         if rows[code].any()
     ]
@@ -204,7 +217,7 @@ def _rows(mask: np.ndarray) -> tuple[int, ...]:
     return tuple(int(i) for i in np.flatnonzero(mask))
 
 
-def _message(code: str, count: int, p: int, spacing: float) -> str:
+def _message(code: str, count: int, p: int, spacing: float, caps: Caps | None = None) -> str:
     if code == "outside_range":
         return (
             f"{count} query row(s) have a feature beyond its training minimum-maximum: the "
@@ -225,10 +238,12 @@ def _message(code: str, count: int, p: int, spacing: float) -> str:
             f"row to its nearest distinct row, {spacing:.3g} in scaled units; the threshold "
             "is a rule of thumb). Few training rows support the prediction there."
         )
+    cap = (caps or Caps(hull_cost_s=0.0)).label("hull_cost_s")
     return (
-        f"The convex-hull test was not run for {count} query row(s): its cost cap of "
-        f"{hull.MAX_LP_SOLVES} linear programs per request was reached first. The other "
-        "flags still apply to them."
+        f"The convex-hull test did not reach {count} query row(s): the request's hull work "
+        f"reached the service's cost cap ({cap} s) first. The cap is about the size of this "
+        "request (training rows x query rows), not about these rows; send fewer query rows "
+        "to test them all. The other flags still apply to them."
     )
 
 
@@ -366,7 +381,12 @@ def _summary(X, names, k, fraction, Xq, scale, caps) -> dict[str, Any]:
     if caps is not None and caps.cost_s is not None:
         none = np.zeros((0, p))
         measured = locality_cost.probe(
-            X, Z, near, none if Xq is None else Xq, none if Zq is None else Zq
+            X,
+            Z,
+            near,
+            none if Xq is None else Xq,
+            none if Zq is None else Zq,
+            caps.hull_cost_s,
         )
         locality_cost.check(measured, caps)
     spacing = typical_spacing(Z, near)
@@ -376,7 +396,7 @@ def _summary(X, names, k, fraction, Xq, scale, caps) -> dict[str, Any]:
         notices.append(not_local_notice(asked, n, p))
     query: list[dict[str, Any]] = []
     if Xq is not None:
-        loc = _locality(X, Xq, Z, Zq, near, spacing)
+        loc = _locality(X, Xq, Z, Zq, near, spacing, caps)
         query = [
             {"nearest": float(d), "ratio": float(r), "flags": list(f)}
             for d, r, f in zip(loc.nearest, loc.ratio, loc.flags, strict=True)

@@ -14,7 +14,12 @@ twice as many as rows. So the estimate measures both, cheaply:
   vertices of the hulls of two samples (:data:`HULL_SAMPLES` rows) give the growth exponent
   of the vertex count, V(n) = V(s2) (n / s2)^beta with beta in [0, 1] (1 on a sphere, where
   every row is a vertex; near 0 in a cube), and facets = V (two dimensions) or 2V - 4 (three,
-  triangulated).
+  triangulated). From four to eight dimensions the linear programs of
+  :mod:`nearwise.core.hull_simplex` cost, per query row inside the ranges, one solve per round
+  and one pricing pass over the training rows per round after the first; the rounds grow
+  with the dimension (:data:`LP_ROUNDS`, measured on rows in a cube, a ball and on a sphere).
+  Their work is counted as it runs and capped (``Caps.hull_cost_s``), so the estimate is at
+  most the cap.
 
 Each count is then priced in seconds per operation measured on the reference machine (one
 core, one BLAS thread) by ``tests/benchmarks/calibrate_cost.py``, which prints the ratio of
@@ -29,7 +34,7 @@ from math import log2
 import numpy as np
 from scipy.spatial import ConvexHull, QhullError
 
-from nearwise.core import hull
+from nearwise.core import hull, hull_simplex
 from nearwise.core.data import Scaler
 from nearwise.core.errors import OverLimit, Where
 from nearwise.core.neighbors import KD_MAX_DIM, Nearest, sample_rows
@@ -67,11 +72,12 @@ QHULL_ROW_S = 0.3e-6
 QHULL_VERTEX_S = {2: 3e-6, 3: 7.5e-6}
 FACET_ROW_S = 1.5e-6
 FACET_S = 1.7e-9
-#: The linear-program route (4 to 8 dimensions): per program (hull.MAX_LP_SOLVES at most) and
-#: per program and training row and dimension (pricing), and per query or training row,
-#: direction and dimension (the 128 extremes).
-LP_SOLVE_S = 0.6e-3
-LP_PRICE_S = 1e-9
+#: The linear-program route (4 to 8 dimensions): pricing passes per query row, per dimension
+#: above 3 (measured, 1,000 query rows, 2,000 to 100,000 training rows: 0.01 to 0.7 at four
+#: dimensions, 0.4 to 3.4 at eight; the seconds per solve and per priced row are
+#: hull_simplex.SOLVE_S and PRICE_S); and per query or training row, direction and dimension
+#: (the 128 extremes).
+LP_ROUNDS = 0.5
 DIRECTION_S = 1e-9
 
 
@@ -82,7 +88,7 @@ class Probe:
     ``inside`` counts the query rows inside every training range (those the hull test
     decides); ``search`` and ``search_train`` are the distances computed per query row and per
     training row; ``dim`` is the training rows' affine dimension and ``facets`` the estimated
-    facet count (0 off the facet route).
+    facet count (0 off the facet route); ``hull_cap_s`` the cap on the linear programs' work.
     """
 
     n: int
@@ -93,6 +99,7 @@ class Probe:
     search_train: float
     dim: int
     facets: float
+    hull_cap_s: float | None = None
 
     def seconds(self, summary: bool = False) -> float:
         """Estimated seconds on one core; ``summary`` adds the data-set part of
@@ -118,7 +125,11 @@ class Probe:
             vertices = self.facets if d == 2 else (self.facets + 4) / 2
             build = n * QHULL_ROW_S + vertices * QHULL_VERTEX_S[d]
             return flat + build + self.inside * (FACET_ROW_S + self.facets * FACET_S)
-        lp = hull.MAX_LP_SOLVES * (LP_SOLVE_S + n * d * LP_PRICE_S)
+        r, rounds = d + 1, LP_ROUNDS * (d - hull.FACET_MAX_DIM)
+        per_row = r * (hull_simplex.SOLVE_S * (1 + rounds) + hull_simplex.PRICE_S * n * rounds)
+        lp = self.inside * per_row
+        if self.hull_cap_s is not None:
+            lp = min(lp, self.hull_cap_s)
         directions = (n + self.m) * hull.N_DIRECTIONS * d * DIRECTION_S
         return flat + lp + directions
 
@@ -134,9 +145,16 @@ def _search(rows: int, work: float, n: int, p: int) -> float:
     return rows * (SEARCH_ROW_S + work * (SEARCH_CALL_S + p * SEARCH_CALL_P_S))
 
 
-def probe(X: np.ndarray, Z: np.ndarray, near: Nearest, Xq: np.ndarray, Zq: np.ndarray) -> Probe:
+def probe(
+    X: np.ndarray,
+    Z: np.ndarray,
+    near: Nearest,
+    Xq: np.ndarray,
+    Zq: np.ndarray,
+    hull_cost_s: float | None = None,
+) -> Probe:
     """Measure a locality computation: ``X``/``Xq`` raw training and query rows, ``Z``/``Zq``
-    the same scaled, ``near`` the search over ``Z``."""
+    the same scaled, ``near`` the search over ``Z``, ``hull_cost_s`` the hull test's cap."""
     n, p = Z.shape
     m = Zq.shape[0]
     inside = int(np.count_nonzero(~((Xq < X.min(axis=0)) | (Xq > X.max(axis=0))).any(axis=1)))
@@ -145,14 +163,16 @@ def probe(X: np.ndarray, Z: np.ndarray, near: Nearest, Xq: np.ndarray, Zq: np.nd
     dim, facets = 0, 0.0
     if inside and p <= hull.HULL_MAX_DIM:
         dim, facets = _facets(Z)
-    return Probe(n, p, m, inside, search, search_train, dim, facets)
+    return Probe(n, p, m, inside, search, search_train, dim, facets, hull_cost_s)
 
 
-def measure(X: np.ndarray, Xq: np.ndarray, scale: str = "standard") -> Probe:
+def measure(
+    X: np.ndarray, Xq: np.ndarray, scale: str = "standard", hull_cost_s: float | None = None
+) -> Probe:
     """:func:`probe` for the query flags of a predict: training rows ``X``, query rows ``Xq``."""
     scaler = Scaler.fit(X, scale)
     Z = scaler.transform(X)
-    return probe(X, Z, Nearest(Z), Xq, scaler.transform(Xq))
+    return probe(X, Z, Nearest(Z), Xq, scaler.transform(Xq), hull_cost_s)
 
 
 def _facets(Z: np.ndarray) -> tuple[int, float]:

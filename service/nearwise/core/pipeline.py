@@ -206,7 +206,9 @@ def shape(ctx: Context) -> cost.Shape:
     if q and num and ctx.job.caps.cost_s is not None:  # measured on the data (locality_cost)
         with ctx.deadline.scope():
             # Within level combinations the flags search subsets: all rows bound the work.
-            measured = locality_cost.measure(ctx.X[:, num], ctx.data.X_query[:, num])
+            measured = locality_cost.measure(
+                ctx.X[:, num], ctx.data.X_query[:, num], hull_cost_s=ctx.job.caps.hull_cost_s
+            )
         s = replace(s, locality=measured.seconds())
     return s
 
@@ -339,9 +341,10 @@ def _answer(ctx: Context, t: Tuned) -> PredictResult:
     if at_query:
         scale = settings.get("scale") or "standard"
         if cats is None:
-            notices.extend(locality.query_flags(X, where, scale).notices)
+            notices.extend(locality.query_flags(X, where, scale, job.caps).notices)
         else:
-            notices.extend(level_locality.query_flags(X, data.X_query, scale, cats).notices)
+            flags = level_locality.query_flags(X, data.X_query, scale, cats, job.caps)
+            notices.extend(flags.notices)
     notices.extend(serial.notice(dep, job.tuning))
     cv_residual = None
     if not at_query:

@@ -58,6 +58,9 @@ class Caps:
     methods: int | None = None  # methods in one compare (or auto)
     cost_s: float | None = None  # estimated seconds of fitting on one core
     cells: int | None = None  # rows x columns of a design with categorical columns coded
+    # estimated seconds of the hull test's linear programs (4 to 8 dimensions), counted from
+    # the data as they run; rows not decided within it are flagged hull_not_tested
+    hull_cost_s: float | None = None
     names: Mapping[str, str] = field(default_factory=dict)
 
     def label(self, limit: str) -> str:

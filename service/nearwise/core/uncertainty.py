@@ -176,7 +176,8 @@ def _bars(
             if w0 is not None:
                 spread_q = (1.0 if spread_q is None else spread_q) / np.sqrt(w0)
         if folds.keep_models:
-            mu = fold_predictions(path.fold_models, Xq, chosen, X.shape[0])
+            own = own_fold(X, Xq, folds.fold_id[0], path.oof[chosen, 0])
+            mu = fold_predictions(path.fold_models, Xq, chosen, X.shape[0], own)
             lower, upper = intervals.cv_plus(
                 mu, folds.fold_id[0], resid, spec.level, spread_q, spread_train
             )
@@ -187,6 +188,8 @@ def _bars(
             report["construction"] = "jackknife"
             report["guarantee"] = GUARANTEE["window"]
         else:
+            # a local method's leave-one-out predictions differ from its fit at few rows
+            sparse = getattr(model, "loo_changes", None)
             lower, upper = intervals.jackknife_plus(
                 model.loo_predictions(Xq),
                 Xq.shape[0],
@@ -194,22 +197,56 @@ def _bars(
                 spec.level,
                 spread_q,
                 spread_train,
+                changes=None if sparse is None else sparse(Xq),
             )
             report["construction"] = "jackknife_plus"
             report["guarantee"] = GUARANTEE["loo"]
     return std_error, lower, upper, report
 
 
-def fold_predictions(models, Xq: np.ndarray, chosen: int, n: int) -> np.ndarray:
+def own_fold(
+    X: np.ndarray, Xq: np.ndarray, fold: np.ndarray, oof: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """For each row of ``Xq`` that repeats a training row's features: that row's fold and its
+    out-of-fold prediction, which is that fold model's prediction there (fold -1 elsewhere).
+    Answers at every training row so need K - 1 fold predictions per row, not K."""
+    m = Xq.shape[0]
+    at, value = np.full(m, -1), np.zeros(m)
+    if m == 0 or X.shape[0] == 0:
+        return at, value
+    _, first, inverse = np.unique(
+        np.concatenate([Xq, X]), axis=0, return_index=True, return_inverse=True
+    )
+    inverse = inverse.reshape(-1)
+    # the first training row of each group of like rows, if any
+    row_of = np.full(first.size, -1)
+    train_group = inverse[m:]
+    row_of[train_group[::-1]] = np.arange(X.shape[0])[::-1]
+    mine = row_of[inverse[:m]]
+    found = mine >= 0
+    at[found] = fold[mine[found]]
+    value[found] = oof[mine[found]]
+    return at, value
+
+
+def fold_predictions(
+    models, Xq: np.ndarray, chosen: int, n: int, own: tuple[np.ndarray, np.ndarray] | None = None
+) -> np.ndarray:
     """Each fold model's prediction of candidate ``chosen`` at ``Xq``, shape (folds, m).
 
     In blocks of query rows, the budget checked before each fold's share of a block, so that
     no single call runs long or holds a large temporary (a thin-plate fold model forms a
-    rows x training rows kernel block).
+    rows x training rows kernel block). ``own`` (from :func:`own_fold`): rows whose fold
+    model's prediction is already known, taken as they are.
     """
-    mu = np.empty((len(models), Xq.shape[0]))
-    for at in blocks(Xq.shape[0], most=max(1024, intervals.CHUNK_CELLS // max(n, 1))):
-        for f, fm in enumerate(models):
+    m = Xq.shape[0]
+    mu = np.empty((len(models), m))
+    fold_of = np.full(m, -1) if own is None else own[0]
+    for f, fm in enumerate(models):
+        rows = np.flatnonzero(fold_of != f)
+        for at in blocks(rows.size, most=max(1024, intervals.CHUNK_CELLS // max(n, 1))):
             checkpoint()
-            mu[f, at] = fm.predict(Xq[at], chosen)
+            mu[f, rows[at]] = fm.predict(Xq[rows[at]], chosen)
+        if own is not None:
+            mu[f, fold_of == f] = own[1][fold_of == f]
     return mu

@@ -48,6 +48,10 @@ class Settings:
     max_methods: int = 4
     #: The largest estimated fitting time accepted before any fitting starts (seconds on one core).
     max_cost_s: float = 20.0
+    #: Estimated seconds of the convex-hull test's linear programs (4 to 8 features) in one
+    #: request, counted from the data as they run; query rows not decided within it are
+    #: flagged hull_not_tested. A cap on the request's size, not a verdict on those rows.
+    max_hull_cost_s: float = 5.0
     time_budget_s: float = 30.0
     #: Seconds gunicorn lets in-flight requests finish after SIGTERM.
     graceful_timeout_s: int = 35
@@ -212,6 +216,7 @@ _READERS: dict[str, Callable[[str, str], Any]] = {
     "max_fold_fits": _positive_int,
     "max_methods": _positive_int,
     "max_cost_s": _positive_float,
+    "max_hull_cost_s": _positive_float,
     "time_budget_s": _positive_float,
     "graceful_timeout_s": _positive_int,
     "header_timeout_s": _positive_float,

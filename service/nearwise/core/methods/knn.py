@@ -28,12 +28,12 @@ from nearwise.core.budget import blocks
 from nearwise.core.data import SCALES, Scaler
 from nearwise.core.errors import InvalidValue, NotApplicable, Where
 from nearwise.core.locality import not_local_notice
+from nearwise.core.methods import knn_grid
 from nearwise.core.methods.base import Method, Param, PathResult, row_weights
 from nearwise.core.methods.coding import categories_of, knn_scaler
 from nearwise.core.results import Notice
 from nearwise.core.tuning import Folds
 
-MAX_DEFAULT_K = 50
 MIXED_DISTANCE = (
     "squared distance = sum of squared differences of the scaled numeric features + "
     "mismatch^2 per categorical feature whose levels differ (Gower 1971, squared Euclidean "
@@ -412,6 +412,11 @@ class FittedKNN:
 
         return block
 
+    def loo_changes(self, Xq: np.ndarray):
+        from nearwise.core.methods import knn_loo  # jackknife+ from the few changed rows
+
+        return knn_loo.changes(self, Xq)
+
     def summary(self, names: tuple[str, ...]) -> dict[str, Any]:
         n = self.y.shape[0]
         out = {
@@ -439,7 +444,7 @@ class KNN(Method):
     max_features = None
     schemes = ("kfold", "loo", "window", "blocks")
     tuned = "k"
-    default_grid = "k = 1, 2, ..., min(50, rows in the smallest training fold - 1)"
+    default_grid = knn_grid.DOC
     params = (
         Param(
             "k",
@@ -531,7 +536,7 @@ class KNN(Method):
             return [settings["k"]]
         if grid is not None:
             return self.order(grid)
-        return self.order(range(1, min(MAX_DEFAULT_K, self.max_k(folds)) + 1))
+        return self.order(knn_grid.values(folds.min_train, X.shape[1]))
 
     def path(self, X, y, folds, settings, values, work=None):
         kmax = max(values)

@@ -62,7 +62,7 @@ def _answer(answer: str, job: Job, intake: Intake) -> Response:
 
 def caps(settings: Settings) -> Caps:
     """The work limits the core checks before fitting, named by their variables."""
-    limits = ("grid", "fold_fits", "methods", "cost_s", "cells")  # Settings.max_<limit>
+    limits = ("grid", "fold_fits", "methods", "cost_s", "cells", "hull_cost_s")  # max_<limit>
     return Caps(
         **{k: getattr(settings, f"max_{k}") for k in limits},
         names={k: f"NEARWISE_MAX_{k.upper()}" for k in limits},
