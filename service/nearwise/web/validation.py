@@ -7,6 +7,7 @@ from typing import Any
 from marshmallow import Schema, ValidationError, fields
 
 from nearwise.core.errors import InvalidValue, Where, shown
+from nearwise.web.field_hints import hint
 
 
 def load(schema: Schema, doc: Any) -> dict[str, Any]:
@@ -14,7 +15,7 @@ def load(schema: Schema, doc: Any) -> dict[str, Any]:
     try:
         return schema.load(doc)
     except ValidationError as exc:
-        where = list(_flatten(exc.messages, schema, ()))
+        where = [_hinted(w, schema, doc) for w in _flatten(exc.messages, schema, ())]
         first = where[0]
         at = ".".join(shown(p) for p in first.path) or "the top level"
         raise InvalidValue(
@@ -49,7 +50,19 @@ def _flatten(messages: Any, node: Schema | fields.Field | None, path: tuple) -> 
             yield from _flatten(sub, None, (*path, key))
 
 
+def _hinted(where: Where, schema: Schema, doc: Any) -> Where:
+    """An unknown field's entry, with where a field of that name belongs when one does."""
+    if where.message != UNKNOWN:
+        return where
+    more = hint(schema, tuple(where.path), doc)
+    return Where(where.path, f"unknown field; {more}" if more else where.message)
+
+
+#: The message for an unknown field without a hint.
+UNKNOWN = "unknown field; see the OpenAPI document for the fields offered"
+
+
 def _plain(message: str) -> str:
     if message == "Unknown field.":
-        return "unknown field; see the OpenAPI document for the fields offered"
+        return UNKNOWN
     return message
