@@ -21,6 +21,7 @@ from webhelpers import body, curve, post_without_length, problem
 from werkzeug.test import TestResponse
 
 from nearwise.web.app import create_app
+from nearwise.web.problem_types import TYPES
 from nearwise.web.settings import Settings
 
 Send = Callable[[FlaskClient], TestResponse]
@@ -615,6 +616,9 @@ def test_bad_input_names_its_place(client: FlaskClient, name: str) -> None:
     assert resp.status_code != 500, resp.get_data(as_text=True)
     doc = problem(resp, case.status)
     assert doc["detail"] and doc["title"] and doc["type"]
+    # One title per problem type, and a page at its URI (tests/web/test_problem_pages.py).
+    assert doc["type"] == f"/problems/{doc['code']}" and doc["code"] in TYPES, doc
+    assert doc["title"] == TYPES[doc["code"]].title, doc
     if case.entry:
         assert any(entry_matches(e, case.entry) for e in doc["errors"]), doc
     for phrase in case.detail:

@@ -54,6 +54,7 @@ def test_paths_summaries_and_problem_responses() -> None:
         "/openapi.json",
         "/",
         "/docs",
+        "/problems/{code}",
     }
     predict = doc["paths"]["/v1/predict"]["post"]
     assert predict["summary"].startswith("Fit one method")

@@ -37,9 +37,10 @@ def create_app(settings: Settings | None = None, fit_pool: Path | None = None) -
     for bp in (m.bp for m in blueprints):
         app.register_blueprint(bp)
     app.add_url_rule("/openapi.json", "openapi", _openapi_view(app))
-    from nearwise.web.routes import docs  # / and /docs, open without an API key
+    from nearwise.web.routes import docs, problem_pages  # pages, open without an API key
 
     app.register_blueprint(docs.bp)
+    app.register_blueprint(problem_pages.bp)
     return app
 
 

@@ -21,6 +21,8 @@ from http import HTTPStatus
 
 from gunicorn.http.body import CHUNK_EXT_RE
 
+from nearwise.web.problem_types import title_of
+
 #: The largest request head (request line and header fields) read before answering 431. Far
 #: above what any client of this API sends (a few hundred bytes; API keys and cookies fit).
 HEAD_CAP = 64 * 1024
@@ -224,11 +226,11 @@ def raw_problem(
     The body has the members of every answer of ``nearwise.web.problems``; ``detail`` must not
     hold anything the client sent beyond a checked header name.
     """
-    title = HTTPStatus(status).phrase
+    phrase = HTTPStatus(status).phrase
     request_id = uuid.uuid4().hex
     doc = {
         "type": f"/problems/{code}",
-        "title": title,
+        "title": title_of(code, status),
         "status": status,
         "detail": detail,
         "code": code,
@@ -236,7 +238,7 @@ def raw_problem(
     }
     body = json.dumps(doc, separators=(",", ":")).encode()
     lines = [
-        f"HTTP/1.1 {status} {title}",
+        f"HTTP/1.1 {status} {phrase}",
         "Content-Type: application/problem+json",
         f"Content-Length: {len(body)}",
         "Connection: close",

@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import inspect
 import json
+import re
 from typing import Any
 
 from apispec import APISpec
@@ -74,7 +75,7 @@ def build(app: Flask) -> dict[str, Any]:
             for m in sorted(rule.methods or ())
             if m.lower() in _METHODS
         }
-        spec.path(path=rule.rule, operations=ops)
+        spec.path(path=_templated(rule.rule), operations=ops)
     return spec.to_dict()
 
 
@@ -90,6 +91,11 @@ def _operation(view: Any, path: str) -> dict[str, Any]:
     if path.startswith("/v1/") or path in OPEN_ENDPOINT_CHOICES:
         op["security"] = [{}, {SCHEME: []}]  # no key needed while NEARWISE_API_KEYS is unset
     return openapi_parts.compression(op)
+
+
+def _templated(rule: str) -> str:
+    """A Flask rule's path in OpenAPI's form: ``/problems/<code>`` -> ``/problems/{code}``."""
+    return re.sub(r"<(?:[^:<>]+:)?([^:<>]+)>", r"{\1}", rule)
 
 
 def _name(schema: Any) -> str:

@@ -14,6 +14,7 @@ PROBLEM_WHEN = {
     "that is not what its `Content-Encoding` (gzip or deflate) says.",
     401: "An API key is required (NEARWISE_API_KEYS is set) and none or a wrong one was sent: "
     "send `Authorization: Bearer <key>`.",
+    404: "Nothing at this path: for `/problems/{code}`, no problem type has this code.",
     406: "The Accept header allows none of the media types this endpoint answers.",
     413: "The body is over NEARWISE_MAX_BODY_BYTES (also when sent chunked, and for a "
     "compressed body its decompressed size), or a table is "

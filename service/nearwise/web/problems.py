@@ -25,6 +25,7 @@ from werkzeug.exceptions import HTTPException
 from nearwise.core.errors import NearwiseError, OverBudget, Where, shown
 from nearwise.web.jsonio import dumps
 from nearwise.web.metrics import note_problem
+from nearwise.web.problem_types import title_of
 
 PROBLEM_JSON = "application/problem+json"
 #: Seconds a client is asked to wait after a 503.
@@ -60,7 +61,6 @@ class Problem(Exception):
     detail: str
     where: Sequence[Where | dict[str, Any]] = ()
     code: str = ""
-    title: str = ""
     headers: Mapping[str, str] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
@@ -118,16 +118,16 @@ def error_entry(
 
 def problem_response(
     status: int,
-    title: str,
     detail: str,
     code: str,
     errors: Sequence[dict[str, Any]] = (),
     headers: Mapping[str, str] | None = None,
 ) -> Response:
-    """Build the ``application/problem+json`` response (its texts bounded, see above)."""
+    """Build the ``application/problem+json`` response (its texts bounded, see above); the
+    title is the code's one title (:mod:`nearwise.web.problem_types`)."""
     body = {
         "type": f"/problems/{code}",
-        "title": title,
+        "title": title_of(code, status),
         "status": status,
         "detail": shown(detail, limit=DETAIL_CHARS),
         "code": code,
@@ -158,24 +158,22 @@ def handle(exc: Exception) -> Response:
             w if isinstance(w, dict) else error_entry(w, _csv_parts(), _json_tables())
             for w in exc.where
         ]
-        title = exc.title or _phrase(exc.status)
-        code = exc.code or HTTP_CODES.get(exc.status, "error")
-        return problem_response(exc.status, title, exc.detail, code, errors, exc.headers)
+        code = exc.code or HTTP_CODES.get(exc.status, "http_error")
+        return problem_response(exc.status, exc.detail, code, errors, exc.headers)
     if isinstance(exc, NearwiseError):
         errors = [error_entry(w, _csv_parts(), _json_tables()) for w in exc.where]
         if isinstance(exc, OverBudget):
             headers = {"Retry-After": str(RETRY_AFTER_S)}
-            return problem_response(503, exc.title, exc.detail, exc.code, errors, headers)
-        return problem_response(422, exc.title, exc.detail, exc.code, errors)
+            return problem_response(503, exc.detail, exc.code, errors, headers)
+        return problem_response(422, exc.detail, exc.code, errors)
     if isinstance(exc, HTTPException) and exc.code is not None and exc.code < 500:
         headers = {k: v for k, v in exc.get_headers() if k.lower() not in ("content-type",)}
         code = HTTP_CODES.get(exc.code, "http_error")
-        return problem_response(exc.code, _phrase(exc.code), _http_detail(exc), code, (), headers)
+        return problem_response(exc.code, _http_detail(exc), code, (), headers)
     if isinstance(exc, MemoryError):  # the worker's address-space guard (worker.py)
         log.warning("a request ran out of memory (NEARWISE_WORKER_MEMORY_MB)")
         return problem_response(
             503,
-            _phrase(503),
             "The request needed more memory than a worker may use; send fewer rows or query "
             "rows, or try again later.",
             "out_of_memory",
@@ -184,19 +182,9 @@ def handle(exc: Exception) -> Response:
     log.error("unexpected error while answering a request", exc_info=exc)
     return problem_response(
         500,
-        _phrase(500),
         "The service failed unexpectedly; the error has been logged. Please report it.",
         "internal_error",
     )
-
-
-def _phrase(status: int) -> str:
-    from http import HTTPStatus
-
-    try:
-        return HTTPStatus(status).phrase
-    except ValueError:
-        return "Error"
 
 
 def _http_detail(exc: HTTPException) -> str:
@@ -206,7 +194,9 @@ def _http_detail(exc: HTTPException) -> str:
             return f"This endpoint accepts {', '.join(sorted(allowed))} only."
     if exc.code == 404:
         return "No endpoint at this path; see /openapi.json for the ones offered."
-    return str(exc.description or _phrase(exc.code or 500))
+    return str(
+        exc.description or title_of(HTTP_CODES.get(exc.code or 500, "http_error"), exc.code or 500)
+    )
 
 
 def relative_location(resp: Response) -> Response:

@@ -124,7 +124,6 @@ def fit_slot() -> Iterator[None]:
             f"NEARWISE_WORKERS x NEARWISE_FITS_PER_WORKER, at most {slots.worker_cap} per "
             "worker); nothing was computed. Try again shortly.",
             code="busy",
-            title="Busy",
             headers={"Retry-After": str(BUSY_RETRY_AFTER_S)},
         )
     try:

@@ -448,7 +448,7 @@ def _cell_problem(exc: NearwiseError, train: tuple[str, ...] | None = None) -> P
     over = isinstance(exc, OverBudget)
     headers = {"Retry-After": str(RETRY_AFTER_S)} if over else {}
     status = 503 if over else 422
-    return Problem(status, detail, entries, code=exc.code, title=exc.title, headers=headers)
+    return Problem(status, detail, entries, code=exc.code, headers=headers)
 
 
 def _bad(detail: str, name: str, message: str) -> Problem:
