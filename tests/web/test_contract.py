@@ -33,6 +33,10 @@ def test_predict_contract(client, method: str) -> None:
     assert again.get_data() == first.get_data()  # deterministic to the byte
 
     doc = first.get_json()
+    # the members in the order written: what was fit and the predictions before the detail
+    order = list(json.loads(first.get_data(as_text=True)))
+    assert order[:6] == ["method", "target", "features", "params", "predictions", "warnings"]
+    assert set(order[6:]) == {"tuning", "fit", "interval", "model"}
     errors = sorted(response_validator().iter_errors(doc), key=str)
     assert not errors, errors[0]
     assert doc["method"] == method and doc["target"] == "y" and doc["features"] == ["x"]

@@ -114,6 +114,22 @@ def test_dataset_warnings_go_in_a_header(client) -> None:
     assert "tuning_at_edge" in codes
 
 
+@pytest.mark.parametrize("method", ["knn", "linear", "spline", "auto"])
+def test_a_csv_answer_names_its_method_in_a_header(client, method: str) -> None:
+    query = f"method={method}&target=y"
+    resp = post_csv(client, table_csv(curve()), query, Accept="text/csv")
+    assert resp.status_code == 200, resp.get_data(as_text=True)
+    json_doc = post_csv(client, table_csv(curve()), query).get_json()
+    assert resp.headers["Nearwise-Method"] == json_doc["method"]  # the same fit, as JSON says
+    if method == "auto":  # the chosen one, also named by the method_chosen warning
+        assert json_doc["method"] in ("knn", "linear", "spline", "additive")
+        assert "method_chosen" in resp.headers["Nearwise-Warnings"]
+        chosen = next(w for w in json_doc["warnings"] if w["code"] == "method_chosen")
+        assert f"chose {json_doc['method']}" in chosen["message"]
+    else:
+        assert resp.headers["Nearwise-Method"] == method
+
+
 def test_samples_run_as_the_curl_script_sends_them(client) -> None:
     resp = client.post(
         "/v1/predict?method=knn&target=power_kw&features=wind_ms,air_density&tuning.folds=5",

@@ -21,7 +21,7 @@ from http import HTTPStatus
 
 from gunicorn.http.body import CHUNK_EXT_RE
 
-from nearwise.web.problem_types import title_of
+from nearwise.web.problem_types import envelope_place, title_of
 
 #: The largest request head (request line and header fields) read before answering 431. Far
 #: above what any client of this API sends (a few hundred bytes; API keys and cookies fit).
@@ -234,7 +234,7 @@ def raw_problem(
         "status": status,
         "detail": detail,
         "code": code,
-        "errors": [],
+        "errors": envelope_place(code, detail),
     }
     body = json.dumps(doc, separators=(",", ":")).encode()
     lines = [

@@ -130,9 +130,9 @@ def _json(body: bytes, limits: Limits, schema: Schema) -> Intake:
     except TooDeep as exc:
         raise Problem(400, f"The body is not readable: {exc}.") from None
     except json.JSONDecodeError as exc:
-        raise Problem(
-            400, f"The body is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}."
-        ) from None
+        detail = f"The body is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}."
+        place = {"line": exc.lineno, "character": exc.colno, "message": exc.msg}
+        raise Problem(400, detail, [place]) from None
     except DuplicateKey as exc:
         raise InvalidValue(f"The body is ambiguous: {exc}.", [Where(exc.path, str(exc))]) from None
     extra = [k for k in request.args if k not in DIALECT and k not in ANSWER]

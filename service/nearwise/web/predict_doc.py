@@ -126,7 +126,12 @@ RESPONSE_200: dict[str, Any] = {
         "Nearwise-Warnings": {
             "description": "CSV answers only: data-set-level warning codes, comma-separated.",
             "schema": {"type": "string"},
-        }
+        },
+        "Nearwise-Method": {
+            "description": "CSV answers only: the method that made the predictions (with "
+            "`method: auto`, the one it chose; JSON answers carry it as `method`).",
+            "schema": {"type": "string"},
+        },
     },
     "content": {
         "application/json": {"schema": PredictResponse},

@@ -270,3 +270,28 @@ def title_of(code: str, status: int) -> str:
         return HTTPStatus(status).phrase
     except ValueError:
         return "Error"
+
+
+# The place an envelope fault (one about the request as a whole, not about a value in it)
+# puts into ``errors[]`` when the raiser named none: the header at fault, the method, or the
+# whole body (the JSON Pointer ``""`` names the whole document, RFC 6901 section 5).
+_HEADER_AT_FAULT = {
+    "not_acceptable": "Accept",
+    "unsupported_media_type": "Content-Type",
+    "unsupported_content_encoding": "Content-Encoding",
+    "unauthorized": "Authorization",
+    "invalid_api_key": "Authorization",
+}
+_WHOLE_BODY = {"unreadable_body", "body_too_large", "too_large", "malformed_request"}
+
+
+def envelope_place(code: str, detail: str, method: str | None = None) -> list[dict[str, str]]:
+    """The ``errors[]`` entry for an envelope fault with no place of its own; ``[]`` for
+    any other code (those name their own places, or have none: ``not_found``, 5xx)."""
+    if code == "method_not_allowed" and method:
+        return [{"method": method, "message": detail}]
+    if code in _HEADER_AT_FAULT:
+        return [{"header": _HEADER_AT_FAULT[code], "message": detail}]
+    if code in _WHOLE_BODY:
+        return [{"pointer": "", "message": detail}]
+    return []

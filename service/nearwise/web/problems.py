@@ -19,13 +19,13 @@ from dataclasses import dataclass, field
 from typing import Any, Protocol
 from urllib.parse import urlsplit
 
-from flask import Flask, Response, g
+from flask import Flask, Response, g, request
 from werkzeug.exceptions import HTTPException
 
 from nearwise.core.errors import NearwiseError, OverBudget, Where, shown
 from nearwise.web.jsonio import dumps
 from nearwise.web.metrics import note_problem
-from nearwise.web.problem_types import title_of
+from nearwise.web.problem_types import envelope_place, title_of
 
 PROBLEM_JSON = "application/problem+json"
 #: Seconds a client is asked to wait after a 503.
@@ -159,6 +159,7 @@ def handle(exc: Exception) -> Response:
             for w in exc.where
         ]
         code = exc.code or HTTP_CODES.get(exc.status, "http_error")
+        errors = errors or envelope_place(code, exc.detail, request.method)
         return problem_response(exc.status, exc.detail, code, errors, exc.headers)
     if isinstance(exc, NearwiseError):
         errors = [error_entry(w, _csv_parts(), _json_tables()) for w in exc.where]
@@ -169,7 +170,9 @@ def handle(exc: Exception) -> Response:
     if isinstance(exc, HTTPException) and exc.code is not None and exc.code < 500:
         headers = {k: v for k, v in exc.get_headers() if k.lower() not in ("content-type",)}
         code = HTTP_CODES.get(exc.code, "http_error")
-        return problem_response(exc.code, _http_detail(exc), code, (), headers)
+        detail = _http_detail(exc)
+        errors = envelope_place(code, detail, request.method)
+        return problem_response(exc.code, detail, code, errors, headers)
     if isinstance(exc, MemoryError):  # the worker's address-space guard (worker.py)
         log.warning("a request ran out of memory (NEARWISE_WORKER_MEMORY_MB)")
         return problem_response(

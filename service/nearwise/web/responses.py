@@ -167,14 +167,14 @@ class PredictResponse(Strict):
         values=Scalar(),
         metadata=_doc("Every parameter in force, fixed and tuned."),
     )
-    tuning = fields.Nested(TuningReportSchema)
-    fit = fields.Nested(FitReportSchema)
-    model = fields.Dict(metadata=_doc("Method-specific summary; see GET /v1/methods."))
-    interval = fields.Nested(IntervalReportSchema)
     predictions = fields.List(
         fields.Nested(PredictionSchema), metadata=_doc("One per query row (or training row).")
     )
     warnings = fields.List(fields.Nested(WarningSchema))
+    tuning = fields.Nested(TuningReportSchema)
+    fit = fields.Nested(FitReportSchema)
+    interval = fields.Nested(IntervalReportSchema)
+    model = fields.Dict(metadata=_doc("Method-specific summary; see GET /v1/methods."))
     comparison = fields.Nested(
         ComparisonSchema, metadata=_doc("Only for `method: auto`: the ranking behind the choice.")
     )
@@ -278,9 +278,23 @@ class ErrorEntrySchema(Strict):
         )
     )
     part = fields.String(metadata=_doc("CSV part at fault (`train` or `query`)."))
-    line = fields.Integer(metadata=_doc("Line of that part; the header is line 1."))
+    line = fields.Integer(
+        metadata=_doc(
+            "Line of that part (the header is line 1), or of a JSON body that fails to parse."
+        )
+    )
+    character = fields.Integer(
+        metadata=_doc("Character within that line, from 1, where a JSON body fails to parse.")
+    )
     column = fields.String(metadata=_doc("Column name in that part."))
     parameter = fields.String(metadata=_doc("Query-string parameter at fault."))
+    header = fields.String(
+        metadata=_doc(
+            "Request header at fault (`Accept` for a 406, `Content-Type` or `Content-Encoding` "
+            "for a 415, `Authorization` for a 401)."
+        )
+    )
+    method = fields.String(metadata=_doc("HTTP method the endpoint does not take (405)."))
     message = fields.String(required=True)
 
 

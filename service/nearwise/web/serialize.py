@@ -50,17 +50,17 @@ def predict_document(result: PredictResult, check: Check | None = None) -> dict[
     """The JSON answer of ``POST /v1/predict``; ``check`` (the request's time budget,
     ``job.deadline.check``) is called between blocks of rows."""
     tuning = asdict(result.tuning)
-    doc = {
+    doc = {  # what was fit and the predictions first; the model detail after them
         "method": result.method,
         "target": result.target,
         "features": list(result.features),
         "params": jsonable(result.params),
-        "tuning": jsonable(tuning),
-        "fit": jsonable(asdict(result.fit)),
-        "model": jsonable(result.model),
-        "interval": jsonable(result.interval),
         "predictions": prediction_rows(result.predictions, check),
         "warnings": _warnings(result.warnings),
+        "tuning": jsonable(tuning),
+        "fit": jsonable(asdict(result.fit)),
+        "interval": jsonable(result.interval),
+        "model": jsonable(result.model),
     }
     if result.comparison is not None:
         doc["comparison"] = jsonable(result.comparison)

@@ -54,6 +54,7 @@ def _answer(answer: str, job: Job, intake: Intake) -> Response:
     rows = intake.tables.get("query") or intake.tables["train"]
     text = serialize.predict_csv(result, rows, intake.dialect, check)
     resp = Response(text, content_type=CSV_ANSWER)
+    resp.headers["Nearwise-Method"] = result.method  # with `auto`, the method it chose
     codes = serialize.dataset_codes(result)
     if codes:
         resp.headers["Nearwise-Warnings"] = ", ".join(codes)
