@@ -164,6 +164,11 @@ def _warnings() -> list[dict[str, Any]]:
     ]
 
 
+def warning_codes() -> tuple[str, ...]:
+    """Every warning code an answer can carry, in the catalogue's order."""
+    return tuple(w["code"] for w in _warnings())
+
+
 def describe() -> dict[str, Any]:
     """Every method with its parameters, the tuning options they share, and the warnings."""
     return {

@@ -90,7 +90,7 @@ def _operation(view: Any, path: str) -> dict[str, Any]:
         op["description"] = rest.strip()
     if path.startswith("/v1/") or path in OPEN_ENDPOINT_CHOICES:
         op["security"] = [{}, {SCHEME: []}]  # no key needed while NEARWISE_API_KEYS is unset
-    return openapi_parts.compression(op)
+    return openapi_parts.common_headers(openapi_parts.answer_format(op))
 
 
 def _templated(rule: str) -> str:

@@ -6,7 +6,9 @@ from typing import Any
 
 from marshmallow import Schema, fields, validate
 
+from nearwise.web.body import FORMATS
 from nearwise.web.coding import MIN_BYTES
+from nearwise.web.logs import MAX_ID_LENGTH
 from nearwise.web.responses import ProblemSchema
 
 PROBLEM_WHEN = {
@@ -76,7 +78,28 @@ REQUEST_CODING = (
     "decompressed size, checked as it is decompressed (413 `body_too_large`); another "
     "coding, or two, is a 415 `unsupported_content_encoding`."
 )
+#: The request id, as sent by a client (kept when valid) and as answered (always).
+_REQUEST_ID = {
+    "type": "string",
+    "minLength": 1,
+    "maxLength": MAX_ID_LENGTH,
+    "pattern": "^[ -~]+$",
+}
+REQUEST_ID_PARAMETER = {
+    "name": "X-Request-ID",
+    "in": "header",
+    "required": False,
+    "description": "An id of your own for this request (1 to "
+    f"{MAX_ID_LENGTH} printable ASCII characters), returned in the answer's `X-Request-ID` "
+    "and written to every log line of the request; any other value is replaced by a new id.",
+    "schema": _REQUEST_ID,
+}
 ANSWER_HEADERS = {
+    "X-Request-ID": {
+        "description": "The request's id: the one sent, when valid, or a new one (32 hex "
+        "digits). Quote it when reporting a problem; the logs carry it.",
+        "schema": _REQUEST_ID,
+    },
     "Content-Encoding": {
         "description": "`gzip` when the request's `Accept-Encoding` allows gzip and the "
         f"answer holds at least {MIN_BYTES} bytes; absent otherwise.",
@@ -90,9 +113,31 @@ ANSWER_HEADERS = {
 }
 
 
-def compression(op: dict[str, Any]) -> dict[str, Any]:
-    """``op`` with the content codings declared: the request body's description says which
-    it may have; every answer lists ``Content-Encoding`` and ``Vary`` among its headers."""
+def answer_format(op: dict[str, Any]) -> dict[str, Any]:
+    """``op`` with its ``format`` query parameter declared (:func:`nearwise.web.body.negotiate`
+    reads it on every endpoint): the names of the media types its 200 answer offers."""
+    offered = op.get("responses", {}).get("200", {}).get("content", {})
+    names = [name for name, media in FORMATS.items() if media in offered]
+    if names:
+        op.setdefault("parameters", []).append(
+            {
+                "name": "format",
+                "in": "query",
+                "required": False,
+                "description": "The answer's media type by name, for clients that cannot set "
+                "`Accept` (a spreadsheet's web query, a link): it overrides the Accept header. "
+                "Another value is a 422 naming the parameter and the values taken here.",
+                "schema": {"type": "string", "enum": names},
+            }
+        )
+    return op
+
+
+def common_headers(op: dict[str, Any]) -> dict[str, Any]:
+    """``op`` with what every operation shares: it takes an ``X-Request-ID`` of the client's
+    own; its request body's description says which content codings the body may have; every
+    answer lists ``Content-Encoding``, ``Vary`` and ``X-Request-ID`` among its headers."""
+    op.setdefault("parameters", []).append(dict(REQUEST_ID_PARAMETER))
     body = op.get("requestBody")
     if body is not None:
         body["description"] = body.get("description", "").rstrip() + REQUEST_CODING

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
-from marshmallow import fields
+from marshmallow import fields, validate
 
+from nearwise.core.catalogue import warning_codes
 from nearwise.web.fields import Scalar
+from nearwise.web.problem_types import TYPES
 from nearwise.web.schemas import Strict, _doc
 
 
@@ -138,7 +140,10 @@ class PredictionSchema(Strict):
 
 
 class WarningSchema(Strict):
-    code = fields.String(metadata=_doc("Stable snake_case code."))
+    code = fields.String(
+        validate=validate.OneOf(warning_codes()),
+        metadata=_doc("Stable snake_case code; each is described at GET /v1/methods."),
+    )
     message = fields.String()
     rows = fields.List(fields.Integer(), metadata=_doc("Rows concerned; empty: the data set."))
 
@@ -303,5 +308,8 @@ class ProblemSchema(Strict):
     title = fields.String()
     status = fields.Integer()
     detail = fields.String(metadata=_doc("What is wrong and how to fix it."))
-    code = fields.String(metadata=_doc("Stable snake_case code."))
+    code = fields.String(
+        validate=validate.OneOf(sorted(TYPES)),
+        metadata=_doc("Stable snake_case code; its page is `/problems/{code}`."),
+    )
     errors = fields.List(fields.Nested(ErrorEntrySchema))
