@@ -231,3 +231,22 @@ def test_request_id_is_declared_as_the_service_keeps_it(client, sent: str, kept:
         got = client.get("/healthz", headers={"X-Request-ID": sent}).headers["X-Request-ID"]
         assert (got == sent) == kept
         assert schema.is_valid(got)
+
+
+def test_query_parameter_examples_together_get_an_answer(client) -> None:
+    """The docs page fills every parameter that has an example when Try it out is pressed:
+    those values together must be a request the service answers."""
+    doc = json.loads(KEPT.read_text(encoding="utf-8"))
+    tried = []
+    for path, item in doc["paths"].items():
+        for verb, op in item.items():
+            filled = {
+                p["name"]: p["example"]
+                for p in op.get("parameters", [])
+                if p["in"] == "query" and "example" in p
+            }
+            if verb == "get" and filled:
+                resp = client.get(path, query_string=filled)
+                assert resp.status_code == 200, (path, resp.get_data(as_text=True))
+                tried.append(path)
+    assert tried == ["/v1/cell"]

@@ -80,7 +80,9 @@ _LIST = (
 _PARAMETERS = [
     _parameter("x", "The feature values. " + _LIST, "1,2,3,4,5,6,7,8"),
     _parameter(
-        "y", "The targets, one per `x` value (rows with a missing y are dropped).", "1.1,1.9,3.2"
+        "y",
+        "The targets, one per `x` value (rows with a missing y are dropped).",
+        "1.1,1.9,3.2,3.9,5.1,6.2,6.8,8.1",
     ),
     _parameter("at", "Where to predict: one value, or a list as for `x`.", "4.5"),
     _parameter(
