@@ -288,7 +288,9 @@ def grids(draw):
     return method, {}, {"smoothing": values}
 
 
-@answering(0.65)  # observed: 30 of 31 to 38 (79 to 97 %)
+# observed: 30 answered of 31 to 38 run alone (79 to 97 %), 30 of 52 (58 %) in a whole-suite
+# run; the refused examples are replaced (assume), so the share measures the refusals only
+@answering(0.5)
 @FAST
 @given(data=tables(), choice=grids(), rule=st.sampled_from(["one_se", "min"]))
 def test_tuning_chooses_from_the_grid(data, choice, rule):

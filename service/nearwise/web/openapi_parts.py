@@ -130,6 +130,10 @@ def answer_format(op: dict[str, Any]) -> dict[str, Any]:
                 "schema": {"type": "string", "enum": names},
             }
         )
+        # a value outside the list is a 422; a query string too long for the server a 414
+        responses = op.setdefault("responses", {})
+        for status, entry in problems(414, 422).items():
+            responses.setdefault(status, entry)
     return op
 
 
